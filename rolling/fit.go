@@ -1,0 +1,422 @@
+package rolling
+
+import (
+	"math"
+	"time"
+)
+
+const nanosPerDay = 86400e9
+
+// Fit is the least-squares fit of one model over one window.
+//
+// Time enters as τ = (t − Last) in days, so Coef[0] is the fitted value at
+// the newest reading, Coef[1] a rate per day and Coef[2] a curvature per
+// day². For Exp the fitted quantity is ln y.
+//
+// When Err is not nil the fit is not usable and every number is zero,
+// except for ErrConstant (see there) and N, First and Last, which still
+// describe the window.
+type Fit struct {
+	Model Model
+	Err   error
+
+	N        int       // readings used
+	Excluded int       // Exp only: readings left out because y ≤ 0
+	First    time.Time // first reading time in the window
+	Last     time.Time // newest reading time in the window: τ = 0
+
+	Coef [3]float64    // c0, c1 (per day), c2 (per day², Parabola only)
+	SE   [3]float64    // standard errors of Coef
+	CI   [3][2]float64 // 95% confidence intervals of Coef (low, high)
+	Cov  [3][3]float64 // covariance matrix of Coef
+
+	ResidSD float64 // residual standard deviation, √(RSS/(N−p)), in y units (ln y for Exp)
+	R2      float64 // coefficient of determination, 1 − RSS/Σ(y−ȳ)²
+	DF      int     // residual degrees of freedom N − p
+	TCrit   float64 // 97.5% quantile of Student's t with DF degrees of freedom
+
+	// Cond is the 2-norm condition number of the normal matrix in the
+	// scaled time z ∈ [−1, 1] spanning the window's readings: near 1 for
+	// readings spread evenly, large when they crowd into a small part of
+	// the window. PosDef says the normal matrix is positive definite, so
+	// the coefficients are the unique minimum of the squared error.
+	Cond   float64
+	PosDef bool
+}
+
+// OK reports whether the fit can be used: no error, or ErrConstant.
+func (f *Fit) OK() bool { return f.Err == nil || f.Err == ErrConstant }
+
+// Solution holds the three fits of one window at one moment.
+type Solution struct {
+	Window   WindowSpec
+	Panes    int // panes in the window
+	Filled   int // panes holding at least one reading
+	N        int
+	First    time.Time
+	Last     time.Time
+	Line     Fit
+	Parabola Fit
+	Exp      Fit
+}
+
+// Coverage returns the fraction of the window's panes that hold readings.
+func (s *Solution) Coverage() float64 { return float64(s.Filled) / float64(s.Panes) }
+
+// Fit returns the fit of model m.
+func (s *Solution) Fit(m Model) *Fit {
+	switch m {
+	case Line:
+		return &s.Line
+	case Parabola:
+		return &s.Parabola
+	case Exp:
+		return &s.Exp
+	}
+	return nil
+}
+
+// normal holds the normal equations G·β = r of a fit in scaled time z.
+type normal struct {
+	g   [3][3]float64
+	r   [3]float64
+	n   float64
+	p   int
+	rss float64 // residual sum of squares, filled by the second pass
+	css float64 // Σ(y − ȳ)², filled by the second pass
+	det float64 // det G, from the Cholesky factor
+}
+
+// Solve fits the three models over window i.
+//
+// The window's readings are put on a scaled time z = (t − tc)/h, with tc
+// and h the midpoint and half-width of their time range, so the normal
+// matrix is well conditioned whatever the epoch and span. A first pass
+// over the panes shifts each pane's sums exactly onto z and onto common
+// value anchors and solves the normal equations by Cholesky factorisation.
+// A second pass sums the squared residuals pane by pane in the pane's own
+// coordinates, Σ(ỹ − q(u))² with q the fitted curve seen from that pane, so
+// the residual sum of squares never comes from subtracting two large
+// totals; that is what keeps near-perfect fits (R² → 1) to full precision.
+func (s *Sensor) Solve(i int) Solution {
+	w := &s.wins[i]
+	rg := &s.rings[w.ring]
+	sol := Solution{Window: w.spec, Panes: int(w.panes)}
+	sol.Line.Model, sol.Parabola.Model, sol.Exp.Model = Line, Parabola, Exp
+	if !rg.start {
+		sol.Line.Err, sol.Parabola.Err, sol.Exp.Err = ErrNotEnoughData, ErrNotEnoughData, ErrNotEnoughData
+		return sol
+	}
+
+	// Range pass: time range, counts, and the value anchors of the
+	// newest pane (Y) and newest pane with positive readings (L).
+	oldest := rg.newest - w.panes + 1
+	var n, npos int
+	tfirst, tlast := int64(math.MaxInt64), int64(math.MinInt64)
+	var anchorY, anchorL float64
+	haveL := false
+	for k := rg.newest; k >= oldest; k-- {
+		p := &rg.panes[rg.slot(k)]
+		if p.n == 0 {
+			continue
+		}
+		if n == 0 {
+			anchorY = p.y0
+		}
+		if !haveL && p.npos > 0 {
+			anchorL, haveL = p.l0, true
+		}
+		sol.Filled++
+		n += int(p.n)
+		npos += int(p.npos)
+		tfirst = min(tfirst, p.tmin)
+		tlast = max(tlast, p.tmax)
+	}
+	sol.N = n
+	sol.First, sol.Last = time.Unix(0, tfirst), time.Unix(0, tlast)
+	for _, f := range []*Fit{&sol.Line, &sol.Parabola, &sol.Exp} {
+		f.N, f.First, f.Last = n, sol.First, sol.Last
+	}
+	sol.Exp.N, sol.Exp.Excluded = npos, n-npos
+
+	if tfirst == tlast {
+		for _, f := range []*Fit{&sol.Line, &sol.Parabola, &sol.Exp} {
+			f.Err = ErrNoTimeSpread
+			if f.N <= f.Model.Coefs() {
+				f.Err = ErrNotEnoughData
+			}
+		}
+		return sol
+	}
+
+	// z = a_k + bz·u for pane k, with a_k = (2(k·w − tfirst) + w − span)/span
+	// and bz = 2w/span: the integer parts are exact, only the final
+	// division rounds.
+	span := tlast - tfirst
+	fspan := float64(span)
+	bz := 2 * float64(rg.width) / fspan
+	bz2 := bz * bz
+	bz3, bz4 := bz2*bz, bz2*bz2
+
+	var lin, par, ex normal
+	par.p, lin.p, ex.p = 3, 2, 2
+	for k := oldest; k <= rg.newest; k++ {
+		j := rg.slot(k)
+		p := &rg.panes[j]
+		if p.n == 0 {
+			continue
+		}
+		a := float64(2*(k*rg.width-tfirst)+rg.width-span) / fspan
+		a2 := a * a
+		pn := float64(p.n)
+		m1 := pn*a + bz*p.su
+		m2 := pn*a2 + 2*a*bz*p.su + bz2*p.su2
+		m3 := pn*a2*a + 3*a2*bz*p.su + 3*a*bz2*p.su2 + bz3*p.su3
+		m4 := pn*a2*a2 + 4*a2*a*bz*p.su + 6*a2*bz2*p.su2 + 4*a*bz3*p.su3 + bz4*p.su4
+		d := p.y0 - anchorY
+		par.n += pn
+		par.g[0][1] += m1
+		par.g[0][2] += m2
+		par.g[1][2] += m3
+		par.g[2][2] += m4
+		par.r[0] += p.sy + pn*d
+		par.r[1] += a*p.sy + bz*p.suy + d*m1
+		par.r[2] += a2*p.sy + 2*a*bz*p.suy + bz2*p.su2y + d*m2
+		if p.npos > 0 {
+			sup, su2p := rg.posMoments(j)
+			qn := float64(p.npos)
+			q1 := qn*a + bz*sup
+			dl := p.l0 - anchorL
+			ex.n += qn
+			ex.g[0][1] += q1
+			ex.g[1][1] += qn*a2 + 2*a*bz*sup + bz2*su2p
+			ex.r[0] += p.sl + qn*dl
+			ex.r[1] += a*p.sl + bz*p.sul + dl*q1
+		}
+	}
+	par.g[0][0] = par.n
+	par.g[1][1] = par.g[0][2]
+	lin.n = par.n
+	lin.g[0][0], lin.g[0][1], lin.g[1][1] = par.n, par.g[0][1], par.g[0][2]
+	lin.r[0], lin.r[1] = par.r[0], par.r[1]
+	ex.g[0][0] = ex.n
+
+	var bl, bp, be [3]float64
+	var il, ip, ie [3][3]float64
+	sol.Line.PosDef = lin.solve(&bl, &il)
+	sol.Parabola.PosDef = par.solve(&bp, &ip)
+	sol.Exp.PosDef = npos > 0 && ex.solve(&be, &ie)
+
+	// Residual pass, pane by pane in pane coordinates.
+	ybar := par.r[0] / par.n
+	var lbar float64
+	if ex.n > 0 {
+		lbar = ex.r[0] / ex.n
+	}
+	for k := oldest; k <= rg.newest; k++ {
+		j := rg.slot(k)
+		p := &rg.panes[j]
+		if p.n == 0 {
+			continue
+		}
+		a := float64(2*(k*rg.width-tfirst)+rg.width-span) / fspan
+		pn := float64(p.n)
+		d := p.y0 - anchorY
+		c := d - ybar
+		css := p.syy + 2*c*p.sy + pn*c*c
+		par.css += css
+		lin.css += css
+		lin.rss += paneRSS(p, bl[0]+bl[1]*a-d, bz*bl[1], 0)
+		par.rss += paneRSS(p, bp[0]+bp[1]*a+bp[2]*a*a-d, bz*(bp[1]+2*bp[2]*a), bz2*bp[2])
+		if p.npos > 0 {
+			sup, su2p := rg.posMoments(j)
+			qn := float64(p.npos)
+			dl := p.l0 - anchorL
+			c := dl - lbar
+			ex.css += p.sll + 2*c*p.sl + qn*c*c
+			q0, q1 := be[0]+be[1]*a-dl, bz*be[1]
+			ex.rss += p.sll - 2*(q0*p.sl+q1*p.sul) + q0*q0*qn + 2*q0*q1*sup + q1*q1*su2p
+		}
+	}
+
+	// τ in days: z = 1 + g·τ at the newest reading, since tlast maps to z = 1.
+	g := 2 * nanosPerDay / fspan
+	lin.finish(&sol.Line, bl, il, g, anchorY)
+	par.finish(&sol.Parabola, bp, ip, g, anchorY)
+	if npos == 0 {
+		sol.Exp.Err = ErrNotEnoughData
+	} else {
+		ex.finish(&sol.Exp, be, ie, g, anchorL)
+	}
+	return sol
+}
+
+// paneRSS returns Σ(ỹ − q(u))² over a pane for q(u) = q0 + q1·u + q2·u².
+func paneRSS(p *pane, q0, q1, q2 float64) float64 {
+	return p.syy - 2*(q0*p.sy+q1*p.suy+q2*p.su2y) +
+		q0*q0*float64(p.n) + 2*q0*q1*p.su + (q1*q1+2*q0*q2)*p.su2 + 2*q1*q2*p.su3 + q2*q2*p.su4
+}
+
+// pdTol is the smallest Cholesky pivot, relative to its diagonal entry,
+// taken as positive: the sums carry rounding of a few ulps times the
+// count of panes, so a smaller pivot cannot be told apart from zero.
+const pdTol = 1e-12
+
+// solve factors the symmetric matrix (upper triangle in ne.g) by Cholesky,
+// G = L·Lᵀ, and fills beta = G⁻¹·r and inv = G⁻¹. It reports false,
+// leaving beta and inv zero, when G is not positive definite.
+func (ne *normal) solve(beta *[3]float64, inv *[3][3]float64) bool {
+	p := ne.p
+	var l [3][3]float64
+	for c := 0; c < p; c++ {
+		d := ne.g[c][c]
+		for k := 0; k < c; k++ {
+			d -= l[c][k] * l[c][k]
+		}
+		if !(d > pdTol*ne.g[c][c]) {
+			return false
+		}
+		l[c][c] = math.Sqrt(d)
+		for r := c + 1; r < p; r++ {
+			v := ne.g[c][r]
+			for k := 0; k < c; k++ {
+				v -= l[r][k] * l[c][k]
+			}
+			l[r][c] = v / l[c][c]
+		}
+	}
+	// Inverse of L (lower triangular), then G⁻¹ = L⁻ᵀ·L⁻¹.
+	var li [3][3]float64
+	for c := 0; c < p; c++ {
+		li[c][c] = 1 / l[c][c]
+		for r := c + 1; r < p; r++ {
+			var v float64
+			for k := c; k < r; k++ {
+				v -= l[r][k] * li[k][c]
+			}
+			li[r][c] = v / l[r][r]
+		}
+	}
+	for r := 0; r < p; r++ {
+		for c := 0; c < p; c++ {
+			var v float64
+			for k := max(r, c); k < p; k++ {
+				v += li[k][r] * li[k][c]
+			}
+			inv[r][c] = v
+		}
+	}
+	for r := 0; r < p; r++ {
+		var v float64
+		for c := 0; c < p; c++ {
+			v += inv[r][c] * ne.r[c]
+		}
+		beta[r] = v
+	}
+	det := 1.0
+	for c := 0; c < p; c++ {
+		det *= l[c][c] * l[c][c]
+	}
+	ne.det = det
+	return true
+}
+
+// finish turns the solution in z into the reported fit in τ days.
+// With z = 1 + g·τ, p(z) = Σβⱼzʲ becomes c = T·β with
+// T = [[1, 1, 1], [0, g, 2g], [0, 0, g²]] (cut to the model's size), and
+// the covariance Tᵀ-transforms with it. anchor is added back to c0.
+func (ne *normal) finish(f *Fit, beta [3]float64, inv [3][3]float64, g, anchor float64) {
+	p := ne.p
+	if f.N <= p {
+		f.Err = ErrNotEnoughData
+		return
+	}
+	if !f.PosDef {
+		f.Err = ErrSingular
+		return
+	}
+	var t [3][3]float64
+	t[0] = [3]float64{1, 1, 1}
+	t[1] = [3]float64{0, g, 2 * g}
+	t[2] = [3]float64{0, 0, g * g}
+	for r := 0; r < p; r++ {
+		for c := p; c < 3; c++ {
+			t[r][c] = 0
+		}
+	}
+	f.DF = f.N - p
+	rss := max(ne.rss, 0)
+	s2 := rss / float64(f.DF)
+	var ti [3][3]float64 // T·G⁻¹
+	for r := 0; r < p; r++ {
+		for c := 0; c < p; c++ {
+			var v float64
+			for k := 0; k < p; k++ {
+				v += t[r][k] * inv[k][c]
+			}
+			ti[r][c] = v
+		}
+	}
+	for r := 0; r < p; r++ {
+		var v float64
+		for k := 0; k < p; k++ {
+			v += t[r][k] * beta[k]
+		}
+		f.Coef[r] = v
+		for c := 0; c < p; c++ {
+			var w float64
+			for k := 0; k < p; k++ {
+				w += ti[r][k] * t[c][k]
+			}
+			f.Cov[r][c] = s2 * w
+		}
+	}
+	f.Coef[0] += anchor
+	f.TCrit = t975(f.DF)
+	for r := 0; r < p; r++ {
+		f.SE[r] = math.Sqrt(max(f.Cov[r][r], 0))
+		f.CI[r] = [2]float64{f.Coef[r] - f.TCrit*f.SE[r], f.Coef[r] + f.TCrit*f.SE[r]}
+	}
+	f.ResidSD = math.Sqrt(s2)
+	f.Cond = ne.cond()
+	if !(ne.css > 0) {
+		f.Err = ErrConstant
+		return
+	}
+	f.R2 = 1 - rss/ne.css
+}
+
+// cond returns the 2-norm condition number λmax/λmin of the symmetric
+// positive definite normal matrix. The two largest eigenvalues come from
+// the closed form for symmetric matrices (O. K. Smith, "Eigenvalues of a
+// symmetric 3 × 3 matrix", Comm. ACM 4(4), 1961); the smallest from the
+// determinant, which the Cholesky factor gives accurately even when the
+// matrix is nearly singular.
+func (ne *normal) cond() float64 {
+	g := &ne.g
+	if ne.p == 2 {
+		m := (g[0][0] + g[1][1]) / 2
+		d := math.Hypot((g[0][0]-g[1][1])/2, g[0][1])
+		hi := m + d
+		return hi * hi / ne.det
+	}
+	a00, a11, a22 := g[0][0], g[1][1], g[2][2]
+	a01, a02, a12 := g[0][1], g[0][2], g[1][2]
+	q := (a00 + a11 + a22) / 3
+	p1 := a01*a01 + a02*a02 + a12*a12
+	b00, b11, b22 := a00-q, a11-q, a22-q
+	p2 := b00*b00 + b11*b11 + b22*b22 + 2*p1
+	if p2 == 0 {
+		return 1
+	}
+	pp := math.Sqrt(p2 / 6)
+	// det((A − qI)/pp) / 2, clamped against rounding.
+	det := (b00*(b11*b22-a12*a12) - a01*(a01*b22-a12*a02) + a02*(a01*a12-b11*a02)) / (pp * pp * pp) / 2
+	det = max(-1, min(1, det))
+	phi := math.Acos(det) / 3
+	e1 := q + 2*pp*math.Cos(phi)
+	e3 := q + 2*pp*math.Cos(phi+2*math.Pi/3)
+	e2 := 3*q - e1 - e3
+	lo := ne.det / (e1 * e2)
+	return e1 / lo
+}

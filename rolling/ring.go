@@ -1,0 +1,92 @@
+package rolling
+
+// ring is a circular array of panes of one width, shared by every window of
+// a sensor with that pane width. Slot k mod len(panes) holds pane k, the
+// readings with k·w ≤ t < (k+1)·w; a slot with n == 0 is empty. Advancing
+// to a newer pane clears the slots it passes, so a non-empty slot always
+// holds a pane within the ring's reach and needs no stored index.
+type ring struct {
+	width  int64   // pane width w, ns
+	invW   float64 // 1/w
+	newest int64   // index of the newest pane seen; valid when started
+	start  bool
+	panes  []pane
+	side   []posMoments // nil until a pane becomes mixed
+}
+
+func newRing(width int64, slots int) ring {
+	return ring{width: width, invW: 1 / float64(width), panes: make([]pane, slots)}
+}
+
+// floorDiv returns ⌊a/b⌋ for b > 0, also for negative a.
+func floorDiv(a, b int64) int64 {
+	q := a / b
+	if a%b != 0 && a < 0 {
+		q--
+	}
+	return q
+}
+
+func (r *ring) slot(k int64) int {
+	i := k % int64(len(r.panes))
+	if i < 0 {
+		i += int64(len(r.panes))
+	}
+	return int(i)
+}
+
+// accepts reports whether pane k is within the ring's reach.
+func (r *ring) accepts(k int64) bool {
+	return !r.start || k > r.newest-int64(len(r.panes))
+}
+
+// add folds a reading into its pane, sliding the ring first if the reading
+// is newer than every pane held. The caller has checked accepts.
+func (r *ring) add(t int64, y, ly float64, pos bool) error {
+	k := floorDiv(t, r.width)
+	if !r.start {
+		r.newest, r.start = k, true
+	} else if k > r.newest {
+		steps := k - r.newest
+		if steps > int64(len(r.panes)) {
+			steps = int64(len(r.panes))
+		}
+		for j := int64(1); j <= steps; j++ {
+			i := r.slot(k - j + 1)
+			r.panes[i] = pane{}
+			if r.side != nil {
+				r.side[i] = posMoments{}
+			}
+		}
+		r.newest = k
+	}
+	i := r.slot(k)
+	p := &r.panes[i]
+	if p.n == ^uint32(0) {
+		return ErrPaneFull
+	}
+	var side *posMoments
+	if !pos && !p.mixed() {
+		// The pane becomes mixed: from now on its positive time moments
+		// are kept apart. Until now every reading was positive.
+		if r.side == nil {
+			r.side = make([]posMoments, len(r.panes))
+		}
+		r.side[i] = posMoments{su: p.su, su2: p.su2}
+	}
+	if r.side != nil && (p.mixed() || !pos) {
+		side = &r.side[i]
+	}
+	u := float64(t-k*r.width)*r.invW - 0.5
+	p.add(t, u, y, ly, pos, side)
+	return nil
+}
+
+// posMoments returns Σu and Σu² over the positive readings of slot i.
+func (r *ring) posMoments(i int) (su, su2 float64) {
+	p := &r.panes[i]
+	if !p.mixed() {
+		return p.su, p.su2
+	}
+	return r.side[i].su, r.side[i].su2
+}
