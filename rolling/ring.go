@@ -12,10 +12,16 @@ type ring struct {
 	start  bool
 	panes  []pane
 	side   []posMoments // nil until a pane becomes mixed
+	dirty  []uint64     // bit per slot: changed since the last MarkSaved
 }
 
 func newRing(width int64, slots int) ring {
-	return ring{width: width, invW: 1 / float64(width), panes: make([]pane, slots)}
+	return ring{
+		width: width,
+		invW:  1 / float64(width),
+		panes: make([]pane, slots),
+		dirty: make([]uint64, (slots+63)/64),
+	}
 }
 
 // floorDiv returns ⌊a/b⌋ for b > 0, also for negative a.
@@ -44,22 +50,7 @@ func (r *ring) accepts(k int64) bool {
 // is newer than every pane held. The caller has checked accepts.
 func (r *ring) add(t int64, y, ly float64, pos bool) error {
 	k := floorDiv(t, r.width)
-	if !r.start {
-		r.newest, r.start = k, true
-	} else if k > r.newest {
-		steps := k - r.newest
-		if steps > int64(len(r.panes)) {
-			steps = int64(len(r.panes))
-		}
-		for j := int64(1); j <= steps; j++ {
-			i := r.slot(k - j + 1)
-			r.panes[i] = pane{}
-			if r.side != nil {
-				r.side[i] = posMoments{}
-			}
-		}
-		r.newest = k
-	}
+	r.advance(k)
 	i := r.slot(k)
 	p := &r.panes[i]
 	if p.n == ^uint32(0) {
@@ -79,7 +70,30 @@ func (r *ring) add(t int64, y, ly float64, pos bool) error {
 	}
 	u := float64(t-k*r.width)*r.invW - 0.5
 	p.add(t, u, y, ly, pos, side)
+	r.dirty[i>>6] |= 1 << uint(i&63)
 	return nil
+}
+
+// advance makes pane k the newest if it is newer than every pane held,
+// clearing the slots of the panes that leave the ring.
+func (r *ring) advance(k int64) {
+	if !r.start {
+		r.newest, r.start = k, true
+		return
+	}
+	if k <= r.newest {
+		return
+	}
+	steps := min(k-r.newest, int64(len(r.panes)))
+	for j := int64(0); j < steps; j++ {
+		i := r.slot(k - j)
+		r.panes[i] = pane{}
+		if r.side != nil {
+			r.side[i] = posMoments{}
+		}
+		r.dirty[i>>6] &^= 1 << uint(i&63)
+	}
+	r.newest = k
 }
 
 // posMoments returns Σu and Σu² over the positive readings of slot i.

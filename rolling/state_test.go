@@ -1,0 +1,193 @@
+package rolling_test
+
+import (
+	"errors"
+	"math"
+	"math/rand/v2"
+	"slices"
+	"testing"
+	"time"
+
+	"driftfit/rolling"
+)
+
+var defaultSpecs = []rolling.WindowSpec{
+	{Span: 24 * time.Hour, Pane: time.Hour},
+	{Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour},
+}
+
+// copyState writes every pane of src through AppendPane, in key order per
+// width as a store returns them, and loads it into a new sensor.
+func copyState(t *testing.T, src *rolling.Sensor, keys []rolling.PaneKey) *rolling.Sensor {
+	t.Helper()
+	slices.SortFunc(keys, func(a, b rolling.PaneKey) int {
+		if a.Width != b.Width {
+			return int(a.Width - b.Width)
+		}
+		return int(a.Index - b.Index)
+	})
+	dst := newSensor(t, defaultSpecs...)
+	for _, k := range keys {
+		data := src.AppendPane(nil, k)
+		if len(data) == 0 {
+			continue // slid out since it was recorded
+		}
+		if err := dst.LoadPane(k, data); err != nil {
+			t.Fatalf("LoadPane(%v): %v", k, err)
+		}
+	}
+	return dst
+}
+
+func sameSolutions(t *testing.T, a, b *rolling.Sensor) {
+	t.Helper()
+	for i := range a.Windows() {
+		sa, sb := a.Solve(i), b.Solve(i)
+		for _, m := range rolling.Models {
+			fa, fb := sa.Fit(m), sb.Fit(m)
+			if fa.Err != fb.Err || fa.N != fb.N || fa.Coef != fb.Coef || fa.SE != fb.SE || fa.Cov != fb.Cov ||
+				math.Float64bits(fa.ResidSD) != math.Float64bits(fb.ResidSD) || math.Float64bits(fa.R2) != math.Float64bits(fb.R2) {
+				t.Fatalf("window %d %v differs:\n%+v\n%+v", i, m, *fa, *fb)
+			}
+		}
+	}
+}
+
+// TestSensor_PaneState_RoundTrip checks that saving the changed panes after
+// every batch of readings and loading them into a fresh sensor restores it
+// exactly, including panes with readings ≤ 0 and out-of-order readings.
+func TestSensor_PaneState_RoundTrip(t *testing.T) {
+	seed := uint64(99)
+	t.Logf("seed %d", seed)
+	rng := rand.New(rand.NewPCG(seed, 0))
+	live := newSensor(t, defaultSpecs...)
+	saved := map[rolling.PaneKey]bool{}
+	tn := t2026
+	for batch := range 200 {
+		for range 50 {
+			tn += rng.Int64N(int64(40 * time.Minute))
+			at := tn - rng.Int64N(int64(3*time.Hour)) // some arrive late
+			v := 1 + rng.NormFloat64()                // some are ≤ 0
+			if err := live.Add(rolling.Reading{UnixNano: at, Value: v}); err != nil && !errors.Is(err, rolling.ErrTooOld) {
+				t.Fatal(err)
+			}
+		}
+		live.Changed(func(k rolling.PaneKey) { saved[k] = true })
+		live.MarkSaved()
+		if batch%50 == 49 {
+			keys := make([]rolling.PaneKey, 0, len(saved))
+			for k := range saved {
+				keys = append(keys, k)
+			}
+			sameSolutions(t, live, copyState(t, live, keys))
+		}
+	}
+	n := 0
+	live.Changed(func(rolling.PaneKey) { n++ })
+	if n != 0 {
+		t.Errorf("Changed after MarkSaved reported %d panes", n)
+	}
+}
+
+func TestSensor_LoadPane_Rejects(t *testing.T) {
+	s := newSensor(t, defaultSpecs...)
+	for i := range 30 {
+		if err := s.Add(rolling.Reading{UnixNano: t2026 + int64(i)*int64(time.Hour), Value: float64(i)}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	key := rolling.PaneKey{Width: time.Hour, Index: t2026/int64(time.Hour) + 29}
+	good := s.AppendPane(nil, key)
+	if len(good) != 128 {
+		t.Fatalf("pane encoding is %d bytes, want 128", len(good))
+	}
+	flip := func(off int, b byte) []byte { d := slices.Clone(good); d[off] ^= b; return d }
+	nan := slices.Clone(good)
+	copy(nan[24:], []byte{0, 0, 0, 0, 0, 0, 0xf8, 0x7f}) // y0 = NaN
+	cases := []struct {
+		name string
+		key  rolling.PaneKey
+		data []byte
+		want error
+	}{
+		{"short", key, good[:100], rolling.ErrBadPane},
+		{"nan", key, nan, rolling.ErrBadPane},
+		{"time outside pane", key, flip(7, 0x40), rolling.ErrBadPane},
+		{"wrong index", rolling.PaneKey{Width: time.Hour, Index: key.Index + 1}, good, rolling.ErrBadPane},
+		{"unknown width", rolling.PaneKey{Width: time.Minute, Index: key.Index}, good, rolling.ErrBadSpec},
+	}
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			d := newSensor(t, defaultSpecs...)
+			if err := d.LoadPane(tc.key, tc.data); !errors.Is(err, tc.want) {
+				t.Errorf("LoadPane = %v, want %v", err, tc.want)
+			}
+		})
+	}
+	// A pane older than the ring once newer ones are loaded is stale.
+	d := newSensor(t, defaultSpecs...)
+	if err := d.LoadPane(key, good); err != nil {
+		t.Fatal(err)
+	}
+	old := newSensor(t, defaultSpecs...)
+	if err := old.Add(rolling.Reading{UnixNano: t2026, Value: 1}); err != nil {
+		t.Fatal(err)
+	}
+	oldKey := rolling.PaneKey{Width: time.Hour, Index: t2026 / int64(time.Hour)}
+	if err := d.LoadPane(oldKey, old.AppendPane(nil, oldKey)); !errors.Is(err, rolling.ErrTooOld) {
+		t.Errorf("LoadPane of a pane 29 h older than the newest = %v, want ErrTooOld", err)
+	}
+}
+
+// FuzzLoadPane checks that stored bytes never panic the decoder and that
+// whatever it accepts re-encodes to the same bytes.
+func FuzzLoadPane(f *testing.F) {
+	s, _ := rolling.NewSensor(defaultSpecs...)
+	for i := range 5 {
+		_ = s.Add(rolling.Reading{UnixNano: t2026 + int64(i)*int64(10*time.Minute), Value: float64(i) - 1})
+	}
+	key := rolling.PaneKey{Width: time.Hour, Index: t2026 / int64(time.Hour)}
+	f.Add(int64(key.Index), s.AppendPane(nil, key))
+	f.Add(int64(0), make([]byte, 128))
+	f.Fuzz(func(t *testing.T, index int64, data []byte) {
+		d, _ := rolling.NewSensor(defaultSpecs...)
+		k := rolling.PaneKey{Width: time.Hour, Index: index}
+		if err := d.LoadPane(k, data); err != nil {
+			return
+		}
+		if got := d.AppendPane(nil, k); !slices.Equal(got, data) {
+			t.Fatalf("re-encoded pane differs:\n%x\n%x", got, data)
+		}
+		sol := d.Solve(0)
+		for _, m := range rolling.Models {
+			f := sol.Fit(m)
+			for _, v := range append(append(f.Coef[:], f.SE[:]...), f.ResidSD, f.R2, f.Cond) {
+				if math.IsNaN(v) {
+					t.Fatalf("%v fit has NaN: %+v", m, *f)
+				}
+			}
+		}
+	})
+}
+
+func TestSensor_Closes(t *testing.T) {
+	s := newSensor(t, defaultSpecs...)
+	if s.Closes(t2026) != 0 {
+		t.Error("an empty sensor has no pane to close")
+	}
+	_ = s.Add(rolling.Reading{UnixNano: t2026 + int64(30*time.Minute), Value: 1})
+	cases := []struct {
+		at   int64
+		want uint64
+	}{
+		{t2026 + int64(59*time.Minute), 0},
+		{t2026 + int64(time.Hour), 0b01},
+		{t2026 + day, 0b11},
+		{t2026 - day, 0},
+	}
+	for _, tc := range cases {
+		if got := s.Closes(tc.at); got != tc.want {
+			t.Errorf("Closes(+%v) = %b, want %b", time.Duration(tc.at-t2026), got, tc.want)
+		}
+	}
+}
