@@ -1,0 +1,91 @@
+// Command driftfit watches sensor readings for slow drift and degradation:
+// it keeps sliding least-squares fits per sensor and reports them.
+//
+// Usage:
+//
+//	driftfit <command> [flags] [args]
+//
+// Run "driftfit help" for the list of commands.
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+	"syscall"
+)
+
+// command is one subcommand of the binary.
+type command struct {
+	name    string
+	summary string
+	run     func(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) error
+}
+
+var commands []command
+
+func init() {
+	commands = []command{
+		{"replay", "fit readings from a CSV file and print the final fits", runReplay},
+	}
+}
+
+// errUsage marks an error whose message is a usage complaint; the exit
+// status is then 2.
+var errUsage = errors.New("usage")
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	code := run(ctx, os.Args[1:], os.Stdin, os.Stdout, os.Stderr)
+	stop()
+	os.Exit(code)
+}
+
+func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	if len(args) == 0 || args[0] == "help" || args[0] == "-h" || args[0] == "--help" {
+		usage(stderr)
+		if len(args) == 0 {
+			return 2
+		}
+		return 0
+	}
+	for _, c := range commands {
+		if c.name != args[0] {
+			continue
+		}
+		err := c.run(ctx, args[1:], stdin, stdout, stderr)
+		switch {
+		case err == nil:
+			return 0
+		case errors.Is(err, flag.ErrHelp):
+			return 0
+		case errors.Is(err, errUsage):
+			fmt.Fprintf(stderr, "driftfit %s: %v\n", c.name, err)
+			return 2
+		default:
+			fmt.Fprintf(stderr, "driftfit %s: %v\n", c.name, err)
+			return 1
+		}
+	}
+	fmt.Fprintf(stderr, "driftfit: unknown command %q\n\n", args[0])
+	usage(stderr)
+	return 2
+}
+
+func usage(w io.Writer) {
+	fmt.Fprintln(w, "driftfit: sliding least-squares drift fits for sensor fleets")
+	fmt.Fprintln(w, "\nUsage: driftfit <command> [flags] [args]\n\nCommands:")
+	for _, c := range commands {
+		fmt.Fprintf(w, "  %-14s %s\n", c.name, c.summary)
+	}
+	fmt.Fprintln(w, "\nRun \"driftfit <command> -h\" for the flags of a command.")
+}
+
+// usageError wraps a message as a usage error.
+func usageError(format string, a ...any) error {
+	return fmt.Errorf("%w: %s", errUsage, fmt.Sprintf(format, a...))
+}

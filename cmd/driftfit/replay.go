@@ -1,0 +1,218 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"slices"
+	"strings"
+
+	"driftfit/ingest"
+	"driftfit/rolling"
+)
+
+// maxShownErrors bounds the bad rows printed one by one; the rest are
+// only counted, so a broken file cannot flood the terminal.
+const maxShownErrors = 20
+
+func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("replay", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	windows := fs.String("window", "1d/1h,30d/1d", "comma-separated window spans, each optionally with its pane width (`SPAN[/PANE],...`)")
+	pane := fs.String("pane", "", "pane width for windows given without one (e.g. 1h)")
+	format := fs.String("format", "table", "output format: table or json (one object per line)")
+	strict := fs.Bool("strict", false, "stop at the first bad row")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "Usage: driftfit replay [flags] FILE.csv|-\n\nFeeds every row of a CSV file (header sensor,time,value; time as RFC 3339 or\nUnix seconds) through the sliding fits in file order and prints the final fits\nof every sensor, window and model, sorted by sensor, window span and model.\n\nFlags:")
+		fs.PrintDefaults()
+	}
+	if err := fs.Parse(args); err != nil {
+		return err
+	}
+	if fs.NArg() != 1 {
+		fs.Usage()
+		return usageError("want one input file (or - for standard input)")
+	}
+	if *format != "table" && *format != "json" {
+		return usageError("--format %q: want table or json", *format)
+	}
+	wins, err := parseWindows(*windows, *pane)
+	if err != nil {
+		return err
+	}
+	in := stdin
+	if name := fs.Arg(0); name != "-" {
+		f, err := os.Open(name)
+		if err != nil {
+			return err
+		}
+		defer f.Close()
+		in = f
+	}
+	rp, err := replay(ctx, in, wins, *strict, stderr)
+	if err != nil {
+		return err
+	}
+	if err := rp.print(stdout, *format); err != nil {
+		return err
+	}
+	return rp.summary(stderr)
+}
+
+// replayer feeds CSV rows to per-sensor fits.
+type replayer struct {
+	wins    []windowArg
+	specs   []rolling.WindowSpec
+	sensors map[string]*rolling.Sensor
+	rows    int
+	bad     int
+	tooOld  int
+	shown   int
+	// lastID and last cache the previous row's sensor: replay files are
+	// often grouped by sensor, and a byte comparison beats a map lookup.
+	lastID []byte
+	last   *rolling.Sensor
+}
+
+func replay(ctx context.Context, in io.Reader, wins []windowArg, strict bool, stderr io.Writer) (*replayer, error) {
+	rp := &replayer{wins: wins, sensors: map[string]*rolling.Sensor{}}
+	for _, w := range wins {
+		rp.specs = append(rp.specs, w.spec)
+	}
+	cr, err := ingest.NewCSVReader(in)
+	if err != nil {
+		return nil, err
+	}
+	for cr.Next() {
+		if rp.rows&0xffff == 0 && ctx.Err() != nil {
+			return nil, ctx.Err()
+		}
+		rp.rows++
+		id, rd, err := cr.Row()
+		if err == nil {
+			err = rp.add(id, rd)
+			if err != nil {
+				err = fmt.Errorf("line %d: sensor %q: %w", cr.Line(), id, err)
+			}
+		}
+		if err == nil {
+			continue
+		}
+		if strict {
+			return nil, err
+		}
+		rp.bad++
+		if errors.Is(err, rolling.ErrTooOld) {
+			rp.tooOld++
+		}
+		if rp.shown < maxShownErrors {
+			rp.shown++
+			fmt.Fprintf(stderr, "driftfit replay: %v\n", err)
+		}
+	}
+	if err := cr.Err(); err != nil {
+		return nil, err
+	}
+	return rp, nil
+}
+
+func (rp *replayer) add(id []byte, rd rolling.Reading) error {
+	s := rp.last
+	if s == nil || !bytes.Equal(id, rp.lastID) {
+		s = rp.sensors[string(id)]
+		if s == nil {
+			var err error
+			if s, err = rolling.NewSensor(rp.specs...); err != nil {
+				return err
+			}
+			rp.sensors[string(id)] = s
+		}
+		rp.last, rp.lastID = s, append(rp.lastID[:0], id...)
+	}
+	return s.Add(rd)
+}
+
+func (rp *replayer) print(w io.Writer, format string) error {
+	ids := make([]string, 0, len(rp.sensors))
+	for id := range rp.sensors {
+		ids = append(ids, id)
+	}
+	slices.Sort(ids)
+	order := make([]int, len(rp.wins))
+	for i := range order {
+		order[i] = i
+	}
+	slices.SortStableFunc(order, func(a, b int) int {
+		wa, wb := rp.wins[a].spec, rp.wins[b].spec
+		if wa.Span != wb.Span {
+			return int(wa.Span - wb.Span)
+		}
+		return int(wa.Pane - wb.Pane)
+	})
+	var table *fitTable
+	if format == "table" {
+		table = newFitTable(w)
+	}
+	for _, id := range ids {
+		s := rp.sensors[id]
+		for _, i := range order {
+			sol := s.Solve(i)
+			for _, m := range rolling.Models {
+				f := sol.Fit(m)
+				if table != nil {
+					table.add(id, rp.wins[i].label, f)
+					continue
+				}
+				if err := writeFitJSON(w, newFitJSON(id, rp.wins[i].label, f)); err != nil {
+					return err
+				}
+			}
+		}
+	}
+	if table != nil {
+		return table.flush()
+	}
+	return nil
+}
+
+// summary reports what was not used, per window, so no reading goes
+// missing without a word.
+func (rp *replayer) summary(w io.Writer) error {
+	if rp.bad == 0 && !rp.anyLate() {
+		return nil
+	}
+	var b strings.Builder
+	fmt.Fprintf(&b, "driftfit replay: %d rows, %d sensors; %d bad rows", rp.rows, len(rp.sensors), rp.bad)
+	if rp.tooOld > 0 {
+		fmt.Fprintf(&b, " (%d older than every window)", rp.tooOld)
+	}
+	if rp.bad > rp.shown {
+		fmt.Fprintf(&b, ", %d not shown", rp.bad-rp.shown)
+	}
+	for i, wa := range rp.wins {
+		var late uint64
+		for _, s := range rp.sensors {
+			late += s.Late(i)
+		}
+		if late > 0 {
+			fmt.Fprintf(&b, "; window %s turned away %d late readings", wa.label, late)
+		}
+	}
+	fmt.Fprintln(w, b.String())
+	return nil
+}
+
+func (rp *replayer) anyLate() bool {
+	for _, s := range rp.sensors {
+		for i := range rp.wins {
+			if s.Late(i) > 0 {
+				return true
+			}
+		}
+	}
+	return false
+}
