@@ -1,0 +1,102 @@
+package configs
+
+import "time"
+
+// Default values, applied by applyDefaults to every field that is zero and
+// was not written in the file.
+const (
+	defaultSubjectPrefix            = "driftfit.in"
+	defaultAlertSubjectPrefix       = "driftfit.alerts"
+	defaultTicketSubject            = "driftfit.tickets"
+	defaultCalibrationSubjectPrefix = "driftfit.calibrations"
+	defaultStreamName               = "DRIFTFIT"
+	defaultMaxPayloadBytes          = 1 << 20 // NATS server default max_payload, from memory
+	maxMaxPayloadBytes              = 64 << 20
+	defaultFutureSkew               = 5 * time.Minute
+	defaultStoreDir                 = "./data"
+	defaultCommitInterval           = 200 * time.Millisecond
+	defaultCommitReadings           = 10000
+	defaultHistoryRetention         = 400 * Day
+	defaultHTTPAddr                 = "127.0.0.1:9464"
+	defaultMinReadings              = 30
+	defaultMinCoverage              = 0.5
+	defaultDebounce                 = 3
+	defaultClearFraction            = 0.8
+	defaultCooldown                 = 24 * time.Hour
+)
+
+func defaultWindows() []Window {
+	return []Window{{Span: Day, Pane: time.Hour}, {Span: 30 * Day, Pane: Day}}
+}
+
+// written reports whether the field at path was present in the file.
+func (c *Config) written(path string) bool {
+	_, ok := c.pos[path]
+	return ok
+}
+
+// applyDefaults fills every field that is zero and was not written in the
+// file with its documented default. It is the only place defaults are set.
+func (c *Config) applyDefaults() {
+	str := func(dst *string, path, def string) {
+		if *dst == "" && !c.written(path) {
+			*dst = def
+		}
+	}
+	dur := func(dst *time.Duration, path string, def time.Duration) {
+		if *dst == 0 && !c.written(path) {
+			*dst = def
+		}
+	}
+	num := func(dst *int, path string, def int) {
+		if *dst == 0 && !c.written(path) {
+			*dst = def
+		}
+	}
+	flt := func(dst *float64, path string, def float64) {
+		if *dst == 0 && !c.written(path) {
+			*dst = def
+		}
+	}
+
+	b := &c.Bus
+	str(&b.SubjectPrefix, "bus.subject_prefix", defaultSubjectPrefix)
+	str(&b.RejectedSubject, "bus.rejected_subject", b.SubjectPrefix+".rejected")
+	str(&b.AlertSubjectPrefix, "bus.alert_subject_prefix", defaultAlertSubjectPrefix)
+	str(&b.TicketSubject, "bus.ticket_subject", defaultTicketSubject)
+	str(&b.CalibrationSubjectPrefix, "bus.calibration_subject_prefix", defaultCalibrationSubjectPrefix)
+	if b.Mode == ModeUnknown && !c.written("bus.mode") {
+		b.Mode = ModeStream
+	}
+	str(&b.StreamName, "bus.stream_name", defaultStreamName)
+	num(&b.MaxPayloadBytes, "bus.max_payload_bytes", defaultMaxPayloadBytes)
+	dur(&b.FutureSkew, "bus.future_skew", defaultFutureSkew)
+
+	s := &c.Store
+	str(&s.Dir, "store.dir", defaultStoreDir)
+	dur(&s.CommitInterval, "store.commit_interval", defaultCommitInterval)
+	num(&s.CommitReadings, "store.commit_readings", defaultCommitReadings)
+	dur(&s.HistoryRetention, "store.history_retention", defaultHistoryRetention)
+
+	str(&c.HTTP.Addr, "http.addr", defaultHTTPAddr)
+
+	if len(c.Defaults.Windows) == 0 && !c.written("defaults.windows") {
+		c.Defaults.Windows = defaultWindows()
+	}
+
+	for i := range c.Classes {
+		cl := &c.Classes[i]
+		p := classPath(i)
+		if len(cl.Windows) == 0 && !c.written(p+".windows") {
+			cl.Windows = append([]Window(nil), c.Defaults.Windows...)
+		}
+		if cl.TrendModel == TrendUnknown && !c.written(p+".trend_model") {
+			cl.TrendModel = TrendLine
+		}
+		num(&cl.MinReadings, p+".min_readings", defaultMinReadings)
+		flt(&cl.MinCoverage, p+".min_coverage", defaultMinCoverage)
+		num(&cl.Debounce, p+".debounce", defaultDebounce)
+		flt(&cl.ClearFraction, p+".clear_fraction", defaultClearFraction)
+		dur(&cl.Cooldown, p+".cooldown", defaultCooldown)
+	}
+}

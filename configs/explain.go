@@ -1,0 +1,224 @@
+package configs
+
+import (
+	"fmt"
+	"io"
+	"math"
+	"strconv"
+	"strings"
+	"time"
+)
+
+// Explain writes a readable summary of c for people checking a
+// configuration: bus, store, windows, every class with its limits converted
+// to canonical units (class unit per day, per day²), sensors with their own
+// settings, and peer groups. Credentials are never printed: passwords in
+// server URLs are masked and only the names of environment variables and
+// credential files appear. Write errors are ignored (the caller's writer
+// decides).
+func (c *Config) Explain(w io.Writer) {
+	p := func(format string, args ...any) { fmt.Fprintf(w, format, args...) }
+	name := c.file
+	if name == "" {
+		name = "(in memory)"
+	}
+	p("configuration %s\n\n", name)
+
+	b := &c.Bus
+	p("bus\n")
+	if len(b.Servers) == 0 {
+		p("  servers:         embedded NATS server with JetStream under %s\n", c.Store.Dir)
+	} else {
+		red := make([]string, len(b.Servers))
+		for i, s := range b.Servers {
+			red[i] = redactURL(s)
+		}
+		p("  servers:         %s\n", strings.Join(red, ", "))
+	}
+	p("  readings:        %s.<sensor id> (mode %s", b.SubjectPrefix, b.Mode)
+	if b.Mode == ModeStream {
+		p(", stream %s", b.StreamName)
+	}
+	p(")\n")
+	p("  rejected:        %s\n", b.RejectedSubject)
+	p("  alerts:          %s.<sensor id>\n", b.AlertSubjectPrefix)
+	p("  tickets:         %s\n", b.TicketSubject)
+	p("  calibrations:    %s.<sensor id>\n", b.CalibrationSubjectPrefix)
+	p("  max payload:     %d bytes; future skew %s\n", b.MaxPayloadBytes, FormatDuration(b.FutureSkew))
+	var auth []string
+	if b.User != "" {
+		auth = append(auth, "user "+b.User)
+	}
+	if b.PasswordEnv != "" {
+		auth = append(auth, "password from $"+b.PasswordEnv)
+	}
+	if b.TokenEnv != "" {
+		auth = append(auth, "token from $"+b.TokenEnv)
+	}
+	if b.CredsFile != "" {
+		auth = append(auth, "credentials file "+b.CredsFile)
+	}
+	if len(auth) == 0 {
+		auth = append(auth, "none")
+	}
+	p("  auth:            %s\n", strings.Join(auth, ", "))
+	if b.TLS != (TLS{}) {
+		p("  tls:             ca %s, cert %s, key %s\n", orNone(b.TLS.CAFile), orNone(b.TLS.CertFile), orNone(b.TLS.KeyFile))
+	}
+
+	s := &c.Store
+	p("\nstore\n")
+	p("  dir:             %s\n", s.Dir)
+	p("  commit:          every %s or %d readings\n", FormatDuration(s.CommitInterval), s.CommitReadings)
+	if s.HistoryRetention == 0 {
+		p("  fit history:     kept forever\n")
+	} else {
+		p("  fit history:     kept %s\n", FormatDuration(s.HistoryRetention))
+	}
+	p("\nmetrics on http://%s/metrics\n", c.HTTP.Addr)
+	p("\ndefault windows: %s\n", windowList(c.Defaults.Windows))
+
+	p("\nclasses (%d)\n", len(c.Classes))
+	for i := range c.Classes {
+		explainClass(w, &c.Classes[i], "  ")
+	}
+
+	if len(c.Sensors) > 0 {
+		p("\nsensors with their own settings (%d)\n", len(c.Sensors))
+		for i := range c.Sensors {
+			sn := &c.Sensors[i]
+			cl, err := c.ClassFor(sn.ID)
+			if err != nil {
+				p("  %s: %v\n", sn.ID, err)
+				continue
+			}
+			var parts []string
+			how := "by pattern"
+			if sn.Class != "" {
+				how = "pinned"
+			}
+			parts = append(parts, fmt.Sprintf("class %s (%s)", cl.Name, how))
+			if cl.HasAsLeft {
+				parts = append(parts, fmt.Sprintf("as-left %s %s", fmtNum(cl.AsLeft), cl.Unit))
+			}
+			if cl.Group != "" {
+				parts = append(parts, "group "+cl.Group)
+			}
+			var own []string
+			for _, f := range overridable {
+				if c.written(sensorPath(sn.ID) + "." + f) {
+					own = append(own, f)
+				}
+			}
+			if len(own) > 0 {
+				parts = append(parts, "overrides "+strings.Join(own, ", "))
+			}
+			p("  %s: %s\n", sn.ID, strings.Join(parts, "; "))
+			if len(own) > 0 {
+				explainLimits(w, cl, "      ")
+				p("      tolerance %s = %s %s\n", cl.Tolerance.Text, fmtNum(cl.Tolerance.Abs), cl.Unit)
+			}
+		}
+	}
+
+	p("\npeer groups (%d)\n", len(c.Groups))
+	for _, g := range c.Groups {
+		var joined []string
+		for _, sn := range c.Sensors {
+			if sn.Group == g.Name {
+				joined = append(joined, sn.ID)
+			}
+		}
+		p("  %s: %s", g.Name, strings.Join(g.Members, ", "))
+		if len(joined) > 0 {
+			if len(g.Members) > 0 {
+				p(", ")
+			}
+			p("%s", strings.Join(joined, ", "))
+		}
+		p("\n")
+	}
+}
+
+func orNone(s string) string {
+	if s == "" {
+		return "none"
+	}
+	return s
+}
+
+func windowList(ws []Window) string {
+	parts := make([]string, len(ws))
+	for i, w := range ws {
+		parts[i] = fmt.Sprintf("%s of %s panes", FormatDuration(w.Span), FormatDuration(w.Pane))
+	}
+	return strings.Join(parts, ", ")
+}
+
+// fmtNum prints a number with six significant digits, enough to compare
+// with a hand calculation, without exponent for ordinary magnitudes.
+func fmtNum(f float64) string {
+	return strconv.FormatFloat(f, 'g', 6, 64)
+}
+
+func explainClass(w io.Writer, cl *Class, in string) {
+	p := func(format string, args ...any) { fmt.Fprintf(w, format, args...) }
+	p("%s%s\n", in, cl.Name)
+	p("%s  match:       %s\n", in, strings.Join(cl.Match, ", "))
+	p("%s  unit, span:  %s, %s..%s %s (width %s)\n", in, cl.Unit, fmtNum(cl.Span.Lower), fmtNum(cl.Span.Upper), cl.Unit, fmtNum(cl.Span.Width()))
+	p("%s  tolerance:   %s = ±%s %s around the as-left value\n", in, cl.Tolerance.Text, fmtNum(cl.Tolerance.Abs), cl.Unit)
+	p("%s  windows:     %s\n", in, windowList(cl.Windows))
+	p("%s  evidence:    trend %s, >= %d readings, >= %s of panes with data, %d pane closes in a row\n",
+		in, cl.TrendModel, cl.MinReadings, fmtNum(cl.MinCoverage), cl.Debounce)
+	cool := "none"
+	if cl.Cooldown > 0 {
+		cool = FormatDuration(cl.Cooldown)
+	}
+	p("%s  clears:      below %s × limit; cooldown %s\n", in, fmtNum(cl.ClearFraction), cool)
+	explainLimits(w, cl, in+"  ")
+}
+
+func explainLimits(w io.Writer, cl *Class, in string) {
+	l := &cl.Limits
+	if !l.Slope.On() && !l.Curvature.On() && !l.DoublingTime.On() && !l.LeadTime.On() {
+		fmt.Fprintf(w, "%slimits:      none\n", in)
+		return
+	}
+	rate := func(name string, rl RateLimit, unit string) {
+		if !rl.On() {
+			return
+		}
+		var parts []string
+		for _, lv := range []struct {
+			n string
+			t Threshold
+		}{{"warning", rl.Warning}, {"critical", rl.Critical}} {
+			if lv.t.Text != "" {
+				parts = append(parts, fmt.Sprintf("%s %s = %s %s", lv.n, lv.t.Text, fmtNum(lv.t.Value), unit))
+			}
+		}
+		fmt.Fprintf(w, "%s%-12s %s\n", in, name+":", strings.Join(parts, "; "))
+	}
+	rate("slope", l.Slope, cl.Unit+"/day")
+	rate("curvature", l.Curvature, cl.Unit+"/day²")
+	dur := func(name string, dl DurationLimit, extra func(time.Duration) string) {
+		if !dl.On() {
+			return
+		}
+		var parts []string
+		for _, lv := range []struct {
+			n string
+			d time.Duration
+		}{{"warning", dl.Warning}, {"critical", dl.Critical}} {
+			if lv.d != 0 {
+				parts = append(parts, fmt.Sprintf("%s %s%s", lv.n, FormatDuration(lv.d), extra(lv.d)))
+			}
+		}
+		fmt.Fprintf(w, "%s%-12s %s\n", in, name+":", strings.Join(parts, "; "))
+	}
+	// Doubling time T corresponds to the exp fit's growth rate ln 2 / T.
+	dur("doubling", l.DoublingTime, func(d time.Duration) string {
+		return fmt.Sprintf(" (growth rate %s /day)", fmtNum(math.Ln2/(float64(d)/float64(Day))))
+	})
+	dur("lead time", l.LeadTime, func(time.Duration) string { return "" })
+}
