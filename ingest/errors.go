@@ -19,3 +19,46 @@ var (
 	// it cannot be held exactly.
 	ErrTimePrecision = errors.New("ingest: time finer than one nanosecond")
 )
+
+// Errors of the CSV reader. Header problems come back from NewCSVReader
+// wrapped with the column name; row problems arrive as the Err of a
+// *RowError.
+var (
+	// ErrNoHeader is returned by NewCSVReader when the input holds no
+	// record at all.
+	ErrNoHeader = errors.New("ingest: csv input has no header row")
+
+	// ErrMissingColumn is returned by NewCSVReader when the header lacks
+	// one of the columns sensor, time and value.
+	ErrMissingColumn = errors.New("ingest: csv header lacks a required column")
+
+	// ErrDuplicateColumn is returned by NewCSVReader when a required
+	// column appears twice, which would make the row ambiguous.
+	ErrDuplicateColumn = errors.New("ingest: csv header repeats a column")
+
+	// ErrFieldCount is the cause of a row whose number of fields differs
+	// from the header's.
+	ErrFieldCount = errors.New("ingest: csv row has the wrong number of fields")
+
+	// ErrBareQuote is the cause of a row with a '"' inside an unquoted
+	// field (RFC 4180 section 2, rule 5).
+	ErrBareQuote = errors.New(`ingest: csv bare " in unquoted field`)
+
+	// ErrQuote is the cause of a row with a quoted field that is not
+	// closed, or is followed by something other than a comma or line end.
+	ErrQuote = errors.New(`ingest: csv extraneous or missing " in quoted field`)
+
+	// ErrRowTooLong is the cause of a row longer than the reader's limit.
+	ErrRowTooLong = errors.New("ingest: csv row too long")
+
+	// ErrEmptyField is the cause of a row whose sensor, time or value is
+	// empty.
+	ErrEmptyField = errors.New("ingest: empty field")
+
+	// ErrNumberSyntax is the cause of a value that is not a number.
+	ErrNumberSyntax = errors.New("ingest: malformed number")
+
+	// ErrNonFinite is the cause of a value that is NaN or infinite, or
+	// too large for a float64.
+	ErrNonFinite = errors.New("ingest: non-finite number")
+)

@@ -200,6 +200,9 @@ var pow10 = [...]int64{1, 10, 100, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10,
 // integer k; it is a whole number of nanoseconds exactly when k >= 0 (the
 // last kept digit is non-zero, so mant is never divisible by 10).
 func parseUnixSeconds(b []byte) (int64, error) {
+	if ns, ok := parseUnixSecondsFast(b); ok {
+		return ns, nil
+	}
 	i := 0
 	neg := false
 	if i < len(b) && (b[i] == '+' || b[i] == '-') {
@@ -297,4 +300,47 @@ func parseUnixSeconds(b []byte) (int64, error) {
 		return int64(-ns), nil // two's complement: also right for ns == 2^63
 	}
 	return int64(ns), nil
+}
+
+// parseUnixSecondsFast handles the common shape [-]digits[.digits] with at
+// most 18 digits in all, which fit a uint64 as they stand. It reports false
+// for anything else, including every error, and the general parser decides.
+func parseUnixSecondsFast(b []byte) (int64, bool) {
+	i := 0
+	neg := len(b) > 0 && b[0] == '-'
+	if neg {
+		i++
+	}
+	var mant uint64
+	start := i
+	for ; i < len(b) && b[i] >= '0' && b[i] <= '9'; i++ {
+		mant = mant*10 + uint64(b[i]-'0')
+	}
+	nInt := i - start
+	nFrac := 0
+	if i < len(b) && b[i] == '.' {
+		i++
+		fs := i
+		for ; i < len(b) && b[i] >= '0' && b[i] <= '9'; i++ {
+			mant = mant*10 + uint64(b[i]-'0')
+		}
+		nFrac = i - fs
+		if nFrac == 0 || nFrac > 9 {
+			return 0, false
+		}
+	}
+	if i != len(b) || nInt == 0 || nInt+nFrac > 18 {
+		return 0, false
+	}
+	// mant < 10^18 and nFrac <= 9, so mant * 10^(9-nFrac) < 2^63 only
+	// when the integer part is small enough; check before multiplying.
+	p := uint64(pow10[9-nFrac])
+	if mant > math.MaxInt64/p {
+		return 0, false
+	}
+	ns := int64(mant * p)
+	if neg {
+		ns = -ns
+	}
+	return ns, true
 }
