@@ -1,0 +1,254 @@
+package store
+
+import (
+	"bytes"
+	"encoding/binary"
+	"fmt"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+
+	"driftfit/rolling"
+)
+
+type opKind uint8
+
+const (
+	opPane    opKind = iota // put key/val into panes
+	opSpecs                 // put key/val into sensors unless equal
+	opHorizon               // delete panes under prefix key with index < val
+	opDelete                // delete pane key
+	opRecord                // put key/val into history, key2 into the time index
+)
+
+// span locates bytes in the batch's buffer. Offsets, not slices, because
+// the buffer may move while the batch grows.
+type span struct{ off, n int }
+
+type op struct {
+	kind           opKind
+	key, val, key2 span
+}
+
+// Batch collects the writes of one commit: the changed panes, window
+// specs and pane horizons of the sensors passed to Sensor, the fit
+// records passed to Record, and the stream position. DB.Commit writes it
+// in one bbolt transaction, so the position on disk always matches the
+// state on disk.
+//
+// A Batch copies everything it needs when it is added, so the sensors
+// may change again at once. It reuses its memory after a commit: keep one
+// Batch and commit it repeatedly. A Batch is not safe for concurrent
+// use. The zero value is an empty batch.
+type Batch struct {
+	buf    []byte
+	ops    []op
+	pos    uint64
+	hasPos bool
+}
+
+// Sensor snapshots the panes of s changed since the last snapshot, the
+// window specs of s and the horizon of each pane width (stored panes
+// older than every window get deleted on commit), then calls
+// s.MarkSaved.
+//
+// The snapshot, not the sensor, is what a commit writes, and marking the
+// sensor saved at the snapshot is what keeps readings from being lost: a
+// reading that arrives between the snapshot and the commit marks its
+// pane changed again for the next batch, whereas MarkSaved after the
+// commit would clear that mark too. The price: if Commit fails, the
+// changes live only in this Batch. Retry Commit with the same Batch, or
+// stop and restore from the file (and replay from its position); never
+// Reset a failed batch and carry on.
+func (b *Batch) Sensor(id string, s *rolling.Sensor) error {
+	if err := checkID(id); err != nil {
+		return err
+	}
+	o := op{kind: opSpecs, key: b.appendKey(func(dst []byte) []byte { return append(dst, id...) })}
+	o.val = b.appendKey(func(dst []byte) []byte { return appendSpecs(dst, s) })
+	b.ops = append(b.ops, o)
+	s.Changed(func(k rolling.PaneKey) {
+		key := b.appendKey(func(dst []byte) []byte { return appendPaneKey(dst, id, k) })
+		start := len(b.buf)
+		b.buf = s.AppendPane(b.buf, k)
+		b.ops = append(b.ops, op{kind: opPane, key: key, val: span{start, len(b.buf) - start}})
+	})
+	s.Horizon(func(width time.Duration, oldest int64) {
+		b.addHorizon(id, width, oldest)
+	})
+	s.MarkSaved()
+	return nil
+}
+
+func (b *Batch) addHorizon(id string, width time.Duration, oldest int64) {
+	key := b.appendKey(func(dst []byte) []byte { return appendPanePrefix(dst, id, width) })
+	val := b.appendKey(func(dst []byte) []byte { return appendInt(dst, oldest) })
+	b.ops = append(b.ops, op{kind: opHorizon, key: key, val: val})
+}
+
+func (b *Batch) addDelete(key []byte) {
+	b.ops = append(b.ops, op{kind: opDelete, key: b.appendKey(func(dst []byte) []byte { return append(dst, key...) })})
+}
+
+// appendKey appends what fn appends to the buffer and returns its span.
+func (b *Batch) appendKey(fn func([]byte) []byte) span {
+	start := len(b.buf)
+	b.buf = fn(b.buf)
+	return span{start, len(b.buf) - start}
+}
+
+// Record adds the fit history record of sensor id for the window
+// sol.Window at time sol.Last, as Sensor.Solve returned it just before
+// the window's newest pane closed. Writing the same record twice (a
+// replay after a crash) overwrites it: the key is sensor, window and
+// time. Record returns ErrSensorID or ErrRecord for what cannot be
+// stored; the batch is then unchanged.
+func (b *Batch) Record(id string, sol *rolling.Solution) error {
+	if err := checkID(id); err != nil {
+		return err
+	}
+	if sol.Window.Span <= 0 || sol.Window.Pane <= 0 {
+		return fmt.Errorf("%w: sensor %s: window %v/%v is not positive", ErrRecord, id, sol.Window.Span, sol.Window.Pane)
+	}
+	if sol.Last == (time.Time{}) {
+		return fmt.Errorf("%w: sensor %s window %v: no time (Last is zero)", ErrRecord, id, sol.Window.Span)
+	}
+	mark, nops := len(b.buf), len(b.ops)
+	t := sol.Last.UnixNano()
+	o := op{kind: opRecord}
+	o.key = b.appendKey(func(dst []byte) []byte {
+		return appendInt(appendWindowPrefix(dst, id, sol.Window), t)
+	})
+	var err error
+	o.val = b.appendKey(func(dst []byte) []byte {
+		dst, err = appendRecord(dst, sol)
+		return dst
+	})
+	if err != nil {
+		b.buf, b.ops = b.buf[:mark], b.ops[:nops]
+		return fmt.Errorf("store: record for %s window %v: %w", id, sol.Window.Span, err)
+	}
+	o.key2 = b.appendKey(func(dst []byte) []byte {
+		return appendWindowPrefix(appendInt(dst, t), id, sol.Window)
+	})
+	b.ops = append(b.ops, o)
+	return nil
+}
+
+// SetPosition sets the stream position (the sequence of the last message
+// whose readings the batch holds) to write with the batch. Without it,
+// a commit leaves the stored position unchanged.
+func (b *Batch) SetPosition(seq uint64) { b.pos, b.hasPos = seq, true }
+
+// Len returns the count of writes queued: panes, window specs, horizons
+// and records (the position not counted).
+func (b *Batch) Len() int { return len(b.ops) }
+
+// Reset empties the batch, keeping its memory.
+func (b *Batch) Reset() {
+	b.buf, b.ops = b.buf[:0], b.ops[:0]
+	b.pos, b.hasPos = 0, false
+}
+
+func (b *Batch) bytes(s span) []byte { return b.buf[s.off : s.off+s.n : s.off+s.n] }
+
+// CommitStats describes one commit.
+type CommitStats struct {
+	// Bytes is the sum of the key and value sizes put: the payload
+	// written. bbolt writes whole 4 KiB pages, so the file sees more.
+	Bytes int
+	// Puts and Deletes count the key/value pairs put and deleted.
+	Puts, Deletes int
+}
+
+// Commit writes the batch in one bbolt transaction (with fsync unless
+// Options.NoSync) and resets it. On error nothing was written and the
+// batch is left intact for a retry (see Batch.Sensor). Committing an
+// empty batch writes nothing and returns at once.
+//
+// The values put stay in the batch's buffer until the transaction ends,
+// as bbolt requires; that is why a batch is not reused until then.
+func (db *DB) Commit(b *Batch) (CommitStats, error) {
+	if len(b.ops) == 0 && !b.hasPos {
+		return CommitStats{}, nil
+	}
+	var st CommitStats
+	err := db.bolt.Update(func(tx *bolt.Tx) error {
+		st = CommitStats{}
+		return b.apply(tx, &st)
+	})
+	if err != nil {
+		return CommitStats{}, fmt.Errorf("store: commit %s: %w", db.path, err)
+	}
+	b.Reset()
+	return st, nil
+}
+
+func (b *Batch) apply(tx *bolt.Tx, st *CommitStats) error {
+	sensors, panes := tx.Bucket(bucketSensors), tx.Bucket(bucketPanes)
+	hist, htime := tx.Bucket(bucketHistory), tx.Bucket(bucketHistTime)
+	if sensors == nil || panes == nil || hist == nil || htime == nil {
+		return fmt.Errorf("%w: buckets missing", ErrCorrupt)
+	}
+	var cur *bolt.Cursor
+	put := func(bk *bolt.Bucket, k, v []byte) error {
+		st.Puts++
+		st.Bytes += len(k) + len(v)
+		return bk.Put(k, v)
+	}
+	for i := range b.ops {
+		o := &b.ops[i]
+		key, val := b.bytes(o.key), b.bytes(o.val)
+		var err error
+		switch o.kind {
+		case opPane:
+			err = put(panes, key, val)
+		case opSpecs:
+			if !bytes.Equal(sensors.Get(key), val) {
+				err = put(sensors, key, val)
+			}
+		case opHorizon:
+			if cur == nil {
+				cur = panes.Cursor()
+			}
+			var n int
+			n, err = deleteBelow(cur, key, readInt(val))
+			st.Deletes += n
+		case opDelete:
+			st.Deletes++
+			err = panes.Delete(key)
+		case opRecord:
+			if err = put(hist, key, val); err == nil {
+				err = put(htime, b.bytes(o.key2), nil)
+			}
+		}
+		if err != nil {
+			return err
+		}
+	}
+	if b.hasPos {
+		var v [8]byte
+		binary.BigEndian.PutUint64(v[:], b.pos)
+		if err := put(tx.Bucket(bucketStream), keyPosition, v[:]); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// deleteBelow deletes the pane keys prefix+index with index < oldest.
+// It seeks afresh after each delete rather than stepping the cursor on,
+// which is correct whatever the cursor does after a delete.
+func deleteBelow(c *bolt.Cursor, prefix []byte, oldest int64) (int, error) {
+	n := 0
+	for {
+		k, _ := c.Seek(prefix)
+		if len(k) != len(prefix)+8 || !bytes.HasPrefix(k, prefix) || readInt(k[len(prefix):]) >= oldest {
+			return n, nil
+		}
+		if err := c.Delete(); err != nil {
+			return n, err
+		}
+		n++
+	}
+}

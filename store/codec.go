@@ -1,0 +1,370 @@
+package store
+
+import (
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"driftfit/rolling"
+)
+
+// Every stored value starts with a format byte, so an encoding can change
+// without a schema bump: a reader refuses a format it does not know.
+const (
+	specsFormat  = 1
+	recordFormat = 1
+)
+
+// maxWindows bounds the window count of a specs value, so a corrupt
+// count cannot make the decoder allocate without limit.
+const maxWindows = 64
+
+// appendSpecs encodes a sensor's window specs: format byte, uvarint
+// count, then span and pane in ns as uvarints.
+func appendSpecs(dst []byte, s *rolling.Sensor) []byte {
+	dst = append(dst, specsFormat)
+	dst = binary.AppendUvarint(dst, uint64(s.Windows()))
+	for i := range s.Windows() {
+		ws := s.Spec(i)
+		dst = binary.AppendUvarint(dst, uint64(ws.Span))
+		dst = binary.AppendUvarint(dst, uint64(ws.Pane))
+	}
+	return dst
+}
+
+// decodeSpecs decodes a value written by appendSpecs.
+func decodeSpecs(b []byte) ([]rolling.WindowSpec, error) {
+	d := decoder{b: b, what: "window specs"}
+	if f := d.byte(); d.err == nil && f != specsFormat {
+		return nil, d.fail("format %d", f)
+	}
+	n := d.uvarint()
+	if d.err == nil && (n == 0 || n > maxWindows) {
+		return nil, d.fail("window count %d", n)
+	}
+	var specs []rolling.WindowSpec
+	for i := uint64(0); i < n && d.err == nil; i++ {
+		span, pane := d.uvarint(), d.uvarint()
+		if d.err == nil && (span == 0 || pane == 0 || span > math.MaxInt64 || pane > math.MaxInt64) {
+			return nil, d.fail("window %d: span %d, pane %d", i, span, pane)
+		}
+		specs = append(specs, rolling.WindowSpec{Span: time.Duration(span), Pane: time.Duration(pane)})
+	}
+	if err := d.end(); err != nil {
+		return nil, err
+	}
+	return specs, nil
+}
+
+// Fit error codes. The values are stored: never renumber them.
+var errCodes = [...]error{
+	0: nil,
+	1: rolling.ErrNotEnoughData,
+	2: rolling.ErrNoTimeSpread,
+	3: rolling.ErrSingular,
+	4: rolling.ErrConstant,
+}
+
+func errCode(err error) (byte, bool) {
+	for c, e := range errCodes {
+		if err == e {
+			return byte(c), true
+		}
+	}
+	// A wrapped sentinel is stored as the sentinel: its wrapping text is
+	// not kept.
+	for c, e := range errCodes {
+		if e != nil && errors.Is(err, e) {
+			return byte(c), true
+		}
+	}
+	return 0, false
+}
+
+// Time tags, two bits each in a flags byte.
+const (
+	tagZero     = 0 // time.Time{}
+	tagSame     = 1 // equal (==) to the solution's time of the same name
+	tagExplicit = 2 // Unix ns as a zigzag varint follows
+)
+
+// fitFloats is the count of float64 fields of a rolling.Fit, in the
+// order of (*fitFields).each: Coef[3], SE[3], CI[3][2], Cov[3][3],
+// ResidSD, R2, TCrit, Cond.
+const fitFloats = 3 + 3 + 6 + 9 + 4
+
+func fitFloatPtrs(f *rolling.Fit) [fitFloats]*float64 {
+	return [fitFloats]*float64{
+		&f.Coef[0], &f.Coef[1], &f.Coef[2],
+		&f.SE[0], &f.SE[1], &f.SE[2],
+		&f.CI[0][0], &f.CI[0][1], &f.CI[1][0], &f.CI[1][1], &f.CI[2][0], &f.CI[2][1],
+		&f.Cov[0][0], &f.Cov[0][1], &f.Cov[0][2],
+		&f.Cov[1][0], &f.Cov[1][1], &f.Cov[1][2],
+		&f.Cov[2][0], &f.Cov[2][1], &f.Cov[2][2],
+		&f.ResidSD, &f.R2, &f.TCrit, &f.Cond,
+	}
+}
+
+// appendRecord encodes a solution (everything but Window, which the key
+// holds) in record format 1:
+//
+//	format byte
+//	flags byte: First tag (bits 0–1), Last tag (bits 2–3), tagZero or tagExplicit
+//	varint Panes, Filled, N; [varint First ns]; [varint Last ns]
+//	three fits (Line, Parabola, Exp slots), each:
+//	  model byte, error code byte,
+//	  flags byte: PosDef (bit 0), First tag (bits 1–2), Last tag (bits 3–4)
+//	  varint N, Excluded, DF; [varint First ns]; [varint Last ns]
+//	  uint32 LE bitmap of the 25 float fields whose bits are not zero,
+//	  then those floats as IEEE 754 bits, uint64 LE.
+//
+// Only non-zero floats are written: a Line fit leaves its third
+// coefficient and covariance row zero and a failed fit nearly all, so a
+// typical record is well under half the fixed-size encoding. Floats are
+// kept as raw bits (including −0 and any NaN) so a record reads back
+// bit for bit.
+func appendRecord(dst []byte, sol *rolling.Solution) ([]byte, error) {
+	sf, err := timeTag(sol.First, time.Time{}, false, "First")
+	if err != nil {
+		return dst, err
+	}
+	sl, err := timeTag(sol.Last, time.Time{}, false, "Last")
+	if err != nil {
+		return dst, err
+	}
+	dst = append(dst, recordFormat, sf|sl<<2)
+	dst = binary.AppendVarint(dst, int64(sol.Panes))
+	dst = binary.AppendVarint(dst, int64(sol.Filled))
+	dst = binary.AppendVarint(dst, int64(sol.N))
+	dst = appendTime(dst, sf, sol.First)
+	dst = appendTime(dst, sl, sol.Last)
+	for _, f := range [3]*rolling.Fit{&sol.Line, &sol.Parabola, &sol.Exp} {
+		code, ok := errCode(f.Err)
+		if !ok {
+			return dst, fmt.Errorf("%w: %v fit error %q is not a rolling fit error", ErrRecord, f.Model, f.Err)
+		}
+		ff, err := timeTag(f.First, sol.First, true, "First")
+		if err != nil {
+			return dst, err
+		}
+		fl, err := timeTag(f.Last, sol.Last, true, "Last")
+		if err != nil {
+			return dst, err
+		}
+		flags := ff<<1 | fl<<3
+		if f.PosDef {
+			flags |= 1
+		}
+		dst = append(dst, byte(f.Model), code, flags)
+		dst = binary.AppendVarint(dst, int64(f.N))
+		dst = binary.AppendVarint(dst, int64(f.Excluded))
+		dst = binary.AppendVarint(dst, int64(f.DF))
+		dst = appendTime(dst, ff, f.First)
+		dst = appendTime(dst, fl, f.Last)
+		ptrs := fitFloatPtrs(f)
+		var mask uint32
+		for i, p := range ptrs {
+			if math.Float64bits(*p) != 0 {
+				mask |= 1 << i
+			}
+		}
+		dst = binary.LittleEndian.AppendUint32(dst, mask)
+		for _, p := range ptrs {
+			if bits := math.Float64bits(*p); bits != 0 {
+				dst = binary.LittleEndian.AppendUint64(dst, bits)
+			}
+		}
+	}
+	return dst, nil
+}
+
+// timeTag picks how t is stored. Times are kept as Unix ns and come back
+// from time.Unix(0, ns), as rolling makes them; a time that does not
+// survive that (outside 1678–2262) is refused rather than altered.
+func timeTag(t, same time.Time, sameOK bool, name string) (byte, error) {
+	switch {
+	case t == time.Time{}:
+		return tagZero, nil
+	case sameOK && t == same:
+		return tagSame, nil
+	case !time.Unix(0, t.UnixNano()).Equal(t):
+		return 0, fmt.Errorf("%w: %s %v is outside the range of int64 nanoseconds", ErrRecord, name, t)
+	}
+	return tagExplicit, nil
+}
+
+func appendTime(dst []byte, tag byte, t time.Time) []byte {
+	if tag != tagExplicit {
+		return dst
+	}
+	return binary.AppendVarint(dst, t.UnixNano())
+}
+
+// decodeRecord decodes a value written by appendRecord into sol, leaving
+// sol.Window as it is.
+func decodeRecord(b []byte, sol *rolling.Solution) error {
+	d := decoder{b: b, what: "fit record"}
+	if f := d.byte(); d.err == nil && f != recordFormat {
+		return d.fail("format %d", f)
+	}
+	flags := d.byte()
+	if d.err == nil && flags>>4 != 0 {
+		return d.fail("solution flags %#x", flags)
+	}
+	sol.Panes = d.int()
+	sol.Filled = d.int()
+	sol.N = d.int()
+	sol.First = d.time(flags&3, time.Time{}, false)
+	sol.Last = d.time(flags>>2&3, time.Time{}, false)
+	for slot, f := range [3]*rolling.Fit{&sol.Line, &sol.Parabola, &sol.Exp} {
+		*f = rolling.Fit{}
+		f.Model = rolling.Model(d.byte())
+		code := d.byte()
+		flags := d.byte()
+		if d.err != nil {
+			break
+		}
+		if int(code) >= len(errCodes) {
+			return d.fail("fit %d: error code %d", slot, code)
+		}
+		if flags>>5 != 0 {
+			return d.fail("fit %d: flags %#x", slot, flags)
+		}
+		f.Err = errCodes[code]
+		f.PosDef = flags&1 != 0
+		f.N = d.int()
+		f.Excluded = d.int()
+		f.DF = d.int()
+		f.First = d.time(flags>>1&3, sol.First, true)
+		f.Last = d.time(flags>>3&3, sol.Last, true)
+		mask := d.uint32()
+		if d.err == nil && mask>>fitFloats != 0 {
+			return d.fail("fit %d: float mask %#x", slot, mask)
+		}
+		for i, p := range fitFloatPtrs(f) {
+			if mask&(1<<i) != 0 {
+				bits := d.uint64()
+				if d.err == nil && bits == 0 {
+					return d.fail("fit %d: float %d stored as zero", slot, i)
+				}
+				*p = math.Float64frombits(bits)
+			}
+		}
+	}
+	return d.end()
+}
+
+// decoder reads a value with a sticky error, so a truncated value turns
+// into one ErrCorrupt however many fields follow.
+type decoder struct {
+	b    []byte
+	what string
+	err  error
+}
+
+func (d *decoder) fail(format string, args ...any) error {
+	if d.err == nil {
+		d.err = fmt.Errorf("%w: %s: %s", ErrCorrupt, d.what, fmt.Sprintf(format, args...))
+	}
+	return d.err
+}
+
+func (d *decoder) byte() byte {
+	if d.err != nil {
+		return 0
+	}
+	if len(d.b) < 1 {
+		d.fail("truncated")
+		return 0
+	}
+	v := d.b[0]
+	d.b = d.b[1:]
+	return v
+}
+
+func (d *decoder) uint32() uint32 {
+	if d.err != nil {
+		return 0
+	}
+	if len(d.b) < 4 {
+		d.fail("truncated")
+		return 0
+	}
+	v := binary.LittleEndian.Uint32(d.b)
+	d.b = d.b[4:]
+	return v
+}
+
+func (d *decoder) uint64() uint64 {
+	if d.err != nil {
+		return 0
+	}
+	if len(d.b) < 8 {
+		d.fail("truncated")
+		return 0
+	}
+	v := binary.LittleEndian.Uint64(d.b)
+	d.b = d.b[8:]
+	return v
+}
+
+func (d *decoder) uvarint() uint64 {
+	if d.err != nil {
+		return 0
+	}
+	v, n := binary.Uvarint(d.b)
+	if n <= 0 {
+		d.fail("bad uvarint")
+		return 0
+	}
+	d.b = d.b[n:]
+	return v
+}
+
+func (d *decoder) varint() int64 {
+	if d.err != nil {
+		return 0
+	}
+	v, n := binary.Varint(d.b)
+	if n <= 0 {
+		d.fail("bad varint")
+		return 0
+	}
+	d.b = d.b[n:]
+	return v
+}
+
+func (d *decoder) int() int {
+	v := d.varint()
+	if v != int64(int(v)) {
+		d.fail("integer %d out of range", v)
+		return 0
+	}
+	return int(v)
+}
+
+func (d *decoder) time(tag byte, same time.Time, sameOK bool) time.Time {
+	if d.err != nil {
+		return time.Time{}
+	}
+	switch {
+	case tag == tagZero:
+		return time.Time{}
+	case tag == tagSame && sameOK:
+		return same
+	case tag == tagExplicit:
+		return time.Unix(0, d.varint())
+	}
+	d.fail("time tag %d", tag)
+	return time.Time{}
+}
+
+// end reports the sticky error, or trailing bytes.
+func (d *decoder) end() error {
+	if d.err == nil && len(d.b) != 0 {
+		d.fail("%d trailing bytes", len(d.b))
+	}
+	return d.err
+}

@@ -1,0 +1,67 @@
+// Package store keeps driftfit's state in one bbolt file: the panes of
+// every sensor's windows, the fit history, and the stream position the
+// state corresponds to. It is the only package that imports bbolt. It
+// makes no decisions: callers say what to write and when.
+//
+// # Main types
+//
+// Open returns a DB. A Batch collects one commit's writes (Batch.Sensor,
+// Batch.Record, Batch.SetPosition) and DB.Commit writes them in one
+// transaction. DB.Restore rebuilds the sensors at start, DB.Position
+// says where to resume the stream, DB.History and DB.HistorySensors read
+// the fit history, DB.PruneHistory enforces its retention in small steps.
+//
+// # Why the position is in the same transaction as the state
+//
+// A reading must count exactly once whatever crashes. Each commit writes
+// the panes the readings changed and the sequence of the last stream
+// message those readings came from, atomically: after any crash the file
+// holds some commit's state together with the position that produced it.
+// On restart the service restores the sensors and resumes the stream
+// right after that position, so every message after it is applied once
+// and none before it twice. Bus acknowledgements are only flow control:
+// an acknowledged message whose commit was lost is read again from the
+// stream, and an unacknowledged one before the position is skipped.
+// (A high-water mark of acknowledged sequences would not do: the bus
+// redelivers unacknowledged messages after newer ones.) Fit records are
+// keyed by sensor, window and time, so a replayed record overwrites
+// itself instead of doubling.
+//
+// # Buckets and keys
+//
+// Keys are built to sort in the order they are read: integers are
+// big-endian, signed ones (pane indexes, times in Unix ns) with the sign
+// bit flipped so byte order is numeric order. Composite keys start with
+// the sensor id and the byte 0x00, which an id may not contain, so one
+// sensor's keys form a contiguous range that no other sensor's keys
+// enter ("a" < "a"+0x00+… < "a.b").
+//
+//	meta             "schema" → uint64 SchemaVersion
+//	sensors          id → window specs the panes were written with
+//	                 (format 1, uvarint count, uvarint span and pane ns)
+//	panes            id 0x00 width(u64) index(i64) → rolling pane bytes
+//	                 (exactly (*rolling.Sensor).AppendPane's output)
+//	history          id 0x00 span(u64) pane(u64) time(i64) → fit record
+//	history-by-time  time(i64) id 0x00 span(u64) pane(u64) → empty
+//	stream           "position" → uint64 stream sequence
+//
+// Panes of one sensor and width come in increasing index, the order
+// rolling.Sensor.LoadPane requires. Panes that left every window are
+// deleted by a cursor range delete within their sensor and width. The
+// history-by-time index lets retention delete the oldest records first
+// without visiting every sensor. A fit record keeps every field of the
+// three rolling.Fit values bit for bit (format described at
+// appendRecord); only non-zero floats are written.
+//
+// The bucket names "alerts", "tickets" and "outbox" are reserved for
+// alert state, tickets and the webhook outbox. Adding a bucket keeps the
+// schema version; a reader ignores buckets it does not know.
+//
+// # Concurrency and locking
+//
+// A DB is safe for concurrent use; a Batch is not. One process holds the
+// file: a writer takes an exclusive flock and a read-only open a shared
+// one, and the two conflict. A second Open fails with ErrLocked after
+// Options.LockTimeout. Tools that read while the service runs read a copy
+// written by DB.Snapshot.
+package store
