@@ -283,3 +283,118 @@ func sortSolutions(s []rolling.Solution) {
 		return cmp.Or(a.Last.Compare(b.Last), cmp.Compare(a.Window.Span, b.Window.Span), cmp.Compare(a.Window.Pane, b.Window.Pane))
 	})
 }
+
+func TestRestore_ChangedWindows(t *testing.T) {
+	const seed = 7
+	t.Logf("seed %d", seed)
+	db := openDB(t, tempPath(t))
+	f := newFeed(t, db, seed, 3, defaultSpecs)
+	// Twins with a 7-day window of 1-day panes see the same readings.
+	short := []rolling.WindowSpec{{Span: day, Pane: hour}, {Span: 7 * day, Pane: day}}
+	f.twins = map[string]*rolling.Sensor{}
+	for _, id := range f.ids {
+		f.twins[id], _ = rolling.NewSensor(short...)
+	}
+	f.step(6000, 10*time.Minute) // about 40 days
+	f.commit()
+
+	// Shorter day window: panes of both widths carry over; the day panes
+	// older than 7 days are dropped and deleted.
+	db = reopen(t, db)
+	got := restoreAll(t, db, short)
+	for _, id := range f.ids {
+		r := got[id]
+		if !r.Changed || !slices.Equal(r.Saved, defaultSpecs) {
+			t.Errorf("%s: Changed %v, Saved %v; want true, %v", id, r.Changed, r.Saved, defaultSpecs)
+		}
+		held, kept := heldPanes(f.sensors[id], f.lastT[id]), heldPanes(r.Sensor, f.lastT[id])
+		if r.Panes != kept || r.Dropped != held-kept || r.Dropped < 20 {
+			t.Errorf("%s: Panes %d, Dropped %d; want %d, %d (≥ 20: day panes 8 to 30 days old)", id, r.Panes, r.Dropped, kept, held-kept)
+		}
+		// The windows held in the 7-day ring are the twin's exactly:
+		// a pane's sums do not depend on the window span.
+		for w := range r.Sensor.Windows() {
+			a, b := r.Sensor.Solve(w), f.twins[id].Solve(w)
+			if d := diffSolution(&a, &b); d != "" {
+				t.Errorf("%s window %v: restored with new windows differs from twin: %s", id, short[w].Span, d)
+			}
+		}
+	}
+	db = reopen(t, db)
+	got = restoreAll(t, db, short)
+	for _, id := range f.ids {
+		if r := got[id]; r.Dropped != 0 || !r.Changed {
+			t.Errorf("%s second restore: Dropped %d, Changed %v; want 0, true", id, r.Dropped, r.Changed)
+		}
+	}
+
+	// Saving a sensor records its new windows.
+	var b store.Batch
+	for _, r := range got {
+		if err := b.Sensor(r.ID, r.Sensor); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if _, err := db.Commit(&b); err != nil {
+		t.Fatal(err)
+	}
+	for id, r := range restoreAll(t, db, short) {
+		if r.Changed {
+			t.Errorf("%s: Changed after saving with the new windows", id)
+		}
+	}
+
+	// A width no window uses any more: all its panes are dropped.
+	hourly := []rolling.WindowSpec{{Span: day, Pane: hour}}
+	got = restoreAll(t, db, hourly)
+	for _, id := range f.ids {
+		if r := got[id]; r.Dropped != 7 && r.Dropped != 8 {
+			t.Errorf("%s: Dropped %d day panes, want 7 or 8", id, r.Dropped)
+		}
+	}
+	for id, r := range restoreAll(t, db, hourly) {
+		if r.Dropped != 0 {
+			t.Errorf("%s: %d panes dropped again: the first restore did not delete them", id, r.Dropped)
+		}
+	}
+}
+
+func TestRestore_SkipAndErrors(t *testing.T) {
+	db := openDB(t, tempPath(t))
+	f := newFeed(t, db, 11, 3, defaultSpecs)
+	f.step(500, 10*time.Minute)
+	f.commit()
+
+	// newSensor returning nil leaves a sensor out and its panes in place.
+	skip := f.ids[1]
+	n := 0
+	err := db.Restore(func(id string) (*rolling.Sensor, error) {
+		if id == skip {
+			return nil, nil
+		}
+		return rolling.NewSensor(defaultSpecs...)
+	}, func(r store.Restored) error {
+		if r.ID == skip {
+			t.Errorf("skipped sensor %s restored", skip)
+		}
+		n++
+		return nil
+	})
+	if err != nil || n != 2 {
+		t.Fatalf("Restore with one skipped: %v, %d sensors; want nil, 2", err, n)
+	}
+	if r := restoreAll(t, db, defaultSpecs)[skip]; r.Panes == 0 {
+		t.Errorf("skipped sensor lost its panes")
+	}
+
+	boom := errors.New("boom")
+	err = db.Restore(func(id string) (*rolling.Sensor, error) { return nil, boom }, func(store.Restored) error { return nil })
+	if !errors.Is(err, boom) {
+		t.Errorf("Restore with failing newSensor: %v, want it to wrap boom", err)
+	}
+	err = db.Restore(func(id string) (*rolling.Sensor, error) { return rolling.NewSensor(defaultSpecs...) },
+		func(store.Restored) error { return boom })
+	if !errors.Is(err, boom) {
+		t.Errorf("Restore with failing fn: %v, want it to wrap boom", err)
+	}
+}
