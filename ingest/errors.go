@@ -62,3 +62,34 @@ var (
 	// too large for a float64.
 	ErrNonFinite = errors.New("ingest: non-finite number")
 )
+
+// Errors of the payload decoder. Whole-payload problems come back from
+// Decoder.Decode as a *PayloadError wrapping ErrPayloadSyntax,
+// ErrPayloadShape, ErrPayloadTooLarge or ErrLengthMismatch; per-reading
+// problems are the Err of a Reject.
+var (
+	// ErrPayloadSyntax is returned when a payload is not valid JSON
+	// (RFC 8259).
+	ErrPayloadSyntax = errors.New("ingest: payload is not valid JSON")
+
+	// ErrPayloadShape is returned when a payload is valid JSON but not a
+	// reading, an array of readings or a batch object, or nests deeper
+	// than 64 levels.
+	ErrPayloadShape = errors.New("ingest: payload is not a reading or a batch")
+
+	// ErrPayloadTooLarge is returned when a payload exceeds the
+	// decoder's MaxBytes.
+	ErrPayloadTooLarge = errors.New("ingest: payload too large")
+
+	// ErrLengthMismatch is returned when the t, v and ref arrays of a
+	// batch object differ in length.
+	ErrLengthMismatch = errors.New("ingest: batch arrays differ in length")
+
+	// ErrMissingField is the cause of a reading without t or v (or with
+	// null there).
+	ErrMissingField = errors.New("ingest: missing field")
+
+	// ErrWrongType is the cause of a field of the wrong JSON type, such
+	// as a quoted number for v.
+	ErrWrongType = errors.New("ingest: wrong JSON type")
+)

@@ -1,0 +1,45 @@
+package ingest
+
+import "strconv"
+
+// Reason classifies why input was refused. The decoder sets the reasons up
+// to ReasonLengthMismatch that it can see in the bytes; the service adds
+// the ones that need its configuration or clock (future time, too old,
+// unit mismatch). String gives a stable snake_case label for metrics and
+// dead-letter headers.
+type Reason uint8
+
+const (
+	ReasonUnknown        Reason = iota // zero value: not classified
+	ReasonMalformed                    // payload is not valid JSON or not a reading or batch
+	ReasonMissingField                 // t or v absent or null
+	ReasonBadTime                      // t present but not a usable time
+	ReasonNonFinite                    // v or ref is NaN, infinite or beyond float64
+	ReasonWrongType                    // a field or array element of the wrong JSON type
+	ReasonOversized                    // payload larger than the limit
+	ReasonFutureTime                   // t later than now plus the allowed skew
+	ReasonTooOld                       // t older than every window of the sensor
+	ReasonUnitMismatch                 // unit differs from the sensor's configured unit
+	ReasonLengthMismatch               // batch arrays of different lengths
+)
+
+var reasonNames = [...]string{
+	ReasonUnknown:        "unknown",
+	ReasonMalformed:      "malformed_payload",
+	ReasonMissingField:   "missing_field",
+	ReasonBadTime:        "bad_time",
+	ReasonNonFinite:      "non_finite",
+	ReasonWrongType:      "wrong_type",
+	ReasonOversized:      "oversized",
+	ReasonFutureTime:     "future_time",
+	ReasonTooOld:         "too_old",
+	ReasonUnitMismatch:   "unit_mismatch",
+	ReasonLengthMismatch: "length_mismatch",
+}
+
+func (r Reason) String() string {
+	if int(r) < len(reasonNames) {
+		return reasonNames[r]
+	}
+	return "reason(" + strconv.Itoa(int(r)) + ")"
+}
