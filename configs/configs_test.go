@@ -82,6 +82,15 @@ var badCases = []struct {
 		`classes[1].name: required field missing`,
 		`classes[1].tolerance: required field missing`,
 	}},
+	{"sensor_override.bad.yaml", []string{
+		// The class is fine on its own; with the sensor's unit "bar" its kPa
+		// figures no longer fit.
+		`sensor_override.bad.yaml:6:16: classes[0].tolerance = "1 kPa": unit does not match the class unit: unit "kPa", class unit "bar" (or "%span") (with the settings of sensor plantA.b1.pt-1)`,
+		`sensor_override.bad.yaml:7:21: classes[0].limits.slope = "0.1 kPa/day": unit does not match`,
+		`sensor_override.bad.yaml:12:14: sensors[plantA.b1.pt-2].as_left = "about zero": wrong type: expected a finite number`,
+		`sensor_override.bad.yaml:13:5: sensors[plantA.b1.pt-2].name = "name": unknown field`,
+		`sensors[plantA.b*.pt-3] = "plantA.b*.pt-3": value out of range: bad sensor id: a sensor id cannot contain the wildcards`,
+	}},
 	{"syntax.bad.yaml", []string{`syntax.bad.yaml:4:5: yaml syntax error`}},
 	{"groups.bad.yaml", []string{
 		`sensors[plantA.header.pt-1].group = "header-one": undefined name`,

@@ -24,6 +24,10 @@ type validator struct {
 	bad  map[string]bool
 	errs []error
 	seen map[string]bool
+	// note is appended to problems found while checking a sensor's merged
+	// class, so a class field that only fails with the sensor's overrides
+	// says which sensor.
+	note string
 }
 
 // parent returns the path one level up: "a.b[2]" -> "a.b", "a.b" -> "a",
@@ -57,7 +61,11 @@ func (v *validator) add(path, value string, sentinel error, format string, args 
 			return
 		}
 	}
-	fe := &FieldError{File: v.c.file, Field: path, Value: value, Err: sentinel, Detail: fmt.Sprintf(format, args...)}
+	detail := fmt.Sprintf(format, args...)
+	if v.note != "" && !strings.HasPrefix(path, "sensors[") {
+		detail += " " + v.note
+	}
+	fe := &FieldError{File: v.c.file, Field: path, Value: value, Err: sentinel, Detail: detail}
 	// Place the error at the field, or at the nearest written ancestor
 	// when the field itself is missing.
 	for p := path; p != ""; p = parent(p) {
@@ -584,7 +592,9 @@ func (v *validator) sensors() {
 			}
 		}
 		merged := c.merge(ci, s)
+		v.note = "(with the settings of sensor " + s.ID + ")"
 		v.class(&merged, scope{c: c, classPath: classPath(ci), sensorPath: p})
+		v.note = ""
 	}
 }
 
