@@ -94,6 +94,9 @@ func (e *FieldError) Error() string {
 			b.WriteString(strconv.Quote(e.Value))
 		}
 		b.WriteString(": ")
+	} else if e.Value != "" {
+		b.WriteString(strconv.Quote(e.Value))
+		b.WriteString(": ")
 	}
 	if e.Err != nil {
 		b.WriteString(strings.TrimPrefix(e.Err.Error(), "configs: "))
