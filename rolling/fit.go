@@ -115,8 +115,13 @@ func (s *Sensor) Solve(i int) Solution {
 	tfirst, tlast := int64(math.MaxInt64), int64(math.MinInt64)
 	var anchorY, anchorL float64
 	haveL := false
-	for k := rg.newest; k >= oldest; k-- {
-		p := &rg.panes[rg.slot(k)]
+	P := len(rg.panes)
+	first := rg.slot(oldest) // slot of the oldest pane; slots then run on with wrap-around
+	for k, j := rg.newest, rg.slot(rg.newest); k >= oldest; k, j = k-1, j-1 {
+		if j < 0 {
+			j += P
+		}
+		p := &rg.panes[j]
 		if p.n == 0 {
 			continue
 		}
@@ -151,7 +156,7 @@ func (s *Sensor) Solve(i int) Solution {
 
 	// z = a_k + bz·u for pane k, with a_k = (2(k·w − tfirst) + w − span)/span
 	// and bz = 2w/span: the integer parts are exact, only the final
-	// division rounds.
+	// scaling rounds, the same way in both passes.
 	span := tlast - tfirst
 	fspan := float64(span)
 	bz := 2 * float64(rg.width) / fspan
@@ -160,13 +165,16 @@ func (s *Sensor) Solve(i int) Solution {
 
 	var lin, par, ex normal
 	par.p, lin.p, ex.p = 3, 2, 2
-	for k := oldest; k <= rg.newest; k++ {
-		j := rg.slot(k)
+	invSpan := 1 / fspan
+	for k, j := oldest, first; k <= rg.newest; k, j = k+1, j+1 {
+		if j == P {
+			j = 0
+		}
 		p := &rg.panes[j]
 		if p.n == 0 {
 			continue
 		}
-		a := float64(2*(k*rg.width-tfirst)+rg.width-span) / fspan
+		a := float64(2*(k*rg.width-tfirst)+rg.width-span) * invSpan
 		a2 := a * a
 		pn := float64(p.n)
 		m1 := pn*a + bz*p.su
@@ -213,13 +221,15 @@ func (s *Sensor) Solve(i int) Solution {
 	if ex.n > 0 {
 		lbar = ex.r[0] / ex.n
 	}
-	for k := oldest; k <= rg.newest; k++ {
-		j := rg.slot(k)
+	for k, j := oldest, first; k <= rg.newest; k, j = k+1, j+1 {
+		if j == P {
+			j = 0
+		}
 		p := &rg.panes[j]
 		if p.n == 0 {
 			continue
 		}
-		a := float64(2*(k*rg.width-tfirst)+rg.width-span) / fspan
+		a := float64(2*(k*rg.width-tfirst)+rg.width-span) * invSpan
 		pn := float64(p.n)
 		d := p.y0 - anchorY
 		c := d - ybar

@@ -13,6 +13,9 @@ type ring struct {
 	panes  []pane
 	side   []posMoments // nil until a pane becomes mixed
 	dirty  []uint64     // bit per slot: changed since the last MarkSaved
+	// minPanes is the pane count of the ring's shortest window: a reading
+	// at least that many panes behind the newest is late for some window.
+	minPanes int64
 }
 
 func newRing(width int64, slots int) ring {
@@ -46,10 +49,10 @@ func (r *ring) accepts(k int64) bool {
 	return !r.start || k > r.newest-int64(len(r.panes))
 }
 
-// add folds a reading into its pane, sliding the ring first if the reading
-// is newer than every pane held. The caller has checked accepts.
-func (r *ring) add(t int64, y, ly float64, pos bool) error {
-	k := floorDiv(t, r.width)
+// add folds a reading at t into its pane k = ⌊t/w⌋, sliding the ring first
+// if the reading is newer than every pane held. The caller has checked
+// accepts.
+func (r *ring) add(t, k int64, y, ly float64, pos bool) error {
 	r.advance(k)
 	i := r.slot(k)
 	p := &r.panes[i]

@@ -65,9 +65,11 @@ func NewSensor(specs ...WindowSpec) (*Sensor, error) {
 	s.rings = make([]ring, len(order))
 	for j, w := range order {
 		s.rings[j] = newRing(int64(w), slots[w])
+		s.rings[j].minPanes = int64(slots[w])
 		for i := range s.wins {
 			if s.wins[i].spec.Pane == w {
 				s.wins[i].ring = j
+				s.rings[j].minPanes = min(s.rings[j].minPanes, s.wins[i].panes)
 			}
 		}
 	}
@@ -103,20 +105,26 @@ func (s *Sensor) Add(r Reading) error {
 	taken := false
 	for j := range s.rings {
 		rg := &s.rings[j]
-		k := floorDiv(r.UnixNano, rg.width)
-		// Count lateness against each window before the ring may slide:
-		// a window only turns a reading away when the reading is older
-		// than the window as it already stands.
-		for i := range s.wins {
-			w := &s.wins[i]
-			if w.ring == j && rg.start && k <= rg.newest-w.panes {
-				w.late++
+		// Most readings fall in the newest pane: skip the division then.
+		k := rg.newest
+		if d := r.UnixNano - k*rg.width; !rg.start || d < 0 || d >= rg.width {
+			k = floorDiv(r.UnixNano, rg.width)
+		}
+		if rg.start && k <= rg.newest-rg.minPanes {
+			// Count lateness against each window before the ring may
+			// slide: a window only turns a reading away when the reading
+			// is older than the window as it already stands.
+			for i := range s.wins {
+				w := &s.wins[i]
+				if w.ring == j && k <= rg.newest-w.panes {
+					w.late++
+				}
 			}
 		}
 		if !rg.accepts(k) {
 			continue
 		}
-		if err := rg.add(r.UnixNano, y, ly, pos); err != nil {
+		if err := rg.add(r.UnixNano, k, y, ly, pos); err != nil {
 			return err
 		}
 		taken = true

@@ -21,7 +21,7 @@ func runDemoFeed(ctx context.Context, args []string, stdin io.Reader, stdout, st
 	days := fs.String("days", "30d", "plant time covered, from --start")
 	every := fs.String("every", "1h", "plant time between two readings of one sensor")
 	start := fs.String("start", demoStart.Format(time.RFC3339), "plant time of the first reading (RFC 3339)")
-	sensors := fs.Int("sensors", 0, "publish only the first N sensors of the plant (0: all 360)")
+	sensors := fs.Int("sensors", 0, "sensors to generate: the first N of the plant's 360, or more in copies of its units (0: the 360)")
 	seed := fs.Uint64("seed", 1, "random seed of the reading noise")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "Usage: driftfit demo-feed [flags]\n\nGenerates readings of Quillmere Vale, an invented plant: most sensors stable,\na few drifting (linear, accelerating), one vibration growing exponentially and\na furnace zone whose process steps up on day 20.\n\nFlags:")
@@ -42,10 +42,7 @@ func runDemoFeed(ctx context.Context, args []string, stdin io.Reader, stdout, st
 	if err != nil {
 		return usageError("--start %q: %v", *start, err)
 	}
-	plant := demoPlant()
-	if *sensors > 0 && *sensors < len(plant) {
-		plant = plant[:*sensors]
-	}
+	plant := demoFleet(*sensors)
 	if *csvOut == "" {
 		return usageError("give --csv FILE")
 	}

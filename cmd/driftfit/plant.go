@@ -115,6 +115,28 @@ func demoPlant() []demoSensor {
 	return out
 }
 
+// demoFleet returns n demo sensors: the plant's 360, then as many
+// copies as needed under extension units "qm.xK." for load tests.
+func demoFleet(n int) []demoSensor {
+	base := demoPlant()
+	if n <= 0 {
+		return base
+	}
+	out := make([]demoSensor, 0, n)
+	for k := 0; len(out) < n; k++ {
+		for _, s := range base {
+			if len(out) == n {
+				break
+			}
+			if k > 0 {
+				s.id = fmt.Sprintf("qm.x%d.%s", k, s.id[len("qm."):])
+			}
+			out = append(out, s)
+		}
+	}
+	return out
+}
+
 // demoStart is the default start of demo data: a fixed date keeps demo
 // files reproducible.
 var demoStart = time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC)
