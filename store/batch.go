@@ -65,7 +65,7 @@ func (b *Batch) Sensor(id string, s *rolling.Sensor) error {
 		return err
 	}
 	o := op{kind: opSpecs, key: b.appendKey(func(dst []byte) []byte { return append(dst, id...) })}
-	o.val = b.appendKey(func(dst []byte) []byte { return appendSpecs(dst, s) })
+	o.val = b.appendKey(func(dst []byte) []byte { return appendSpecs(dst, s.Windows(), s.Spec) })
 	b.ops = append(b.ops, o)
 	s.Changed(func(k rolling.PaneKey) {
 		key := b.appendKey(func(dst []byte) []byte { return appendPaneKey(dst, id, k) })

@@ -21,13 +21,13 @@ const (
 // count cannot make the decoder allocate without limit.
 const maxWindows = 64
 
-// appendSpecs encodes a sensor's window specs: format byte, uvarint
-// count, then span and pane in ns as uvarints.
-func appendSpecs(dst []byte, s *rolling.Sensor) []byte {
+// appendSpecs encodes n window specs: format byte, uvarint count, then
+// span and pane in ns as uvarints.
+func appendSpecs(dst []byte, n int, spec func(int) rolling.WindowSpec) []byte {
 	dst = append(dst, specsFormat)
-	dst = binary.AppendUvarint(dst, uint64(s.Windows()))
-	for i := range s.Windows() {
-		ws := s.Spec(i)
+	dst = binary.AppendUvarint(dst, uint64(n))
+	for i := range n {
+		ws := spec(i)
 		dst = binary.AppendUvarint(dst, uint64(ws.Span))
 		dst = binary.AppendUvarint(dst, uint64(ws.Pane))
 	}

@@ -1,0 +1,278 @@
+package store
+
+import (
+	"bytes"
+	"cmp"
+	"encoding/hex"
+	"flag"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"os"
+	"slices"
+	"strings"
+	"testing"
+	"time"
+
+	"driftfit/rolling"
+)
+
+var update = flag.Bool("update", false, "rewrite testdata golden files")
+
+// TestAppendInt_Order checks that byte order of the key encoding is the
+// numeric order, against cmp.Compare from the Go standard library.
+func TestAppendInt_Order(t *testing.T) {
+	const seed = 1
+	t.Logf("seed %d", seed)
+	rng := rand.New(rand.NewPCG(seed, seed))
+	vals := []int64{math.MinInt64, math.MinInt64 + 1, -1 << 32, -2, -1, 0, 1, 2, 1 << 32, math.MaxInt64 - 1, math.MaxInt64}
+	for range 2000 {
+		vals = append(vals, int64(rng.Uint64()), rng.Int64N(1000)-500)
+	}
+	for _, a := range vals {
+		ka := appendInt(nil, a)
+		if got := readInt(ka); got != a {
+			t.Fatalf("readInt(appendInt(%d)) = %d", a, got)
+		}
+		for _, b := range vals[:40] {
+			if got, want := bytes.Compare(ka, appendInt(nil, b)), cmp.Compare(a, b); got != want {
+				t.Fatalf("bytes.Compare(key(%d), key(%d)) = %d, want %d", a, b, got, want)
+			}
+		}
+	}
+}
+
+// TestPaneKey_Order checks that pane keys of several sensors sort by
+// sensor, then width, then index, as Restore needs.
+func TestPaneKey_Order(t *testing.T) {
+	const seed = 2
+	t.Logf("seed %d", seed)
+	rng := rand.New(rand.NewPCG(seed, seed))
+	type pk struct {
+		id  string
+		key rolling.PaneKey
+	}
+	ids := []string{"a", "a.b", "a-", "a\x01", "b", "ab"}
+	widths := []time.Duration{time.Hour, 24 * time.Hour, time.Minute}
+	var keys []pk
+	for range 3000 {
+		keys = append(keys, pk{ids[rng.IntN(len(ids))], rolling.PaneKey{Width: widths[rng.IntN(3)], Index: rng.Int64N(1<<20) - 1<<19}})
+	}
+	byBytes := slices.Clone(keys)
+	slices.SortFunc(byBytes, func(a, b pk) int {
+		return bytes.Compare(appendPaneKey(nil, a.id, a.key), appendPaneKey(nil, b.id, b.key))
+	})
+	byFields := slices.Clone(keys)
+	slices.SortFunc(byFields, func(a, b pk) int {
+		return cmp.Or(strings.Compare(a.id, b.id), cmp.Compare(a.key.Width, b.key.Width), cmp.Compare(a.key.Index, b.key.Index))
+	})
+	for i := range keys {
+		if byBytes[i] != byFields[i] {
+			t.Fatalf("position %d: by bytes %+v, by fields %+v", i, byBytes[i], byFields[i])
+		}
+		id, key, err := splitPaneKey(appendPaneKey(nil, byBytes[i].id, byBytes[i].key))
+		if err != nil || string(id) != byBytes[i].id || key != byBytes[i].key {
+			t.Fatalf("splitPaneKey round trip of %+v: %q %+v %v", byBytes[i], id, key, err)
+		}
+	}
+}
+
+// sampleSolutions returns solutions of real fits covering the encoder's
+// cases: not enough data, no time spread, constant values, two instants
+// (parabola singular), mixed signs (exp excluding readings), and
+// ordinary drifting data.
+func sampleSolutions(t testing.TB) []rolling.Solution {
+	specs := []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}}
+	base := time.Date(2030, 5, 17, 0, 0, 0, 0, time.UTC).UnixNano()
+	cases := [][]rolling.Reading{
+		{{UnixNano: base, Value: 3}},
+		{{UnixNano: base, Value: 3}, {UnixNano: base, Value: 4}, {UnixNano: base, Value: 5}},
+		{{UnixNano: base, Value: 2}, {UnixNano: base + 6e11, Value: 2}, {UnixNano: base + 9e11, Value: 2}, {UnixNano: base + 3e12, Value: 2}},
+		{{UnixNano: base, Value: 1}, {UnixNano: base, Value: 2}, {UnixNano: base + 6e11, Value: 3}, {UnixNano: base + 6e11, Value: 5}},
+	}
+	rng := rand.New(rand.NewPCG(3, 3))
+	var drift, mixed []rolling.Reading
+	for i := range 300 {
+		tt := base + int64(i)*int64(4*time.Minute)
+		drift = append(drift, rolling.Reading{UnixNano: tt, Value: 50 + 1e-3*float64(i) + 0.01*rng.NormFloat64()})
+		mixed = append(mixed, rolling.Reading{UnixNano: tt, Value: math.Sin(float64(i) / 20)})
+	}
+	cases = append(cases, drift, mixed)
+	var out []rolling.Solution
+	for _, rs := range cases {
+		s, err := rolling.NewSensor(specs...)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, r := range rs {
+			if err := s.Add(r); err != nil {
+				t.Fatal(err)
+			}
+		}
+		out = append(out, s.Solve(0))
+	}
+	return out
+}
+
+func sameFitBits(a, b *rolling.Fit) bool {
+	if a.Model != b.Model || a.Err != b.Err || a.N != b.N || a.Excluded != b.Excluded || a.DF != b.DF ||
+		a.PosDef != b.PosDef || a.First != b.First || a.Last != b.Last {
+		return false
+	}
+	pa, pb := fitFloatPtrs(a), fitFloatPtrs(b)
+	for i := range pa {
+		if math.Float64bits(*pa[i]) != math.Float64bits(*pb[i]) {
+			return false
+		}
+	}
+	return true
+}
+
+func sameSolutionBits(a, b *rolling.Solution) bool {
+	return a.Window == b.Window && a.Panes == b.Panes && a.Filled == b.Filled && a.N == b.N &&
+		a.First == b.First && a.Last == b.Last &&
+		sameFitBits(&a.Line, &b.Line) && sameFitBits(&a.Parabola, &b.Parabola) && sameFitBits(&a.Exp, &b.Exp)
+}
+
+func TestRecord_RoundTrip(t *testing.T) {
+	sols := sampleSolutions(t)
+	// Odd bits that a fit should not produce but the format keeps.
+	odd := sols[len(sols)-1]
+	odd.Line.Coef[2] = math.Copysign(0, -1)
+	odd.Parabola.R2 = math.NaN()
+	odd.Exp.Cond = math.Inf(1)
+	odd.Exp.First = time.Unix(0, 12345)
+	sols = append(sols, odd)
+	codes := map[error]bool{}
+	for i, sol := range sols {
+		codes[sol.Line.Err], codes[sol.Parabola.Err], codes[sol.Exp.Err] = true, true, true
+		b, err := appendRecord(nil, &sol)
+		if err != nil {
+			t.Fatalf("solution %d: %v", i, err)
+		}
+		var got rolling.Solution
+		got.Window = sol.Window
+		if err := decodeRecord(b, &got); err != nil {
+			t.Fatalf("solution %d: decode: %v", i, err)
+		}
+		if !sameSolutionBits(&got, &sol) {
+			t.Errorf("solution %d: round trip differs:\n got %+v\nwant %+v", i, got, sol)
+		}
+		for cut := range len(b) {
+			if err := decodeRecord(b[:cut], &got); err == nil {
+				t.Errorf("solution %d truncated to %d of %d bytes decoded", i, cut, len(b))
+			}
+		}
+	}
+	for _, e := range errCodes {
+		if !codes[e] {
+			t.Errorf("samples never produce fit error %v", e)
+		}
+	}
+}
+
+// TestRecord_Golden pins the stored layout of format 1: a change to it
+// must come with a new format byte, not rewrite old files' meaning.
+// Refresh with go test -run Golden -update after such a change.
+func TestRecord_Golden(t *testing.T) {
+	var buf bytes.Buffer
+	for _, sol := range sampleSolutions(t) {
+		b, err := appendRecord(nil, &sol)
+		if err != nil {
+			t.Fatal(err)
+		}
+		fmt.Fprintf(&buf, "%s\n", hex.EncodeToString(b))
+	}
+	const path = "testdata/record_v1.golden"
+	if *update {
+		if err := os.WriteFile(path, buf.Bytes(), 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	want, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(buf.Bytes(), want) {
+		t.Errorf("record encoding differs from %s:\n got %s\nwant %s", path, buf.Bytes(), want)
+	}
+}
+
+func goldenRecords(f *testing.F) [][]byte {
+	data, err := os.ReadFile("testdata/record_v1.golden")
+	if err != nil {
+		f.Fatal(err)
+	}
+	var out [][]byte
+	for _, line := range strings.Fields(string(data)) {
+		b, err := hex.DecodeString(line)
+		if err != nil {
+			f.Fatal(err)
+		}
+		out = append(out, b)
+	}
+	return out
+}
+
+func FuzzDecodeRecord(f *testing.F) {
+	for _, b := range goldenRecords(f) {
+		f.Add(b)
+	}
+	f.Add([]byte{})
+	f.Add([]byte{recordFormat})
+	f.Fuzz(func(t *testing.T, b []byte) {
+		var sol rolling.Solution
+		sol.Window = rolling.WindowSpec{Span: time.Hour, Pane: time.Minute}
+		if err := decodeRecord(b, &sol); err != nil {
+			return
+		}
+		enc, err := appendRecord(nil, &sol)
+		if err != nil {
+			t.Fatalf("decoded record does not re-encode: %v", err)
+		}
+		var again rolling.Solution
+		again.Window = sol.Window
+		if err := decodeRecord(enc, &again); err != nil {
+			t.Fatalf("re-encoded record does not decode: %v", err)
+		}
+		if !sameSolutionBits(&sol, &again) {
+			t.Fatalf("round trip differs:\n%+v\n%+v", sol, again)
+		}
+	})
+}
+
+func FuzzDecodeSpecs(f *testing.F) {
+	specs := []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}, {Span: 720 * time.Hour, Pane: 24 * time.Hour}}
+	f.Add(appendSpecs(nil, len(specs), func(i int) rolling.WindowSpec { return specs[i] }))
+	f.Add([]byte{specsFormat, 1, 1, 1})
+	f.Add([]byte{specsFormat, 0})
+	f.Fuzz(func(t *testing.T, b []byte) {
+		got, err := decodeSpecs(b)
+		if err != nil {
+			return
+		}
+		enc := appendSpecs(nil, len(got), func(i int) rolling.WindowSpec { return got[i] })
+		again, err := decodeSpecs(enc)
+		if err != nil || !slices.Equal(got, again) {
+			t.Fatalf("round trip of %v: %v, %v", got, again, err)
+		}
+	})
+}
+
+func FuzzSplitKeys(f *testing.F) {
+	f.Add(appendPaneKey(nil, "plantA.boiler2.pt-101", rolling.PaneKey{Width: time.Hour, Index: -5}))
+	f.Add(appendInt(appendWindowPrefix(nil, "a", rolling.WindowSpec{Span: time.Hour, Pane: time.Minute}), 1e18))
+	f.Add([]byte{0})
+	f.Fuzz(func(t *testing.T, b []byte) {
+		if id, key, err := splitPaneKey(b); err == nil {
+			if enc := appendPaneKey(nil, string(id), key); !bytes.Equal(enc, b) {
+				t.Fatalf("pane key %x re-encodes as %x", b, enc)
+			}
+		}
+		if id, ws, tm, err := splitHistoryKey(b); err == nil {
+			if enc := appendInt(appendWindowPrefix(nil, string(id), ws), tm); !bytes.Equal(enc, b) {
+				t.Fatalf("history key %x re-encodes as %x", b, enc)
+			}
+		}
+	})
+}
