@@ -91,7 +91,7 @@ var badCases = []struct {
 		`sensor_override.bad.yaml:13:5: sensors[plantA.b1.pt-2].name = "name": unknown field`,
 		`sensors[plantA.b*.pt-3] = "plantA.b*.pt-3": value out of range: bad sensor id: a sensor id cannot contain the wildcards`,
 	}},
-	{"syntax.bad.yaml", []string{`syntax.bad.yaml:4:5: yaml syntax error`}},
+	{"syntax.bad.yaml", []string{`syntax.bad.yaml:4:5: "unit": yaml syntax error: ',' or ']' must be specified`}},
 	{"groups.bad.yaml", []string{
 		`sensors[plantA.header.pt-1].group = "header-one": undefined name`,
 		`groups[0].members: contradictory settings: peers must measure the same quantity; members fall in classes with units degC (class "temperature"), kPa (class "pressure")`,
