@@ -100,10 +100,14 @@ func Open(path string, opts Options) (*DB, error) {
 		return nil, fmt.Errorf("store: open %s: %w", path, err)
 	}
 	db := &DB{bolt: bdb, path: path}
-	if opts.ReadOnly {
-		err = bdb.View(db.checkSchema)
-	} else {
+	err = bdb.View(db.checkReady)
+	if !opts.ReadOnly && errors.Is(err, errNotReady) {
+		// Only a new file (or one missing a bucket) pays for a write
+		// transaction and its fsync at open.
 		err = bdb.Update(db.initSchema)
+	}
+	if errors.Is(err, errNotReady) {
+		err = fmt.Errorf("%w: %s is not initialised (found 0, this build reads %d); open it for writing once", ErrSchema, path, SchemaVersion)
 	}
 	if err != nil {
 		bdb.Close()
@@ -127,11 +131,37 @@ func (db *DB) checkSchema(tx *bolt.Tx) error {
 	return nil
 }
 
-func (db *DB) initSchema(tx *bolt.Tx) error {
+// errNotReady says a file needs initSchema: no schema yet, or a bucket
+// missing. A read-only open reports it as ErrSchema.
+var errNotReady = errors.New("store: file not initialised")
+
+// checkReady checks the schema version and that every bucket exists.
+func (db *DB) checkReady(tx *bolt.Tx) error {
 	if tx.Bucket(bucketMeta) == nil {
 		// A file is ours to initialise only when it is empty.
-		if foreign, _ := tx.Cursor().First(); foreign != nil {
-			return fmt.Errorf("%w: %s holds bucket %q but no driftfit schema version (found 0, this build reads %d)", ErrSchema, db.path, foreign, SchemaVersion)
+		k, _ := tx.Cursor().First()
+		if k == nil {
+			return errNotReady
+		}
+		return fmt.Errorf("%w: %s holds bucket %q but no driftfit schema version (found 0, this build reads %d)", ErrSchema, db.path, k, SchemaVersion)
+	}
+	if err := db.checkSchema(tx); err != nil {
+		return err
+	}
+	for _, name := range dataBuckets {
+		if tx.Bucket(name) == nil {
+			return errNotReady
+		}
+	}
+	return nil
+}
+
+var dataBuckets = [][]byte{bucketSensors, bucketPanes, bucketHistory, bucketHistTime, bucketStream}
+
+func (db *DB) initSchema(tx *bolt.Tx) error {
+	if tx.Bucket(bucketMeta) == nil {
+		if err := db.checkReady(tx); !errors.Is(err, errNotReady) {
+			return err
 		}
 		meta, err := tx.CreateBucket(bucketMeta)
 		if err != nil {
@@ -144,7 +174,7 @@ func (db *DB) initSchema(tx *bolt.Tx) error {
 	if err := db.checkSchema(tx); err != nil {
 		return err
 	}
-	for _, name := range [][]byte{bucketSensors, bucketPanes, bucketHistory, bucketHistTime, bucketStream} {
+	for _, name := range dataBuckets {
 		if _, err := tx.CreateBucketIfNotExists(name); err != nil {
 			return fmt.Errorf("store: init %s bucket %s: %w", db.path, name, err)
 		}

@@ -250,3 +250,18 @@ func TestBatch_BadSensorID(t *testing.T) {
 		t.Errorf("dotted id refused: %v", err)
 	}
 }
+
+func TestOpen_EmptyBoltFile(t *testing.T) {
+	path := tempPath(t)
+	writeBolt(t, path, nil)
+	if db, err := store.Open(path, store.Options{ReadOnly: true}); !errors.Is(err, store.ErrSchema) {
+		if err == nil {
+			db.Close()
+		}
+		t.Errorf("read-only Open of an empty bbolt file: %v, want ErrSchema", err)
+	}
+	db := openDB(t, path) // a writer initialises it
+	if pos, err := db.Position(); err != nil || pos != 0 {
+		t.Errorf("Position() = %d, %v", pos, err)
+	}
+}
