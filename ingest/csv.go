@@ -254,7 +254,7 @@ var isSpecial = [256]bool{',': true, '\n': true, '\r': true, '"': true}
 func (c *CSVReader) readRecord() bool {
 	c.rec, c.ends, c.recErr, c.tooLong = c.rec[:0], c.ends[:0], nil, false
 	for { // blank lines
-		if !c.fill() {
+		if c.pos >= c.end && !c.fill() {
 			return false
 		}
 		switch c.buf[c.pos] {
@@ -270,7 +270,7 @@ func (c *CSVReader) readRecord() bool {
 			}
 			if c.pos+1 == c.end {
 				c.pos++
-				if !c.fill() {
+				if c.pos >= c.end && !c.fill() {
 					return false // CR at end of input
 				}
 				if c.buf[c.pos] == '\n' {
@@ -296,7 +296,7 @@ func (c *CSVReader) readFields(atFieldStart bool) bool {
 		c.line = c.lineNo
 	}
 	for {
-		quoted := atFieldStart && c.fill() && c.buf[c.pos] == '"'
+		quoted := atFieldStart && (c.pos < c.end || c.fill()) && c.buf[c.pos] == '"'
 		atFieldStart = true
 		if quoted {
 			c.pos++
@@ -307,7 +307,7 @@ func (c *CSVReader) readFields(atFieldStart bool) bool {
 		}
 		// Unquoted field, or what follows a closing quote.
 		for {
-			if !c.fill() {
+			if c.pos >= c.end && !c.fill() {
 				c.ends = append(c.ends, len(c.rec))
 				return true
 			}
@@ -334,7 +334,7 @@ func (c *CSVReader) readFields(atFieldStart bool) bool {
 				c.ends = append(c.ends, len(c.rec))
 				return true
 			case '\r':
-				if !c.fill() {
+				if c.pos >= c.end && !c.fill() {
 					c.ends = append(c.ends, len(c.rec))
 					return true // CR at end of input is dropped
 				}
@@ -367,7 +367,7 @@ func (c *CSVReader) readFields(atFieldStart bool) bool {
 // including the closing quote. It returns false if the input ends first.
 func (c *CSVReader) readQuoted() bool {
 	for {
-		if !c.fill() {
+		if c.pos >= c.end && !c.fill() {
 			c.setErr(ErrQuote)
 			return false
 		}
@@ -387,7 +387,7 @@ func (c *CSVReader) readQuoted() bool {
 			c.lineNo++
 			c.addByte('\n')
 		case '\r':
-			if !c.fill() {
+			if c.pos >= c.end && !c.fill() {
 				c.setErr(ErrQuote)
 				return false
 			}
@@ -399,7 +399,7 @@ func (c *CSVReader) readQuoted() bool {
 				c.addByte('\r')
 			}
 		case '"':
-			if c.fill() && c.buf[c.pos] == '"' {
+			if (c.pos < c.end || c.fill()) && c.buf[c.pos] == '"' {
 				c.pos++
 				c.addByte('"')
 				continue

@@ -87,6 +87,8 @@ func TestCSVReader_Rows(t *testing.T) {
 	bad := func(line int, field string, cause error) csvRow {
 		return csvRow{line: line, err: &ingest.RowError{Line: line, Field: field, Err: cause}}
 	}
+	// Quoting, "" escapes and fields spanning lines follow RFC 4180
+	// section 2 rules 5-7; blank lines and a final CR follow encoding/csv.
 	tests := []struct {
 		name string
 		in   string

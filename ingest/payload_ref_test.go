@@ -405,6 +405,15 @@ func TestDecoder_NoAllocsPerReading(t *testing.T) {
 	}
 }
 
+func TestAppendReading_NoAllocs(t *testing.T) {
+	d := ingest.Decoded{Reading: rolling.Reading{UnixNano: t2026 + 123456789, Value: 101.325}, Ref: 101, HasRef: true, Unit: []byte("kPa")}
+	buf := make([]byte, 0, 256)
+	allocs := testing.AllocsPerRun(100, func() { buf = ingest.AppendReading(buf[:0], d) })
+	if allocs != 0 {
+		t.Errorf("AppendReading into a large enough buffer allocates %v times, want 0", allocs)
+	}
+}
+
 // benchPayload is an array of n readings of about 70 bytes each, the size
 // quoted for the bus measurements.
 func benchPayload(n int) []byte {
