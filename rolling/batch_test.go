@@ -586,11 +586,12 @@ func TestExpGrowth(t *testing.T) {
 // measured, about a tenth of that in ResidSD and the standard errors):
 // 1e-9 is lost once Δ/σ passes about 10⁴. The batch QR reference, which
 // sums explicit residuals, keeps about 1e-11 here. The coefficients are
-// not affected.
+// not affected. The test holds the engine to that documented precision
+// model: agreement within max(1e-9, ε·(Δ/σ)²).
 func TestSolve_SteepTrendLowNoise(t *testing.T) {
 	spec := rolling.WindowSpec{Span: 24 * time.Hour, Pane: time.Hour}
 	t0 := time.Date(2026, 5, 4, 0, 0, 0, 0, time.UTC).UnixNano()
-	for _, sigma := range []float64{1e-1, 1e-2, 1e-3, 1e-4} {
+	for _, sigma := range []float64{1e-1, 1e-2, 1e-3, 1e-4, 1e-5} {
 		delta := 100.0 / 24 // change of the level within one pane
 		t.Run(fmt.Sprintf("noise=%g/pane-change-over-noise=%.0f", sigma, delta/sigma), func(t *testing.T) {
 			rng := rand.New(rand.NewPCG(7, math.Float64bits(sigma)))
@@ -613,8 +614,9 @@ func TestSolve_SteepTrendLowNoise(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			worst := compareBatch(t, "parabola", &sol.Parabola, ref, batchTol)
-			t.Logf("largest relative error %.2g (ε·(Δ/σ)² = %.2g)", worst, 0x1p-52*(delta/sigma)*(delta/sigma))
+			bound := 0x1p-52 * (delta / sigma) * (delta / sigma)
+			worst := compareBatch(t, "parabola", &sol.Parabola, ref, max(batchTol, bound))
+			t.Logf("largest relative error %.2g (ε·(Δ/σ)² = %.2g)", worst, bound)
 		})
 	}
 }
