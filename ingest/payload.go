@@ -9,8 +9,10 @@ import (
 )
 
 // DefaultMaxBytes is the payload size limit of a Decoder whose MaxBytes is
-// zero: 1 MiB, the default max_payload of a NATS server, so any message
-// the bus delivers by default fits.
+// zero: 1 MiB, the default max_payload of a NATS server ("Default: 1MB",
+// docs.nats.io, server configuration; 1<<20 bytes in nats-server's
+// MAX_PAYLOAD_SIZE, from memory), so any message the bus delivers with
+// default settings fits.
 const DefaultMaxBytes = 1 << 20
 
 // maxDepth bounds nesting inside a payload. Readings nest two levels; the
