@@ -30,6 +30,7 @@ type RowError struct {
 	Err   error
 }
 
+// Error gives the line, the field and value when known, and the cause.
 func (e *RowError) Error() string {
 	cause := strings.TrimPrefix(e.Err.Error(), "ingest: ")
 	if e.Field == "" {

@@ -54,6 +54,7 @@ type PayloadError struct {
 	Err    error
 }
 
+// Error gives the byte offset and the cause.
 func (e *PayloadError) Error() string {
 	return fmt.Sprintf("ingest: payload byte %d: %s", e.Offset, strings.TrimPrefix(e.Err.Error(), "ingest: "))
 }

@@ -37,6 +37,8 @@ var reasonNames = [...]string{
 	ReasonLengthMismatch: "length_mismatch",
 }
 
+// String returns the label, e.g. "bad_time"; values outside the list
+// print as "reason(N)".
 func (r Reason) String() string {
 	if int(r) < len(reasonNames) {
 		return reasonNames[r]

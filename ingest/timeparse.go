@@ -25,6 +25,7 @@ type TimeError struct {
 	Err   error
 }
 
+// Error gives the cause and the quoted value.
 func (e *TimeError) Error() string { return e.Err.Error() + ": " + strconv.Quote(e.Value) }
 
 // Unwrap returns the sentinel that classifies the problem.
