@@ -45,6 +45,9 @@ type Batch struct {
 	ops    []op
 	pos    uint64
 	hasPos bool
+
+	applied    uint64
+	hasApplied bool
 }
 
 // Sensor snapshots the panes of s changed since the last snapshot, the
@@ -140,6 +143,10 @@ func (b *Batch) Record(id string, sol *rolling.Solution) error {
 // a commit leaves the stored position unchanged.
 func (b *Batch) SetPosition(seq uint64) { b.pos, b.hasPos = seq, true }
 
+// SetApplied records the count of readings applied to the state this
+// commit holds, so that a count survives crashes exactly as the state does.
+func (b *Batch) SetApplied(n uint64) { b.applied, b.hasApplied = n, true }
+
 // Len returns the count of writes queued: panes, window specs, horizons
 // and records (the position not counted).
 func (b *Batch) Len() int { return len(b.ops) }
@@ -148,6 +155,7 @@ func (b *Batch) Len() int { return len(b.ops) }
 func (b *Batch) Reset() {
 	b.buf, b.ops = b.buf[:0], b.ops[:0]
 	b.pos, b.hasPos = 0, false
+	b.applied, b.hasApplied = 0, false
 }
 
 func (b *Batch) bytes(s span) []byte { return b.buf[s.off : s.off+s.n : s.off+s.n] }
@@ -161,26 +169,41 @@ type CommitStats struct {
 	Puts, Deletes int
 }
 
-// Commit writes the batch in one bbolt transaction (with fsync unless
-// Options.NoSync) and resets it. On error nothing was written and the
-// batch is left intact for a retry (see Batch.Sensor). Committing an
-// empty batch writes nothing and returns at once.
+// Commit writes the batches in one bbolt transaction (with fsync unless
+// Options.NoSync), in order, and resets them. On error nothing was
+// written and the batches are left intact for a retry (see Batch.Sensor).
+// Committing only empty batches writes nothing and returns at once.
+// Several batches let several goroutines each snapshot the sensors they
+// own into their own batch, and still commit together.
 //
-// The values put stay in the batch's buffer until the transaction ends,
-// as bbolt requires; that is why a batch is not reused until then.
-func (db *DB) Commit(b *Batch) (CommitStats, error) {
-	if len(b.ops) == 0 && !b.hasPos {
+// The values put stay in the batches' buffers until the transaction
+// ends, as bbolt requires; that is why a batch is not reused until then.
+func (db *DB) Commit(bs ...*Batch) (CommitStats, error) {
+	empty := true
+	for _, b := range bs {
+		if len(b.ops) > 0 || b.hasPos || b.hasApplied {
+			empty = false
+		}
+	}
+	if empty {
 		return CommitStats{}, nil
 	}
 	var st CommitStats
 	err := db.bolt.Update(func(tx *bolt.Tx) error {
 		st = CommitStats{}
-		return b.apply(tx, &st)
+		for _, b := range bs {
+			if err := b.apply(tx, &st); err != nil {
+				return err
+			}
+		}
+		return nil
 	})
 	if err != nil {
 		return CommitStats{}, fmt.Errorf("store: commit %s: %w", db.path, err)
 	}
-	b.Reset()
+	for _, b := range bs {
+		b.Reset()
+	}
 	return st, nil
 }
 
@@ -230,6 +253,13 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats) error {
 		var v [8]byte
 		binary.BigEndian.PutUint64(v[:], b.pos)
 		if err := put(tx.Bucket(bucketStream), keyPosition, v[:]); err != nil {
+			return err
+		}
+	}
+	if b.hasApplied {
+		var v [8]byte
+		binary.BigEndian.PutUint64(v[:], b.applied)
+		if err := put(tx.Bucket(bucketStream), keyApplied, v[:]); err != nil {
 			return err
 		}
 	}

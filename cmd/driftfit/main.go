@@ -31,6 +31,7 @@ var commands []command
 func init() {
 	commands = []command{
 		{"replay", "fit readings from a CSV file and print the final fits", runReplay},
+		{"serve", "run the service: read readings from NATS, keep and store the fits", runServe},
 		{"demo-feed", "generate readings of an invented plant", runDemoFeed},
 	}
 }

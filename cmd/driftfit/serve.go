@@ -1,0 +1,370 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"net"
+	"net/http"
+	"net/http/pprof"
+	"os"
+	"os/signal"
+	"path/filepath"
+	"strings"
+	"syscall"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/collectors"
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+	"github.com/rs/zerolog"
+
+	"driftfit/configs"
+	"driftfit/ingest"
+	"driftfit/rolling"
+	"driftfit/store"
+)
+
+// dbFile is the name of the state file in the data directory.
+const dbFile = "driftfit.db"
+
+// demoConfig is the configuration --demo uses when --config is not given.
+const demoConfig = "configs/demo.yaml"
+
+func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("serve", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	cfgPath := fs.String("config", "", "configuration `FILE` (YAML); --demo defaults it to "+demoConfig)
+	demo := fs.Bool("demo", false, "also publish the invented demo plant's readings, 30 days compressed into about a minute, then live")
+	dataDir := fs.String("data", "", "data directory (overrides store.dir)")
+	httpAddr := fs.String("http-addr", "", "listen address of /metrics (overrides http.addr; \"off\" disables)")
+	pprofAddr := fs.String("pprof-addr", "", "serve net/http/pprof on this loopback address (off unless given)")
+	natsPort := fs.Int("nats-port", 4222, "port of the embedded NATS server on 127.0.0.1 (-1: any free port)")
+	logFormat := fs.String("log-format", "json", "log format: json or console")
+	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "Usage: driftfit serve [flags]\n\nRuns the service: reads readings from NATS, keeps the sliding fits of every\nsensor, stores their state and fit history. With no bus.servers configured it\nstarts an embedded NATS server with JetStream on 127.0.0.1.\n\nFlags:")
+		fs.PrintDefaults()
+	}
+	if err := fs.Parse(args); err != nil {
+		return err
+	}
+	if fs.NArg() != 0 {
+		return usageError("unexpected arguments %q", fs.Args())
+	}
+	if *cfgPath == "" && *demo {
+		*cfgPath = demoConfig
+	}
+	var cfg *configs.Config
+	var err error
+	if *cfgPath == "" {
+		cfg, err = configs.Parse("(defaults)", []byte("{}"))
+	} else {
+		cfg, err = configs.Load(*cfgPath)
+	}
+	if err != nil {
+		return err
+	}
+	if *dataDir != "" {
+		cfg.Store.Dir = *dataDir
+	}
+	if *httpAddr != "" {
+		cfg.HTTP.Addr = *httpAddr
+	}
+	log, err := newLogger(stderr, *logFormat, *logLevel)
+	if err != nil {
+		return usageError("%v", err)
+	}
+
+	// A second signal exits at once, whatever shutdown is doing.
+	go func() {
+		<-ctx.Done()
+		sig := make(chan os.Signal, 1)
+		signal.Notify(sig, os.Interrupt, syscall.SIGTERM)
+		<-sig
+		log.Warn().Msg("second signal: exiting now")
+		os.Exit(130)
+	}()
+
+	if err := os.MkdirAll(cfg.Store.Dir, 0o700); err != nil {
+		return err
+	}
+	reg := prometheus.NewRegistry()
+	reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	metrics := ingest.NewMetrics()
+	if err := metrics.Register(reg); err != nil {
+		return err
+	}
+
+	bus, err := connectBus(cfg, *natsPort, log, metrics)
+	if err != nil {
+		return err
+	}
+	defer bus.close()
+
+	db, err := store.Open(filepath.Join(cfg.Store.Dir, dbFile), store.Options{})
+	if err != nil {
+		return err
+	}
+	defer func() {
+		if err := db.Close(); err != nil {
+			log.Error().Err(err).Msg("state file close")
+		}
+	}()
+
+	svc, err := ingest.New(ingest.Options{
+		Conn:             bus.nc,
+		DB:               db,
+		Sensor:           sensorConfig(cfg),
+		Mode:             ingestMode(cfg.Bus.Mode),
+		SubjectPrefix:    cfg.Bus.SubjectPrefix,
+		RejectedSubject:  cfg.Bus.RejectedSubject,
+		StreamName:       cfg.Bus.StreamName,
+		CommitInterval:   cfg.Store.CommitInterval,
+		CommitReadings:   cfg.Store.CommitReadings,
+		FutureSkew:       cfg.Bus.FutureSkew,
+		MaxPayload:       cfg.Bus.MaxPayloadBytes,
+		HistoryRetention: cfg.Store.HistoryRetention,
+		Logger:           &log,
+		Metrics:          metrics,
+	})
+	if err != nil {
+		return err
+	}
+
+	if cfg.HTTP.Addr != "off" {
+		stop, err := serveHTTP(cfg.HTTP.Addr, promhttp.HandlerFor(reg, promhttp.HandlerOpts{}), log, "metrics")
+		if err != nil {
+			return err
+		}
+		defer stop()
+	}
+	if *pprofAddr != "" {
+		if host, _, err := net.SplitHostPort(*pprofAddr); err != nil || !isLoopback(host) {
+			return usageError("--pprof-addr %q: want a loopback address such as 127.0.0.1:6060", *pprofAddr)
+		}
+		mux := http.NewServeMux()
+		mux.HandleFunc("/debug/pprof/", pprof.Index)
+		mux.HandleFunc("/debug/pprof/profile", pprof.Profile)
+		mux.HandleFunc("/debug/pprof/trace", pprof.Trace)
+		stop, err := serveHTTP(*pprofAddr, mux, log, "pprof")
+		if err != nil {
+			return err
+		}
+		defer stop()
+	}
+
+	runCtx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	demoDone := make(chan error, 1)
+	if *demo {
+		go func() {
+			demoDone <- publishDemo(runCtx, bus.nc, demoOptions{prefix: cfg.Bus.SubjectPrefix, live: true}, log)
+		}()
+	} else {
+		demoDone <- nil
+	}
+	err = svc.Run(runCtx)
+	cancel()
+	if derr := <-demoDone; derr != nil && !errors.Is(derr, context.Canceled) {
+		log.Error().Err(derr).Msg("demo feed")
+	}
+	return err
+}
+
+func ingestMode(m configs.Mode) ingest.Mode {
+	if m == configs.ModeDirect {
+		return ingest.ModeDirect
+	}
+	return ingest.ModeStream
+}
+
+// sensorConfig maps the configuration onto what ingest needs per sensor.
+// A sensor that matches no class is still fitted, with the default
+// windows and no unit check, so no reading is lost to a missing pattern.
+func sensorConfig(cfg *configs.Config) func(id string) (ingest.SensorConfig, error) {
+	toSpecs := func(ws []configs.Window) []rolling.WindowSpec {
+		out := make([]rolling.WindowSpec, len(ws))
+		for i, w := range ws {
+			out[i] = rolling.WindowSpec{Span: w.Span, Pane: w.Pane}
+		}
+		return out
+	}
+	return func(id string) (ingest.SensorConfig, error) {
+		c, err := cfg.ClassFor(id)
+		if errors.Is(err, configs.ErrNoClass) {
+			return ingest.SensorConfig{Windows: toSpecs(cfg.Defaults.Windows)}, nil
+		}
+		if err != nil {
+			return ingest.SensorConfig{}, err
+		}
+		return ingest.SensorConfig{Windows: toSpecs(c.Windows), Unit: c.Unit}, nil
+	}
+}
+
+func newLogger(w io.Writer, format, level string) (zerolog.Logger, error) {
+	lvl, err := zerolog.ParseLevel(level)
+	if err != nil {
+		return zerolog.Logger{}, fmt.Errorf("--log-level %q: %w", level, err)
+	}
+	switch format {
+	case "json":
+	case "console":
+		w = zerolog.ConsoleWriter{Out: w, TimeFormat: time.RFC3339}
+	default:
+		return zerolog.Logger{}, fmt.Errorf("--log-format %q: want json or console", format)
+	}
+	return zerolog.New(w).Level(lvl).With().Timestamp().Logger(), nil
+}
+
+func isLoopback(host string) bool {
+	if host == "localhost" {
+		return true
+	}
+	ip := net.ParseIP(host)
+	return ip != nil && ip.IsLoopback()
+}
+
+// serveHTTP serves h on addr until the returned stop is called.
+func serveHTTP(addr string, h http.Handler, log zerolog.Logger, what string) (stop func(), err error) {
+	ln, err := net.Listen("tcp", addr)
+	if err != nil {
+		return nil, fmt.Errorf("%s listener: %w", what, err)
+	}
+	srv := &http.Server{Handler: h, ReadHeaderTimeout: 5 * time.Second}
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		if err := srv.Serve(ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
+			log.Error().Err(err).Str("addr", addr).Msg(what + " listener")
+		}
+	}()
+	log.Info().Str("addr", "http://"+ln.Addr().String()).Msg(what + " listening")
+	return func() {
+		ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
+		defer cancel()
+		_ = srv.Shutdown(ctx)
+		<-done
+	}, nil
+}
+
+// busConn is the NATS connection, and the embedded server if we run one.
+type busConn struct {
+	nc *nats.Conn
+	ns *server.Server
+}
+
+func (b *busConn) close() {
+	if b.nc != nil {
+		b.nc.Close()
+	}
+	if b.ns != nil {
+		b.ns.Shutdown()
+		b.ns.WaitForShutdown()
+	}
+}
+
+// connectBus starts the embedded NATS server when no servers are
+// configured, else connects to them; either way the connection reconnects
+// forever and logs every state change.
+func connectBus(cfg *configs.Config, port int, log zerolog.Logger, m *ingest.Metrics) (*busConn, error) {
+	blog := log.With().Str("component", "bus").Logger()
+	opts := []nats.Option{
+		nats.Name("driftfit"),
+		nats.MaxReconnects(-1),
+		nats.ReconnectWait(time.Second),
+		nats.ReconnectJitter(500*time.Millisecond, 2*time.Second),
+		nats.ConnectHandler(func(nc *nats.Conn) {
+			m.BusConnected.Set(1)
+			blog.Info().Str("url", nc.ConnectedUrlRedacted()).Msg("bus connected")
+		}),
+		nats.DisconnectErrHandler(func(_ *nats.Conn, err error) {
+			m.BusConnected.Set(0)
+			blog.Warn().Err(err).Msg("bus disconnected")
+		}),
+		nats.ReconnectHandler(func(nc *nats.Conn) {
+			m.BusConnected.Set(1)
+			blog.Info().Str("url", nc.ConnectedUrlRedacted()).Msg("bus reconnected")
+		}),
+		nats.ClosedHandler(func(*nats.Conn) {
+			m.BusConnected.Set(0)
+			blog.Info().Msg("bus connection closed")
+		}),
+		nats.ErrorHandler(func(_ *nats.Conn, sub *nats.Subscription, err error) {
+			if errors.Is(err, nats.ErrSlowConsumer) {
+				m.SlowConsumer.Inc()
+			}
+			ev := blog.Warn().Err(err)
+			if sub != nil {
+				ev = ev.Str("subject", sub.Subject)
+			}
+			ev.Msg("bus error")
+		}),
+	}
+	b := &busConn{}
+	if len(cfg.Bus.Servers) == 0 {
+		ns, err := server.NewServer(&server.Options{
+			ServerName: "driftfit-embedded",
+			Host:       "127.0.0.1",
+			Port:       port,
+			JetStream:  true,
+			StoreDir:   filepath.Join(cfg.Store.Dir, "nats"),
+			NoSigs:     true,
+			NoLog:      true,
+			MaxPayload: int32(max(cfg.Bus.MaxPayloadBytes, 1<<20)),
+		})
+		if err != nil {
+			return nil, fmt.Errorf("embedded NATS server: %w", err)
+		}
+		go ns.Start()
+		if !ns.ReadyForConnections(10 * time.Second) {
+			ns.Shutdown()
+			return nil, errors.New("embedded NATS server: not ready after 10s")
+		}
+		b.ns = ns
+		blog.Info().Str("url", ns.ClientURL()).Str("store", filepath.Join(cfg.Store.Dir, "nats")).Msg("embedded NATS server listening")
+		opts = append(opts, nats.InProcessServer(ns))
+		nc, err := nats.Connect(ns.ClientURL(), opts...)
+		if err != nil {
+			b.close()
+			return nil, err
+		}
+		b.nc = nc
+		m.BusConnected.Set(1)
+		return b, nil
+	}
+
+	if cfg.Bus.User != "" {
+		pw := ""
+		if cfg.Bus.PasswordEnv != "" {
+			pw = os.Getenv(cfg.Bus.PasswordEnv)
+		}
+		opts = append(opts, nats.UserInfo(cfg.Bus.User, pw))
+	}
+	if cfg.Bus.TokenEnv != "" {
+		opts = append(opts, nats.Token(os.Getenv(cfg.Bus.TokenEnv)))
+	}
+	if cfg.Bus.CredsFile != "" {
+		opts = append(opts, nats.UserCredentials(cfg.Bus.CredsFile))
+	}
+	if t := cfg.Bus.TLS; t.CAFile != "" || t.CertFile != "" {
+		if t.CAFile != "" {
+			opts = append(opts, nats.RootCAs(t.CAFile))
+		}
+		if t.CertFile != "" {
+			opts = append(opts, nats.ClientCert(t.CertFile, t.KeyFile))
+		}
+	}
+	// Keep trying to connect at start too: the bus may come up after us.
+	opts = append(opts, nats.RetryOnFailedConnect(true))
+	nc, err := nats.Connect(strings.Join(cfg.Bus.Servers, ","), opts...)
+	if err != nil {
+		return nil, fmt.Errorf("connect to %v: %w", cfg.Bus.Servers, err)
+	}
+	b.nc = nc
+	return b, nil
+}

@@ -1,0 +1,152 @@
+package ingest
+
+import (
+	"fmt"
+	"time"
+
+	"github.com/nats-io/nats.go/jetstream"
+
+	"driftfit/store"
+)
+
+// commitToken travels down every worker queue behind the readings of one
+// commit; each worker answers with a snapshot of what changed.
+type commitToken struct {
+	parts chan part
+}
+
+type part struct {
+	w       *worker
+	batch   *store.Batch
+	applied uint64
+	err     error
+}
+
+type commitReq struct {
+	tok    *commitToken
+	pos    uint64 // stream position the state corresponds to; 0 in direct mode
+	ack    jetstream.Msg
+	issued time.Time
+}
+
+// commit cuts the stream at the last message handled: every worker
+// snapshots its changed sensors once it has applied everything before the
+// cut, and the committer writes the snapshots and the position in one
+// transaction. It blocks while the previous commit is still writing,
+// which is what bounds the work in flight.
+func (s *Service) commit() {
+	s.flush()
+	tok := &commitToken{parts: make(chan part, len(s.workers))}
+	for _, w := range s.workers {
+		w.in <- &workBatch{token: tok}
+	}
+	req := commitReq{tok: tok, issued: time.Now()}
+	if s.o.Mode == ModeStream {
+		req.pos, req.ack = s.lastSeq, s.lastMsg
+	}
+	s.commits <- req
+	s.sinceCommit, s.dirty = 0, false
+}
+
+// snapshot answers a commit token: the changed panes, specs and horizons
+// of the sensors touched since the last token, and the fits recorded at
+// pane closes.
+func (w *worker) snapshot(tok *commitToken) {
+	b := <-w.pool
+	var err error
+	for _, ref := range w.touch {
+		ref.st.touched = false
+		if e := b.Sensor(ref.id, ref.st.sensor); e != nil && err == nil {
+			err = fmt.Errorf("sensor %s: %w", ref.id, e)
+		}
+	}
+	clear(w.touch)
+	w.touch = w.touch[:0]
+	for i := range w.hist {
+		h := &w.hist[i]
+		if e := b.Record(h.ref.id, &h.sol); e != nil && err == nil {
+			err = fmt.Errorf("fit record of %s: %w", h.ref.id, e)
+		}
+	}
+	clear(w.hist)
+	w.hist = w.hist[:0]
+	tok.parts <- part{w: w, batch: b, applied: w.applied, err: err}
+}
+
+// committer writes commits in order, then acknowledges them on the bus.
+// It is the only writer of the DB while the service runs.
+func (s *Service) committer() {
+	var pruneNext time.Time
+	for req := range s.commits {
+		parts := make([]part, 0, len(s.workers))
+		var applied uint64
+		var err error
+		for range s.workers {
+			p := <-req.tok.parts
+			parts = append(parts, p)
+			applied += p.applied
+			if p.err != nil && err == nil {
+				err = p.err
+			}
+		}
+		batches := make([]*store.Batch, len(parts))
+		for i := range parts {
+			batches[i] = parts[i].batch
+		}
+		if req.pos != 0 {
+			batches[0].SetPosition(req.pos)
+		}
+		batches[0].SetApplied(applied)
+		var st store.CommitStats
+		t0 := time.Now()
+		if err == nil {
+			st, err = s.o.DB.Commit(batches...)
+		}
+		for _, p := range parts {
+			p.w.pool <- p.batch
+		}
+		if err != nil {
+			// The file keeps the last good commit; Run stops, and a
+			// restart resumes from that commit's position.
+			s.fail(fmt.Errorf("ingest: commit at position %d: %w", req.pos, err))
+			continue
+		}
+		took := time.Since(t0)
+		if req.pos != 0 {
+			s.position.Store(req.pos)
+		}
+		if m := s.o.Metrics; m != nil {
+			m.CommitTime.Observe(took.Seconds())
+			m.CommitBytes.Add(float64(st.Bytes))
+		}
+		s.log.Debug().Uint64("position", req.pos).Int("bytes", st.Bytes).Int("puts", st.Puts).Dur("took", took).Msg("committed")
+		if req.ack != nil {
+			if err := req.ack.Ack(); err != nil {
+				s.log.Warn().Err(err).Uint64("position", req.pos).Msg("acknowledgement not sent")
+			}
+		}
+		if r := s.o.HistoryRetention; r > 0 && !time.Now().Before(pruneNext) {
+			n, more, err := s.o.DB.PruneHistory(s.o.Now().Add(-r), 500)
+			switch {
+			case err != nil:
+				s.log.Error().Err(err).Msg("history retention")
+				pruneNext = time.Now().Add(time.Minute)
+			case more:
+				// Keep going, one small chunk per commit.
+			default:
+				pruneNext = time.Now().Add(time.Minute)
+			}
+			if n > 0 {
+				s.log.Debug().Int("n", n).Msg("old fit history deleted")
+			}
+		}
+	}
+}
+
+// fail reports a fatal error to Run once.
+func (s *Service) fail(err error) {
+	select {
+	case s.fatal <- err:
+	default:
+	}
+}

@@ -1,0 +1,61 @@
+package ingest
+
+import "github.com/prometheus/client_golang/prometheus"
+
+// Metrics are the service's Prometheus instruments. Register them with
+// Register; a nil *Metrics records nothing.
+type Metrics struct {
+	Messages     prometheus.Counter
+	Applied      prometheus.Counter
+	Rejected     *prometheus.CounterVec // by reason
+	Sensors      prometheus.Gauge
+	CommitTime   prometheus.Histogram
+	CommitBytes  prometheus.Counter
+	StreamLag    prometheus.Gauge
+	BusConnected prometheus.Gauge
+	SlowConsumer prometheus.Counter
+}
+
+// NewMetrics returns the instruments, not yet registered.
+func NewMetrics() *Metrics {
+	return &Metrics{
+		Messages: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "driftfit_messages_total", Help: "Messages taken from the bus.",
+		}),
+		Applied: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "driftfit_readings_applied_total", Help: "Readings applied to the fits.",
+		}),
+		Rejected: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "driftfit_readings_rejected_total", Help: "Readings (or whole payloads) refused, by reason.",
+		}, []string{"reason"}),
+		Sensors: prometheus.NewGauge(prometheus.GaugeOpts{
+			Name: "driftfit_sensors_live", Help: "Sensors held in memory.",
+		}),
+		CommitTime: prometheus.NewHistogram(prometheus.HistogramOpts{
+			Name: "driftfit_commit_seconds", Help: "Time to write one commit to the state file, fsync included.",
+			Buckets: prometheus.ExponentialBuckets(0.0005, 2, 14),
+		}),
+		CommitBytes: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "driftfit_commit_bytes_total", Help: "Key and value bytes written to the state file.",
+		}),
+		StreamLag: prometheus.NewGauge(prometheus.GaugeOpts{
+			Name: "driftfit_stream_lag_messages", Help: "Messages in the stream not yet delivered to driftfit (stream mode).",
+		}),
+		BusConnected: prometheus.NewGauge(prometheus.GaugeOpts{
+			Name: "driftfit_bus_connected", Help: "1 while connected to the NATS bus, else 0.",
+		}),
+		SlowConsumer: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "driftfit_slow_consumer_total", Help: "Slow-consumer events on the bus connection (direct mode drops messages then).",
+		}),
+	}
+}
+
+// Register registers every instrument with r.
+func (m *Metrics) Register(r prometheus.Registerer) error {
+	for _, c := range []prometheus.Collector{m.Messages, m.Applied, m.Rejected, m.Sensors, m.CommitTime, m.CommitBytes, m.StreamLag, m.BusConnected, m.SlowConsumer} {
+		if err := r.Register(c); err != nil {
+			return err
+		}
+	}
+	return nil
+}

@@ -1,0 +1,532 @@
+package ingest
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"hash/maphash"
+	"strconv"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+	"github.com/rs/zerolog"
+
+	"driftfit/rolling"
+	"driftfit/store"
+)
+
+// Dead-letter headers: why a message was refused.
+const (
+	HeaderReason   = "Driftfit-Reason"   // reason label of the (first) problem
+	HeaderError    = "Driftfit-Error"    // its error text
+	HeaderSubject  = "Driftfit-Subject"  // the subject the input arrived on
+	HeaderRejected = "Driftfit-Rejected" // per-reading problems of a batch: "index:reason,..."
+)
+
+// Sizes of the internal queues, chosen so a burst of 100-reading batches
+// keeps every worker busy without holding more than a few MB in flight.
+const (
+	inboxLen      = 4096 // messages between the bus callback and the dispatcher
+	drainMax      = 1024 // messages the dispatcher takes before flushing to workers
+	jobsPerBatch  = 256  // jobs in one hand-off to a worker
+	workQueueLen  = 64   // hand-offs queued per worker
+	maxAckPending = 1 << 16
+)
+
+// message is one bus message, either mode.
+type message struct {
+	subject string
+	data    []byte
+	seq     uint64        // stream sequence; 0 in direct mode
+	pending uint64        // messages left in the stream after this one
+	js      jetstream.Msg // for the acknowledgement; nil in direct mode
+}
+
+// sensorRef routes one sensor. The dispatcher owns the map of refs and
+// reads id, worker and unit; st belongs to the worker alone.
+type sensorRef struct {
+	id     string
+	worker int
+	unit   string
+	st     *sensorState
+}
+
+type sensorState struct {
+	sensor  *rolling.Sensor
+	touched bool // listed in the worker's touched since the last commit
+}
+
+// Service reads readings from NATS into per-sensor fits and commits them
+// to the DB. Create it with New, run it with Run.
+type Service struct {
+	o      Options
+	log    zerolog.Logger
+	badLog zerolog.Logger // rate-limited, for refused input
+
+	refs    map[string]*sensorRef // dispatcher only
+	workers []*worker
+	seed    maphash.Seed
+	dec     Decoder
+	prefix  string // SubjectPrefix + "."
+
+	// dispatcher state
+	pending     []*workBatch // per worker, being filled
+	lastMsg     jetstream.Msg
+	lastSeq     uint64
+	sinceCommit int
+	dirty       bool
+
+	commits chan commitReq
+	fatal   chan error
+
+	messages, applied, rejected atomic.Uint64
+	position                    atomic.Uint64
+	sensors                     atomic.Int64
+}
+
+// New checks the options and returns a service ready to Run.
+func New(o Options) (*Service, error) {
+	if err := o.fill(); err != nil {
+		return nil, err
+	}
+	s := &Service{
+		o:       o,
+		log:     o.Logger.With().Str("component", "ingest").Logger(),
+		refs:    map[string]*sensorRef{},
+		seed:    maphash.MakeSeed(),
+		dec:     Decoder{MaxBytes: o.MaxPayload},
+		prefix:  o.SubjectPrefix + ".",
+		commits: make(chan commitReq, 1),
+		fatal:   make(chan error, 1),
+	}
+	s.badLog = s.log.Sample(&zerolog.BurstSampler{Burst: 10, Period: 10 * time.Second})
+	for i := range o.Workers {
+		s.workers = append(s.workers, newWorker(s, i))
+	}
+	s.pending = make([]*workBatch, o.Workers)
+	return s, nil
+}
+
+// Stats returns the running totals. It is safe to call from any goroutine.
+func (s *Service) Stats() Stats {
+	return Stats{
+		Messages: s.messages.Load(),
+		Applied:  s.applied.Load(),
+		Rejected: s.rejected.Load(),
+		Sensors:  int(s.sensors.Load()),
+		Position: s.position.Load(),
+	}
+}
+
+// Run restores the sensors from the DB, reads the bus until ctx is done,
+// then stops taking messages, applies what it received, commits, and
+// returns nil. It returns an error if it cannot start or if a commit
+// fails; the file then still holds the last good commit, and a restart
+// resumes from it.
+func (s *Service) Run(ctx context.Context) error {
+	if err := s.restore(); err != nil {
+		return err
+	}
+	var wg sync.WaitGroup
+	for _, w := range s.workers {
+		wg.Add(1)
+		go func() { defer wg.Done(); w.run() }()
+	}
+	committerDone := make(chan struct{})
+	go func() { defer close(committerDone); s.committer() }()
+	stopAll := func() {
+		close(s.commits)
+		<-committerDone
+		for _, w := range s.workers {
+			close(w.in)
+		}
+		wg.Wait()
+	}
+
+	in := make(chan message, inboxLen)
+	src, err := s.start(ctx, in)
+	if err != nil {
+		stopAll()
+		return err
+	}
+	s.log.Info().Str("mode", s.o.Mode.String()).Str("subject", s.prefix+">").Int("workers", len(s.workers)).Int("sensors", len(s.refs)).Msg("ingest started")
+
+	tick := time.NewTicker(s.o.CommitInterval)
+	defer tick.Stop()
+	var runErr error
+loop:
+	for {
+		select {
+		case m := <-in:
+			s.handle(m)
+			s.drain(in, drainMax-1)
+			if s.sinceCommit >= s.o.CommitReadings {
+				s.commit()
+			}
+		case <-tick.C:
+			if s.dirty {
+				s.commit()
+			}
+		case runErr = <-s.fatal:
+			break loop
+		case <-ctx.Done():
+			break loop
+		}
+	}
+
+	// Stop taking messages, apply what was received, commit, stop.
+	stopped := make(chan struct{})
+	go func() { defer close(stopped); src.stop() }()
+	for waiting := true; waiting; {
+		select {
+		case m := <-in:
+			s.handle(m)
+			s.drain(in, drainMax-1)
+		case <-stopped:
+			waiting = false
+		}
+	}
+	s.drain(in, len(in))
+	if runErr == nil {
+		s.commit()
+	}
+	stopAll()
+	select {
+	case err := <-s.fatal:
+		runErr = errors.Join(runErr, err)
+	default:
+	}
+	st := s.Stats()
+	s.log.Info().Uint64("messages", st.Messages).Uint64("applied", st.Applied).Uint64("rejected", st.Rejected).
+		Int("sensors", st.Sensors).Uint64("position", st.Position).Msg("ingest stopped")
+	return runErr
+}
+
+// drain handles up to max more messages already queued, then hands the
+// filled batches to the workers.
+func (s *Service) drain(in chan message, max int) {
+	for range max {
+		select {
+		case m := <-in:
+			s.handle(m)
+			continue
+		default:
+		}
+		break
+	}
+	s.flush()
+}
+
+// restore rebuilds the stored sensors and hands them to their workers.
+func (s *Service) restore() error {
+	units := map[string]string{}
+	t0 := time.Now()
+	var dropped int
+	err := s.o.DB.Restore(func(id string) (*rolling.Sensor, error) {
+		cfg, err := s.o.Sensor(id)
+		if err != nil {
+			s.log.Warn().Str("sensor", id).Err(err).Msg("stored sensor has no configuration; left out")
+			return nil, nil
+		}
+		units[id] = cfg.Unit
+		return rolling.NewSensor(cfg.Windows...)
+	}, func(r store.Restored) error {
+		if r.Changed {
+			s.log.Info().Str("sensor", r.ID).Msg("windows changed since the state was saved; panes of kept widths carried over")
+		}
+		dropped += r.Dropped
+		s.addRef(r.ID, units[r.ID], r.Sensor)
+		return nil
+	})
+	if err != nil {
+		return fmt.Errorf("ingest: restore: %w", err)
+	}
+	pos, err := s.o.DB.Position()
+	if err != nil {
+		return err
+	}
+	s.position.Store(pos)
+	s.lastSeq = pos
+	s.log.Info().Int("sensors", len(s.refs)).Int("dropped_panes", dropped).Uint64("position", pos).
+		Dur("took", time.Since(t0)).Msg("state restored")
+	return nil
+}
+
+func (s *Service) addRef(id, unit string, sensor *rolling.Sensor) *sensorRef {
+	ref := &sensorRef{
+		id:     id,
+		worker: int(maphash.String(s.seed, id) % uint64(len(s.workers))),
+		unit:   unit,
+		st:     &sensorState{sensor: sensor},
+	}
+	s.refs[id] = ref
+	s.sensors.Add(1)
+	if m := s.o.Metrics; m != nil {
+		m.Sensors.Set(float64(s.sensors.Load()))
+	}
+	return ref
+}
+
+// source is a running subscription.
+type source struct{ stop func() }
+
+// start subscribes to the bus, feeding in.
+func (s *Service) start(ctx context.Context, in chan message) (*source, error) {
+	quit := make(chan struct{})
+	push := func(m message) {
+		select {
+		case in <- m:
+		case <-quit:
+		}
+	}
+	if s.o.Mode == ModeDirect {
+		sub, err := s.o.Conn.Subscribe(s.prefix+">", func(m *nats.Msg) {
+			push(message{subject: m.Subject, data: m.Data})
+		})
+		if err != nil {
+			return nil, fmt.Errorf("ingest: subscribe %s>: %w", s.prefix, err)
+		}
+		// Hold up to a million messages or 256 MiB in the client before
+		// it reports a slow consumer and drops: bursts wait, floods are
+		// counted (Metrics.SlowConsumer, set by the connection's handler).
+		if err := sub.SetPendingLimits(1<<20, 256<<20); err != nil {
+			return nil, err
+		}
+		if err := s.o.Conn.Flush(); err != nil {
+			return nil, err
+		}
+		return &source{stop: func() {
+			closed := sub.StatusChanged(nats.SubscriptionClosed)
+			if err := sub.Drain(); err == nil {
+				select {
+				case <-closed:
+				case <-time.After(5 * time.Second):
+				}
+			}
+			close(quit)
+		}}, nil
+	}
+
+	js, err := jetstream.New(s.o.Conn)
+	if err != nil {
+		return nil, err
+	}
+	if _, err := js.Stream(ctx, s.o.StreamName); errors.Is(err, jetstream.ErrStreamNotFound) {
+		_, err = js.CreateStream(ctx, jetstream.StreamConfig{
+			Name:     s.o.StreamName,
+			Subjects: []string{s.prefix + ">"},
+			Storage:  jetstream.FileStorage,
+		})
+		if err != nil {
+			return nil, fmt.Errorf("ingest: create stream %s: %w", s.o.StreamName, err)
+		}
+		s.log.Info().Str("stream", s.o.StreamName).Str("subject", s.prefix+">").Msg("stream created")
+	} else if err != nil {
+		return nil, fmt.Errorf("ingest: stream %s: %w", s.o.StreamName, err)
+	}
+	// The DB's position, not the consumer's, says where to resume: the
+	// consumer is made anew from the message after it at every start.
+	if err := js.DeleteConsumer(ctx, s.o.StreamName, s.o.Durable); err != nil && !errors.Is(err, jetstream.ErrConsumerNotFound) {
+		return nil, fmt.Errorf("ingest: reset consumer %s: %w", s.o.Durable, err)
+	}
+	cfg := jetstream.ConsumerConfig{
+		Durable:       s.o.Durable,
+		AckPolicy:     jetstream.AckAllPolicy,
+		AckWait:       time.Minute,
+		MaxAckPending: maxAckPending,
+		FilterSubject: s.prefix + ">",
+		DeliverPolicy: jetstream.DeliverAllPolicy,
+	}
+	if pos := s.position.Load(); pos > 0 {
+		cfg.DeliverPolicy, cfg.OptStartSeq = jetstream.DeliverByStartSequencePolicy, pos+1
+	}
+	cons, err := js.CreateConsumer(ctx, s.o.StreamName, cfg)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: create consumer %s: %w", s.o.Durable, err)
+	}
+	cc, err := cons.Consume(func(m jetstream.Msg) {
+		md, err := m.Metadata()
+		if err != nil {
+			s.log.Warn().Err(err).Str("subject", m.Subject()).Msg("message without stream metadata skipped")
+			return
+		}
+		push(message{subject: m.Subject(), data: m.Data(), seq: md.Sequence.Stream, pending: md.NumPending, js: m})
+	}, jetstream.PullMaxMessages(2048), jetstream.ConsumeErrHandler(func(_ jetstream.ConsumeContext, err error) {
+		s.log.Warn().Err(err).Msg("stream consumer")
+	}))
+	if err != nil {
+		return nil, fmt.Errorf("ingest: consume: %w", err)
+	}
+	return &source{stop: func() {
+		cc.Stop()
+		select {
+		case <-cc.Closed():
+		case <-time.After(5 * time.Second):
+		}
+		close(quit)
+	}}, nil
+}
+
+// handle decodes, validates and routes one message.
+func (s *Service) handle(m message) {
+	if m.seq != 0 {
+		if m.seq <= s.lastSeq {
+			return // a redelivery of a message already applied
+		}
+		s.lastSeq, s.lastMsg = m.seq, m.js
+		s.dirty = true
+		if mt := s.o.Metrics; mt != nil {
+			mt.StreamLag.Set(float64(m.pending))
+		}
+	}
+	if m.subject == s.o.RejectedSubject {
+		return // our own dead letters, captured by the stream
+	}
+	s.messages.Add(1)
+	if mt := s.o.Metrics; mt != nil {
+		mt.Messages.Inc()
+	}
+	id, ok := strings.CutPrefix(m.subject, s.prefix)
+	if !ok || id == "" {
+		s.deadLetter(m, ReasonMalformed, fmt.Errorf("subject %q has no sensor id after %q", m.subject, s.prefix), nil)
+		return
+	}
+	p, err := s.dec.Decode(m.data)
+	if err != nil {
+		reason := ReasonMalformed
+		var pe *PayloadError
+		if errors.As(err, &pe) {
+			reason = pe.Reason
+		}
+		s.deadLetter(m, reason, err, nil)
+		return
+	}
+	if p.Sensor != nil && string(p.Sensor) != id {
+		s.deadLetter(m, ReasonMalformed, fmt.Errorf("payload sensor %q differs from subject sensor %q", p.Sensor, id), nil)
+		return
+	}
+	ref := s.refs[id]
+	if ref == nil {
+		cfg, err := s.o.Sensor(id)
+		if err != nil {
+			s.deadLetter(m, ReasonMalformed, fmt.Errorf("sensor %q: %w", id, err), nil)
+			return
+		}
+		sensor, err := rolling.NewSensor(cfg.Windows...)
+		if err != nil {
+			s.deadLetter(m, ReasonMalformed, fmt.Errorf("sensor %q windows: %w", id, err), nil)
+			return
+		}
+		ref = s.addRef(strings.Clone(id), cfg.Unit, sensor)
+	}
+	rejects := p.Rejects
+	limit := s.o.Now().Add(s.o.FutureSkew).UnixNano()
+	b := s.batchFor(ref.worker)
+	off := len(b.readings)
+	for i := range p.Readings {
+		d := &p.Readings[i]
+		switch {
+		case d.UnixNano > limit:
+			rejects = append(rejects, Reject{Index: s.index(p, i), Field: "t", Value: time.Unix(0, d.UnixNano).UTC().Format(time.RFC3339Nano),
+				Reason: ReasonFutureTime, Err: fmt.Errorf("time more than %v ahead of now", s.o.FutureSkew)})
+			continue
+		case d.Unit != nil && ref.unit != "" && string(d.Unit) != ref.unit:
+			rejects = append(rejects, Reject{Index: s.index(p, i), Field: "unit", Value: string(d.Unit),
+				Reason: ReasonUnitMismatch, Err: fmt.Errorf("sensor %s is configured in %s", id, ref.unit)})
+			continue
+		}
+		v := d.Value
+		if d.HasRef {
+			v -= d.Ref
+		}
+		b.readings = append(b.readings, rolling.Reading{UnixNano: d.UnixNano, Value: v})
+	}
+	if n := len(b.readings) - off; n > 0 {
+		b.jobs = append(b.jobs, job{ref: ref, off: off, n: n})
+		s.sinceCommit += n
+		s.dirty = true
+		if len(b.jobs) >= jobsPerBatch {
+			s.flushWorker(ref.worker)
+		}
+	}
+	if len(rejects) > 0 {
+		s.deadLetter(m, rejects[0].Reason, rejects[0].Err, rejects)
+	}
+}
+
+// index returns the payload position of accepted reading i: the decoder
+// lists accepted readings in order, skipping the refused ones.
+func (s *Service) index(p Payload, i int) int {
+	idx := i
+	for _, r := range p.Rejects {
+		if r.Index <= idx {
+			idx++
+		}
+	}
+	return idx
+}
+
+// deadLetter counts refused input and republishes the message to the
+// rejected subject with the reasons in headers. rejects lists per-reading
+// problems of a payload whose other readings were kept.
+func (s *Service) deadLetter(m message, reason Reason, cause error, rejects []Reject) {
+	n := max(1, len(rejects))
+	s.rejected.Add(uint64(n))
+	if mt := s.o.Metrics; mt != nil {
+		if len(rejects) == 0 {
+			mt.Rejected.WithLabelValues(reason.String()).Inc()
+		}
+		for _, r := range rejects {
+			mt.Rejected.WithLabelValues(r.Reason.String()).Inc()
+		}
+	}
+	s.badLog.Warn().Str("subject", m.subject).Str("reason", reason.String()).Int("n", n).Err(cause).Msg("input rejected")
+	msg := nats.NewMsg(s.o.RejectedSubject)
+	msg.Data = m.data
+	msg.Header.Set(HeaderReason, reason.String())
+	if cause != nil {
+		msg.Header.Set(HeaderError, cause.Error())
+	}
+	msg.Header.Set(HeaderSubject, m.subject)
+	if len(rejects) > 0 {
+		var sb strings.Builder
+		for i, r := range rejects {
+			if i > 0 {
+				sb.WriteByte(',')
+			}
+			sb.WriteString(strconv.Itoa(r.Index))
+			sb.WriteByte(':')
+			sb.WriteString(r.Reason.String())
+		}
+		msg.Header.Set(HeaderRejected, sb.String())
+	}
+	if err := s.o.Conn.PublishMsg(msg); err != nil {
+		s.badLog.Error().Err(err).Str("subject", s.o.RejectedSubject).Msg("dead letter not published")
+	}
+}
+
+func (s *Service) batchFor(w int) *workBatch {
+	b := s.pending[w]
+	if b == nil {
+		b = s.workers[w].getBatch()
+		s.pending[w] = b
+	}
+	return b
+}
+
+func (s *Service) flushWorker(w int) {
+	if b := s.pending[w]; b != nil {
+		s.workers[w].in <- b
+		s.pending[w] = nil
+	}
+}
+
+func (s *Service) flush() {
+	for w := range s.pending {
+		s.flushWorker(w)
+	}
+}

@@ -1,0 +1,154 @@
+package ingest
+
+import (
+	"errors"
+	"runtime"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/rs/zerolog"
+
+	"driftfit/rolling"
+	"driftfit/store"
+)
+
+// Mode says how readings come off the bus.
+type Mode uint8
+
+const (
+	// ModeUnknown is the zero Mode; Options treat it as ModeStream.
+	ModeUnknown Mode = iota
+	// ModeStream consumes a JetStream stream with a durable pull consumer:
+	// every reading counts exactly once across crashes and restarts.
+	ModeStream
+	// ModeDirect subscribes with core NATS: lowest latency, at most once.
+	ModeDirect
+)
+
+func (m Mode) String() string {
+	switch m {
+	case ModeStream:
+		return "stream"
+	case ModeDirect:
+		return "direct"
+	}
+	return "unknown"
+}
+
+// SensorConfig is what the service needs to know of one sensor.
+type SensorConfig struct {
+	Windows []rolling.WindowSpec
+	// Unit is the sensor's engineering unit; readings that carry another
+	// unit are rejected. Empty: any unit is accepted.
+	Unit string
+}
+
+// Options configure a Service. Zero fields take the documented defaults.
+type Options struct {
+	// Conn is the NATS connection. Required.
+	Conn *nats.Conn
+	// DB holds the sensors' state, the fit history and the stream
+	// position. Required.
+	DB *store.DB
+	// Sensor returns the configuration of a sensor id, or an error for an
+	// id that has none (its readings are then rejected). Required.
+	Sensor func(id string) (SensorConfig, error)
+
+	// Mode defaults to ModeStream.
+	Mode Mode
+	// SubjectPrefix: readings arrive on <SubjectPrefix>.<sensor id>.
+	// Default "driftfit.in".
+	SubjectPrefix string
+	// RejectedSubject receives refused input with the reason in headers.
+	// Default <SubjectPrefix>.rejected. Messages on it are never read as
+	// readings, so "rejected" cannot be a sensor id.
+	RejectedSubject string
+	// StreamName is the JetStream stream holding readings (ModeStream).
+	// Default "DRIFTFIT". It is created, capturing <SubjectPrefix>.>, if
+	// it does not exist.
+	StreamName string
+	// Durable names the pull consumer (ModeStream). Default "driftfit".
+	Durable string
+	// Workers is the count of goroutines that own the sensors, each a
+	// share by hash of the id. Default runtime.GOMAXPROCS(0).
+	Workers int
+	// CommitInterval is the longest time between two commits to the DB.
+	// Default 200ms.
+	CommitInterval time.Duration
+	// CommitReadings starts a commit early once this many readings were
+	// applied since the last one. Default 10,000.
+	CommitReadings int
+	// FutureSkew is how far a reading's time may lie ahead of Now.
+	// Default 5m.
+	FutureSkew time.Duration
+	// MaxPayload is the largest payload accepted, in bytes. Default
+	// DefaultMaxBytes.
+	MaxPayload int
+	// HistoryRetention deletes fit history older than this, a little at
+	// a time between commits. Zero keeps history forever.
+	HistoryRetention time.Duration
+	// Now returns the current time. Default time.Now.
+	Now func() time.Time
+	// Logger receives the service's events. Default: a disabled logger.
+	Logger *zerolog.Logger
+	// Metrics, if not nil, is updated as the service runs.
+	Metrics *Metrics
+	// OnPaneClose, if not nil, is called by a sensor's worker with the
+	// window solution each time one of its panes closes (after that
+	// solution went into the fit history). It runs on the worker: keep
+	// it short, and do not keep sol past the call.
+	OnPaneClose func(id string, window int, sol *rolling.Solution)
+}
+
+func (o *Options) fill() error {
+	if o.Conn == nil || o.DB == nil || o.Sensor == nil {
+		return errors.New("ingest: Options need Conn, DB and Sensor")
+	}
+	if o.Mode == ModeUnknown {
+		o.Mode = ModeStream
+	}
+	if o.SubjectPrefix == "" {
+		o.SubjectPrefix = "driftfit.in"
+	}
+	if o.RejectedSubject == "" {
+		o.RejectedSubject = o.SubjectPrefix + ".rejected"
+	}
+	if o.StreamName == "" {
+		o.StreamName = "DRIFTFIT"
+	}
+	if o.Durable == "" {
+		o.Durable = "driftfit"
+	}
+	if o.Workers <= 0 {
+		o.Workers = runtime.GOMAXPROCS(0)
+	}
+	if o.CommitInterval <= 0 {
+		o.CommitInterval = 200 * time.Millisecond
+	}
+	if o.CommitReadings <= 0 {
+		o.CommitReadings = 10000
+	}
+	if o.FutureSkew <= 0 {
+		o.FutureSkew = 5 * time.Minute
+	}
+	if o.MaxPayload <= 0 {
+		o.MaxPayload = DefaultMaxBytes
+	}
+	if o.Now == nil {
+		o.Now = time.Now
+	}
+	if o.Logger == nil {
+		l := zerolog.Nop()
+		o.Logger = &l
+	}
+	return nil
+}
+
+// Stats are the service's running totals.
+type Stats struct {
+	Messages uint64 // messages taken from the bus
+	Applied  uint64 // readings applied to the fits (committed or not)
+	Rejected uint64 // readings and payloads refused
+	Sensors  int    // sensors held
+	Position uint64 // stream sequence of the last committed message
+}
