@@ -79,7 +79,7 @@ func (s *Service) committer() {
 	var pruneNext time.Time
 	for req := range s.commits {
 		parts := make([]part, 0, len(s.workers))
-		var applied uint64
+		applied := s.appliedBase
 		var err error
 		for range s.workers {
 			p := <-req.tok.parts

@@ -83,6 +83,10 @@ type Service struct {
 	commits chan commitReq
 	fatal   chan error
 
+	// appliedBase is the applied count of the restored state; the
+	// workers count from zero on top of it.
+	appliedBase uint64
+
 	messages, applied, rejected atomic.Uint64
 	position                    atomic.Uint64
 	sensors                     atomic.Int64
@@ -151,6 +155,9 @@ func (s *Service) Run(ctx context.Context) error {
 	src, err := s.start(ctx, in)
 	if err != nil {
 		stopAll()
+		if ctx.Err() != nil {
+			return nil // stopped while starting: nothing taken, nothing to commit
+		}
 		return err
 	}
 	s.log.Info().Str("mode", s.o.Mode.String()).Str("subject", s.prefix+">").Int("workers", len(s.workers)).Int("sensors", len(s.refs)).Msg("ingest started")
@@ -251,6 +258,9 @@ func (s *Service) restore() error {
 	}
 	s.position.Store(pos)
 	s.lastSeq = pos
+	if s.appliedBase, err = s.o.DB.Applied(); err != nil {
+		return err
+	}
 	s.log.Info().Int("sensors", len(s.refs)).Int("dropped_panes", dropped).Uint64("position", pos).
 		Dur("took", time.Since(t0)).Msg("state restored")
 	return nil
