@@ -116,6 +116,12 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		}
 	}()
 
+	var board *driftBoard
+	var onPaneClose func(string, int, *rolling.Solution)
+	if *demo {
+		board = newDriftBoard()
+		onPaneClose = board.paneClosed
+	}
 	svc, err := ingest.New(ingest.Options{
 		Conn:             bus.nc,
 		DB:               db,
@@ -131,6 +137,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		HistoryRetention: cfg.Store.HistoryRetention,
 		Logger:           &log,
 		Metrics:          metrics,
+		OnPaneClose:      onPaneClose,
 	})
 	if err != nil {
 		return err
@@ -165,6 +172,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		go func() {
 			demoDone <- publishDemo(runCtx, bus.nc, demoOptions{prefix: cfg.Bus.SubjectPrefix, live: true}, log)
 		}()
+		go board.run(runCtx, 10*time.Second, 3, log.With().Str("component", "demo").Logger())
 	} else {
 		demoDone <- nil
 	}
