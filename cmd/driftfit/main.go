@@ -33,6 +33,7 @@ func init() {
 		{"replay", "fit readings from a CSV file and print the final fits", runReplay},
 		{"serve", "run the service: read readings from NATS, keep and store the fits", runServe},
 		{"demo-feed", "generate readings of an invented plant", runDemoFeed},
+		{"history", "print or plot the fit history of a sensor from the database", runHistory},
 	}
 }
 
