@@ -78,6 +78,22 @@ type replayer struct {
 	last   *rolling.Sensor
 }
 
+// replayChunk is a run of parsed rows handed from the parser to the
+// applier, so parsing and fitting run on two cores.
+type replayChunk struct {
+	ids   []byte // the rows' sensor ids, back to back
+	ends  []int  // end of each row's id in ids
+	rds   []rolling.Reading
+	lines []int
+	errs  []error // per row; nil for a good row
+}
+
+const replayChunkRows = 4096
+
+func (c *replayChunk) reset() {
+	c.ids, c.ends, c.rds, c.lines, c.errs = c.ids[:0], c.ends[:0], c.rds[:0], c.lines[:0], c.errs[:0]
+}
+
 func replay(ctx context.Context, in io.Reader, wins []windowArg, strict bool, stderr io.Writer) (*replayer, error) {
 	rp := &replayer{wins: wins, sensors: map[string]*rolling.Sensor{}}
 	for _, w := range wins {
@@ -87,34 +103,84 @@ func replay(ctx context.Context, in io.Reader, wins []windowArg, strict bool, st
 	if err != nil {
 		return nil, err
 	}
-	for cr.Next() {
-		if rp.rows&0xffff == 0 && ctx.Err() != nil {
-			return nil, ctx.Err()
-		}
-		rp.rows++
-		id, rd, err := cr.Row()
-		if err == nil {
-			err = rp.add(id, rd)
-			if err != nil {
-				err = fmt.Errorf("line %d: sensor %q: %w", cr.Line(), id, err)
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	full := make(chan *replayChunk, 4)
+	free := make(chan *replayChunk, 6)
+	for range cap(free) {
+		free <- &replayChunk{}
+	}
+	parseErr := make(chan error, 1)
+	go func() {
+		defer close(full)
+		c := <-free
+		for cr.Next() {
+			id, rd, err := cr.Row()
+			c.ids = append(c.ids, id...)
+			c.ends = append(c.ends, len(c.ids))
+			c.rds = append(c.rds, rd)
+			c.lines = append(c.lines, cr.Line())
+			c.errs = append(c.errs, err)
+			if len(c.rds) < replayChunkRows {
+				continue
+			}
+			select {
+			case full <- c:
+			case <-ctx.Done():
+				parseErr <- ctx.Err()
+				return
+			}
+			select {
+			case c = <-free:
+			case <-ctx.Done():
+				parseErr <- ctx.Err()
+				return
 			}
 		}
-		if err == nil {
-			continue
+		if len(c.rds) > 0 {
+			select {
+			case full <- c:
+			case <-ctx.Done():
+				parseErr <- ctx.Err()
+				return
+			}
 		}
-		if strict {
-			return nil, err
+		parseErr <- cr.Err()
+	}()
+	for c := range full {
+		if ctx.Err() != nil {
+			return nil, ctx.Err()
 		}
-		rp.bad++
-		if errors.Is(err, rolling.ErrTooOld) {
-			rp.tooOld++
+		start := 0
+		for i := range c.rds {
+			id := c.ids[start:c.ends[i]]
+			start = c.ends[i]
+			rp.rows++
+			err := c.errs[i]
+			if err == nil {
+				if err = rp.add(id, c.rds[i]); err != nil {
+					err = fmt.Errorf("line %d: sensor %q: %w", c.lines[i], id, err)
+				}
+			}
+			if err == nil {
+				continue
+			}
+			if strict {
+				return nil, err
+			}
+			rp.bad++
+			if errors.Is(err, rolling.ErrTooOld) {
+				rp.tooOld++
+			}
+			if rp.shown < maxShownErrors {
+				rp.shown++
+				fmt.Fprintf(stderr, "driftfit replay: %v\n", err)
+			}
 		}
-		if rp.shown < maxShownErrors {
-			rp.shown++
-			fmt.Fprintf(stderr, "driftfit replay: %v\n", err)
-		}
+		c.reset()
+		free <- c
 	}
-	if err := cr.Err(); err != nil {
+	if err := <-parseErr; err != nil {
 		return nil, err
 	}
 	return rp, nil
