@@ -1,0 +1,262 @@
+package alert
+
+import (
+	"math"
+	"time"
+
+	"driftfit/rolling"
+)
+
+// evidence is what one evaluation of one limit found.
+type evidence struct {
+	// valid: the gates passed and at least one level of the limit was
+	// testable on this window. An invalid evaluation is no evidence
+	// either way.
+	valid bool
+	sev   Severity // highest level breached; SeverityUnknown for none
+	clear bool     // the clear statistic is below ClearFraction × lowest level
+
+	fit    *rolling.Fit
+	value  float64    // the fitted quantity, in report units
+	ci     [2]float64 // its 95% interval
+	limit  float64    // the breached level, or the lowest level; report units
+	beyond bool       // lead time only: no crossing within the horizon
+}
+
+type level struct {
+	sev Severity
+	v   float64
+}
+
+// rateLevels returns the set levels of l, least severe first.
+func rateLevels(l RateLimit) []level {
+	var out []level
+	if l.Warning > 0 {
+		out = append(out, level{Warning, l.Warning})
+	}
+	if l.Critical > 0 {
+		out = append(out, level{Critical, l.Critical})
+	}
+	return out
+}
+
+// durationLevels returns the set levels of l in days, least severe (the
+// longest) first.
+func durationLevels(l DurationLimit) []level {
+	var out []level
+	if l.Warning > 0 {
+		out = append(out, level{Warning, days(l.Warning)})
+	}
+	if l.Critical > 0 {
+		out = append(out, level{Critical, days(l.Critical)})
+	}
+	return out
+}
+
+func days(d time.Duration) float64 { return float64(d) / float64(day) }
+
+// usable reports whether a fit passes the fit-level gates: no error (or
+// only ErrConstant), a positive definite normal matrix, enough readings,
+// a condition number within MaxCond, and finite numbers.
+func (r *Rule) usable(f *rolling.Fit) bool {
+	if !f.OK() || !f.PosDef || f.N < r.MinReadings || !(f.Cond <= r.MaxCond) {
+		return false
+	}
+	for i := range f.Model.Coefs() {
+		if !finite(f.Coef[i]) || !finite(f.SE[i]) || !finite(f.CI[i][0]) || !finite(f.CI[i][1]) {
+			return false
+		}
+	}
+	return finite(f.ResidSD) && finite(f.TCrit)
+}
+
+func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
+
+// rateEvidence judges coefficient i of f against a rate limit.
+//
+// Breach statistic: the bound of the 95% confidence interval nearest to
+// zero, b = max(low, −high, 0). A level L is breached when b > L, so the
+// data show, at the 97.5% one-sided level, a rate beyond L in one
+// direction, and also b > t·SE, the interval's half-width: the estimate
+// lies at least two half-widths from zero. The second condition is the
+// significance floor. Without it, a window too short to resolve L (t·SE
+// much larger than L) breaches on 2.5% of pure-noise evaluations per
+// direction; with it, a breach under no drift needs |c|/SE > 2t, whatever
+// L and the window (see doc.go for the rate this promises).
+//
+// Clear statistic: the point estimate |c|, cleared below
+// ClearFraction × the lowest level.
+func rateEvidence(f *rolling.Fit, i int, l RateLimit, frac float64) evidence {
+	c, lo, hi := f.Coef[i], f.CI[i][0], f.CI[i][1]
+	half := f.TCrit * f.SE[i]
+	b := max(lo, -hi, 0)
+	ev := evidence{valid: true, fit: f, value: c, ci: [2]float64{lo, hi}, limit: l.lowest()}
+	for _, lv := range rateLevels(l) {
+		if b > lv.v && b > half {
+			ev.sev, ev.limit = lv.sev, lv.v
+		}
+	}
+	ev.clear = math.Abs(c) < frac*l.lowest()
+	return ev
+}
+
+// doublingEvidence judges the exp fit's growth rate c1 (per day) against
+// a doubling-time limit, as a rate limit of ln 2 / (level in days) on
+// growth only: breached when the lower 95% bound of c1 exceeds it and the
+// half-width of the interval (the significance floor of rateEvidence),
+// cleared when c1 drops below ClearFraction × ln 2 / (lowest level), the
+// lowest level being the longest time. Reported in 1/d; the doubling time
+// is ln 2 / value.
+func doublingEvidence(f *rolling.Fit, l DurationLimit, frac float64) evidence {
+	c, lo, hi := f.Coef[1], f.CI[1][0], f.CI[1][1]
+	half := f.TCrit * f.SE[1]
+	lowest := math.Ln2 / days(l.lowest())
+	ev := evidence{valid: true, fit: f, value: c, ci: [2]float64{lo, hi}, limit: lowest}
+	for _, lv := range durationLevels(l) {
+		if r := math.Ln2 / lv.v; lo > r && lo > half {
+			ev.sev, ev.limit = lv.sev, r
+		}
+	}
+	ev.clear = c < frac*lowest
+	return ev
+}
+
+// leadEvidence judges the trend fit f against the lead-time limit, with
+// the tolerance band [asLeft − tol, asLeft + tol]. The crossing times,
+// which cost two TimeToLimit calls, are computed only when needed: when
+// a level is breached or the alert is firing (needCross).
+//
+// Breach statistic: a level of L days is breached when, at some τ in
+// [0, L] (sampled at leadSteps+1 points), the 95% confidence bound of the
+// fitted trend's mean nearest to the as-left value lies outside the band,
+// and lies at least its own half-width away from the as-left value (the
+// significance floor of rateEvidence): the data show, at the 97.5%
+// one-sided level, that the sensor's mean leaves tolerance within L.
+// This uses the confidence band of the mean, not the prediction band of
+// single readings: the prediction band's earliest touch of the band edge
+// (rolling.Crossing.Earliest) is reported in the event, and is always
+// sooner, but on pure noise a short window's prediction band reaches any
+// tolerance within days, so its touch is no evidence of drift.
+//
+// Clear statistic: the fitted trend's own crossing time (At), cleared
+// when it lies beyond the lowest level (the longest time) divided by
+// ClearFraction, or does not happen within the horizon.
+func (r *Rule) leadEvidence(f *rolling.Fit, asLeft float64, needCross bool) evidence {
+	const leadSteps = 64
+	l := r.Limits.LeadTime
+	ev := evidence{valid: true, fit: f, limit: days(l.lowest())}
+	// One grid over [0, longest level]: the first breaching τ decides
+	// which levels it lies within.
+	longest := days(max(l.Warning, l.Critical))
+	b := newBand(f)
+	for k := 0; k <= leadSteps; k++ {
+		tau := longest * float64(k) / leadSteps
+		m, h := b.at(tau)
+		dev := math.Abs(m-asLeft) - h // bound nearest the as-left value
+		if dev >= r.Tolerance && dev >= h {
+			for _, lv := range durationLevels(l) {
+				if tau <= lv.v {
+					ev.sev, ev.limit = lv.sev, lv.v
+				}
+			}
+			break
+		}
+	}
+	if ev.sev == SeverityUnknown && !needCross {
+		return ev
+	}
+	cr, _, ok := r.crossing(f, asLeft)
+	if !ok {
+		return evidence{}
+	}
+	hd := days(r.Horizon)
+	ev.value, ev.ci = hd, [2]float64{hd, hd}
+	switch cr.Kind {
+	case rolling.CrossPast:
+		ev.value = 0
+	case rolling.CrossAhead:
+		ev.value = days(cr.At)
+	default:
+		ev.beyond = true
+	}
+	if cr.EarliestOK {
+		ev.ci[0] = days(cr.Earliest)
+	}
+	if cr.LatestOK {
+		ev.ci[1] = days(cr.Latest)
+	}
+	ev.clear = cr.Kind == rolling.CrossNever ||
+		(cr.Kind == rolling.CrossAhead && float64(cr.At) > float64(l.lowest())/r.ClearFraction)
+	return ev
+}
+
+// band is the fitted trend m(τ) and the variance of its mean,
+// xᵀ·Cov·x with x = (1, τ, τ²), as polynomials in τ days after the
+// newest reading.
+type band struct {
+	m [3]float64
+	q [5]float64
+	t float64
+}
+
+func newBand(f *rolling.Fit) band {
+	b := band{t: f.TCrit}
+	p := f.Model.Coefs()
+	for a := range p {
+		b.m[a] = f.Coef[a]
+		for c := range p {
+			b.q[a+c] += f.Cov[a][c]
+		}
+	}
+	return b
+}
+
+// at returns the fitted value τ days after the newest reading and the
+// half-width of the 95% confidence interval of that mean value.
+func (b *band) at(tau float64) (value, half float64) {
+	v := b.m[0] + tau*(b.m[1]+tau*b.m[2])
+	q := b.q[0] + tau*(b.q[1]+tau*(b.q[2]+tau*(b.q[3]+tau*b.q[4])))
+	return v, b.t * math.Sqrt(max(q, 0))
+}
+
+// crossing returns when the trend f leaves the tolerance band, from the
+// edge it reaches first: already past, else the soonest crossing of the
+// fitted trend, else the soonest touch of the prediction band. upper
+// says which edge. ok is false when TimeToLimit refused the fit.
+func (r *Rule) crossing(f *rolling.Fit, asLeft float64) (cr rolling.Crossing, upper, ok bool) {
+	cu, err := f.TimeToLimit(asLeft+r.Tolerance, true, r.Horizon)
+	if err != nil {
+		return cr, false, false
+	}
+	cd, err := f.TimeToLimit(asLeft-r.Tolerance, false, r.Horizon)
+	if err != nil {
+		return cr, false, false
+	}
+	if sooner(cd, cu) {
+		return cd, false, true
+	}
+	return cu, true, true
+}
+
+// sooner reports whether crossing a comes strictly before b.
+func sooner(a, b rolling.Crossing) bool {
+	rank := func(c rolling.Crossing) int {
+		switch c.Kind {
+		case rolling.CrossPast:
+			return 0
+		case rolling.CrossAhead:
+			return 1
+		}
+		return 2
+	}
+	if ra, rb := rank(a), rank(b); ra != rb {
+		return ra < rb
+	}
+	if a.Kind == rolling.CrossAhead && a.At != b.At {
+		return a.At < b.At
+	}
+	if a.EarliestOK != b.EarliestOK {
+		return a.EarliestOK
+	}
+	return a.Earliest < b.Earliest
+}

@@ -1,0 +1,329 @@
+package alert
+
+import (
+	"fmt"
+	"math"
+	"time"
+
+	"driftfit/rolling"
+)
+
+// Tracker holds the alert state of one sensor: one state machine per
+// (window, kind), the as-left value, the last calibration and the open
+// ticket. It makes decisions only; the caller delivers and stores what
+// it returns, and persists the state with MarshalBinary.
+//
+// A Tracker is not safe for concurrent use; give each sensor one owner.
+type Tracker struct {
+	sensor string
+	rule   Rule
+
+	asLeft     float64
+	hasAsLeft  bool
+	calibrated time.Time // zero: never
+	machines   []machine // in order of first evaluation
+	ticket     Ticket
+	hasTicket  bool
+}
+
+// machine is the state of the alert of one (window, kind).
+type machine struct {
+	window  rolling.WindowSpec
+	kind    Kind
+	state   State
+	sev     Severity  // while Firing
+	streak  uint32    // consecutive breaching evaluations, any severity
+	crit    uint32    // consecutive evaluations breaching Critical
+	since   time.Time // when it last started firing; zero: never
+	cleared time.Time // when it last cleared; zero: never
+}
+
+// Decision is what one Evaluate or Calibrate call decided.
+type Decision struct {
+	// Events in the order the limits were judged (slope, curvature,
+	// doubling, lead time).
+	Events []Event
+	// Opened is the ticket this evaluation opened, if any.
+	Opened *Ticket
+	// Closed is the ticket a calibration closed, if any.
+	Closed *Ticket
+}
+
+// Status is a snapshot of one alert, as listed by Tracker.Alerts.
+type Status struct {
+	Window   rolling.WindowSpec
+	Kind     Kind
+	State    State
+	Severity Severity  // while Firing
+	Since    time.Time // last raised; zero: never
+	Cleared  time.Time // last cleared; zero: never
+}
+
+// NewTracker returns the tracker of a sensor under rule r, with zero
+// fields of r set to their defaults. It returns an error wrapping
+// ErrBadRule, joining a *RuleError per invalid field, when r is invalid.
+func NewTracker(sensor string, r Rule) (*Tracker, error) {
+	rr, err := r.resolve()
+	if err != nil {
+		return nil, fmt.Errorf("alert: sensor %s: %w", sensor, err)
+	}
+	rr.Windows = append([]rolling.WindowSpec(nil), rr.Windows...)
+	return &Tracker{sensor: sensor, rule: rr, asLeft: rr.AsLeft, hasAsLeft: rr.HasAsLeft}, nil
+}
+
+// Rule returns the tracker's rule with defaults filled in.
+func (t *Tracker) Rule() Rule {
+	r := t.rule
+	r.Windows = append([]rolling.WindowSpec(nil), r.Windows...)
+	return r
+}
+
+// AsLeft returns the centre of the tolerance band, and false while it is
+// not known yet (no rule value and no usable fit so far).
+func (t *Tracker) AsLeft() (float64, bool) { return t.asLeft, t.hasAsLeft }
+
+// Ticket returns the open ticket, if any.
+func (t *Tracker) Ticket() (Ticket, bool) { return t.ticket, t.hasTicket }
+
+// Alerts returns the state of every alert evaluated so far, in the order
+// they were first evaluated.
+func (t *Tracker) Alerts() []Status {
+	out := make([]Status, len(t.machines))
+	for i, m := range t.machines {
+		out[i] = Status{Window: m.window, Kind: m.kind, State: m.state, Severity: m.sev, Since: m.since, Cleared: m.cleared}
+	}
+	return out
+}
+
+// Evaluate judges the fits of one window's solution at time now, usually
+// when the window closes a pane, and returns the events and the ticket
+// it decided on.
+//
+// Gates: a window with fewer than MinReadings readings or less than
+// MinCoverage of its panes filled is not evaluated, nor is a fit that is
+// not OK, not positive definite, has fewer than MinReadings readings or a
+// condition number above MaxCond. A limit not evaluated gives no evidence:
+// it breaks a pending debounce run but does not clear a firing alert.
+//
+// Per (window, kind): Debounce consecutive breaching evaluations raise the
+// alert, at Critical if the critical level was breached on all of them,
+// else Warning; a firing warning escalates after Debounce consecutive
+// critical breaches; a firing alert clears when its clear statistic drops
+// below ClearFraction × the lowest level (severity never steps down while
+// firing); after clearing it cannot be raised again until Cooldown has
+// passed. The statistics of each kind are described in doc.go.
+//
+// Errors: ErrBadTime for a zero or unrepresentable now, ErrUnknownWindow
+// for a window not in the rule, ErrStale for a solution holding readings
+// from before the last calibration. The state is unchanged on error.
+func (t *Tracker) Evaluate(now time.Time, sol *rolling.Solution) (Decision, error) {
+	var d Decision
+	if !timeOK(now) {
+		return d, fmt.Errorf("%w: evaluation time %v", ErrBadTime, now)
+	}
+	now = utc(now)
+	r := &t.rule
+	if r.window(sol.Window) < 0 {
+		return d, fmt.Errorf("%w: sensor %s window %s", ErrUnknownWindow, t.sensor, WindowName(sol.Window))
+	}
+	if !t.calibrated.IsZero() && sol.N > 0 && sol.First.Before(t.calibrated) {
+		return d, fmt.Errorf("%w: sensor %s window %s first reading %v, calibrated %v",
+			ErrStale, t.sensor, WindowName(sol.Window), utc(sol.First), t.calibrated)
+	}
+	gated := sol.Panes > 0 && sol.N >= r.MinReadings && sol.Coverage() >= r.MinCoverage
+
+	trend := sol.Fit(r.TrendModel)
+	if !r.usable(trend) && r.usable(&sol.Line) {
+		trend = &sol.Line
+	}
+	if !t.hasAsLeft && gated && r.usable(trend) {
+		t.asLeft, t.hasAsLeft = trend.Coef[0], true
+	}
+
+	for _, k := range kinds {
+		if !r.Limits.on(k) {
+			continue
+		}
+		m := t.machine(sol.Window, k)
+		var ev evidence
+		if gated {
+			ev = t.judge(k, sol, trend, m.state == Firing)
+		}
+		was := m.sev
+		typ := m.step(now, &ev, uint32(r.Debounce), r.Cooldown)
+		if typ == EventUnknown {
+			continue
+		}
+		e := t.event(typ, now, sol, m, k, &ev)
+		if typ == Cleared {
+			e.Severity = was
+		}
+		d.Events = append(d.Events, e)
+		if typ == Raised && (k == Slope || k == LeadTime) && !t.hasTicket && t.hasAsLeft && r.usable(trend) {
+			t.ticket, t.hasTicket = t.openTicket(now, sol, trend, k, m.sev), true
+			tk := t.ticket
+			d.Opened = &tk
+		}
+	}
+	return d, nil
+}
+
+// judge computes the evidence of kind k on a gated solution.
+func (t *Tracker) judge(k Kind, sol *rolling.Solution, trend *rolling.Fit, firing bool) evidence {
+	r := &t.rule
+	switch k {
+	case Slope:
+		if r.usable(&sol.Line) {
+			return rateEvidence(&sol.Line, 1, r.Limits.Slope, r.ClearFraction)
+		}
+	case Curvature:
+		if r.usable(&sol.Parabola) {
+			return rateEvidence(&sol.Parabola, 2, r.Limits.Curvature, r.ClearFraction)
+		}
+	case Doubling:
+		if r.usable(&sol.Exp) {
+			return doublingEvidence(&sol.Exp, r.Limits.Doubling, r.ClearFraction)
+		}
+	case LeadTime:
+		if t.hasAsLeft && r.usable(trend) {
+			return r.leadEvidence(trend, t.asLeft, firing)
+		}
+	}
+	return evidence{}
+}
+
+// machine returns the state machine of (w, k), adding it if new.
+func (t *Tracker) machine(w rolling.WindowSpec, k Kind) *machine {
+	for i := range t.machines {
+		if m := &t.machines[i]; m.window == w && m.kind == k {
+			return m
+		}
+	}
+	t.machines = append(t.machines, machine{window: w, kind: k, state: Inactive})
+	return &t.machines[len(t.machines)-1]
+}
+
+// step advances the machine by one evaluation and returns the event it
+// causes, or EventUnknown.
+func (m *machine) step(now time.Time, ev *evidence, k uint32, cooldown time.Duration) EventType {
+	if !ev.valid {
+		m.streak, m.crit = 0, 0
+		if m.state != Firing {
+			m.state = m.idle(now, cooldown)
+		}
+		return EventUnknown
+	}
+	if ev.sev != SeverityUnknown {
+		m.streak = min(m.streak+1, math.MaxUint32-1)
+	} else {
+		m.streak = 0
+	}
+	if ev.sev == Critical {
+		m.crit = min(m.crit+1, math.MaxUint32-1)
+	} else {
+		m.crit = 0
+	}
+	if m.state == Firing {
+		switch {
+		case ev.sev == SeverityUnknown && ev.clear:
+			m.state, m.sev, m.cleared = Resolved, SeverityUnknown, now
+			m.streak, m.crit = 0, 0
+			if cooldown == 0 {
+				m.state = Inactive
+			}
+			return Cleared
+		case m.sev == Warning && m.crit >= k:
+			m.sev = Critical
+			return Escalated
+		}
+		return EventUnknown
+	}
+	if m.streak >= k && !m.cooling(now, cooldown) {
+		m.state, m.since, m.sev = Firing, now, Warning
+		if m.crit >= k {
+			m.sev = Critical
+		}
+		return Raised
+	}
+	if m.streak > 0 {
+		m.state = Pending
+	} else {
+		m.state = m.idle(now, cooldown)
+	}
+	return EventUnknown
+}
+
+func (m *machine) cooling(now time.Time, cooldown time.Duration) bool {
+	return !m.cleared.IsZero() && now.Sub(m.cleared) < cooldown
+}
+
+func (m *machine) idle(now time.Time, cooldown time.Duration) State {
+	if m.cooling(now, cooldown) {
+		return Resolved
+	}
+	return Inactive
+}
+
+// event builds the event of a transition of machine m.
+func (t *Tracker) event(typ EventType, now time.Time, sol *rolling.Solution, m *machine, k Kind, ev *evidence) Event {
+	e := Event{
+		Type: typ, Sensor: t.sensor, Class: t.rule.Class, Window: WindowName(sol.Window),
+		Kind: k, Severity: m.sev, State: m.state, At: now,
+		Value: ev.value, CI: ev.ci, Limit: ev.limit, Unit: reportUnit(k, t.rule.Unit),
+		BeyondHorizon: ev.beyond, Caution: Caution,
+	}
+	switch typ {
+	case Cleared:
+		e.Limit = t.rule.level(k, SeverityUnknown)
+	case Raised, Escalated:
+		e.Limit = t.rule.level(k, m.sev)
+	}
+	if f := ev.fit; f != nil {
+		e.Model, e.N, e.First, e.Last = f.Model.String(), f.N, utc(f.First), utc(f.Last)
+	}
+	return e
+}
+
+// Calibrate records a calibration of the sensor: it closes the open
+// ticket (returned in Decision.Closed), ends every firing alert with a
+// Reset event, forgets all alert state including cooldowns, and takes
+// c.AsLeft as the new centre of the tolerance band.
+//
+// The caller must restart the sensor's fits from c.Time (new rolling
+// sensors); until then Evaluate refuses solutions with older readings
+// (ErrStale). Errors: ErrBadTime for a zero or unrepresentable time,
+// ErrBadCalibration for a non-finite value or a time before the previous
+// calibration. The state is unchanged on error.
+func (t *Tracker) Calibrate(c Calibration) (Decision, error) {
+	var d Decision
+	if !timeOK(c.Time) {
+		return d, fmt.Errorf("%w: calibration time %v", ErrBadTime, c.Time)
+	}
+	c.Time = utc(c.Time)
+	if !finite(c.AsFound) || !finite(c.AsLeft) {
+		return d, fmt.Errorf("%w: sensor %s as-found %v, as-left %v: must be finite", ErrBadCalibration, t.sensor, c.AsFound, c.AsLeft)
+	}
+	if !t.calibrated.IsZero() && c.Time.Before(t.calibrated) {
+		return d, fmt.Errorf("%w: sensor %s time %v before the previous calibration %v", ErrBadCalibration, t.sensor, c.Time, t.calibrated)
+	}
+	for i := range t.machines {
+		m := &t.machines[i]
+		if m.state == Firing {
+			d.Events = append(d.Events, Event{
+				Type: Reset, Sensor: t.sensor, Class: t.rule.Class, Window: WindowName(m.window),
+				Kind: m.kind, Severity: m.sev, State: Inactive, At: c.Time,
+				Unit: reportUnit(m.kind, t.rule.Unit), Caution: Caution,
+			})
+		}
+	}
+	t.machines = nil
+	if t.hasTicket {
+		cc := c
+		t.ticket.Calibration = &cc
+		closed := t.ticket
+		d.Closed = &closed
+		t.ticket, t.hasTicket = Ticket{}, false
+	}
+	t.asLeft, t.hasAsLeft, t.calibrated = c.AsLeft, true, c.Time
+	return d, nil
+}
