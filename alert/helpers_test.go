@@ -17,7 +17,7 @@ var (
 	t0      = time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
 	month   = rolling.WindowSpec{Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}
 	oneDay  = rolling.WindowSpec{Span: 24 * time.Hour, Pane: time.Hour}
-	tcrit28 = 2.048407141795244 // 97.5% quantile of Student's t, 28 df (R: qt(0.975, 28))
+	tcrit28 = 2.048407141795244 // 97.5% quantile of Student's t, 28 df: R qt(0.975, 28), from memory; checked against gonum in TestTCrit28
 )
 
 // lineSol returns a solution of window w whose line fit has drift c1 per
@@ -42,10 +42,10 @@ func lineSol(w rolling.WindowSpec, last time.Time, c1, se1 float64) rolling.Solu
 	}
 }
 
-// noisySensor feeds readings level + drift·days + N(0, sigma²) every step
-// from start over dur into a new rolling sensor and calls eval with the
-// window's solution at every pane close (before the closing reading is
-// added), with the time of that reading.
+// feed describes readings level + drift(days) + N(0, sigma²) every step
+// from start over dur. run feeds them into a new rolling sensor and calls
+// eval with a window's solution at each of its pane closes (before the
+// closing reading is added), with the time of that reading.
 type feed struct {
 	start time.Time
 	step  time.Duration
