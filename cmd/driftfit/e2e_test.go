@@ -85,14 +85,29 @@ func TestServe_HistoryMatchesReplay(t *testing.T) {
 		}
 		time.Sleep(50 * time.Millisecond)
 	}
+	// While serve holds the file, history asks it over the bus.
+	db := filepath.Join(dir, "data", dbFile)
+	live := map[string]string{}
+	for _, id := range ids {
+		out, stderr, code := runCmd(t, "", "history", id, "--db", db, "--servers", ns.ClientURL(), "--format", "json")
+		if code != 0 {
+			t.Fatalf("history %s while serving: exit %d: %s", id, code, stderr)
+		}
+		live[id] = out
+	}
 	if err := c.cmd.Process.Signal(syscall.SIGTERM); err != nil {
 		t.Fatal(err)
 	}
 	if err := <-c.done; err != nil {
 		t.Fatalf("serve: %v; log:\n%s", err, readTail(logPath))
 	}
+	for _, id := range ids {
+		out, stderr, code := runCmd(t, "", "history", id, "--db", db, "--format", "json")
+		if code != 0 || out != live[id] {
+			t.Errorf("history %s from the file (exit %d, %s) differs from the service's answer:\n%s\nvs\n%s", id, code, stderr, out, live[id])
+		}
+	}
 
-	db := filepath.Join(dir, "data", dbFile)
 	replayOut, stderr, code := runCmd(t, csv.String(), "replay", "--window", "1d/1h", "--format", "json", "-")
 	if code != 0 {
 		t.Fatalf("replay exit %d: %s", code, stderr)

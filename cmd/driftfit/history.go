@@ -68,10 +68,13 @@ standard output unless --format is given.
 
 The database is opened read-only. bbolt locks the file with flock: a
 read-only open takes a shared lock, the writer (driftfit serve) an
-exclusive one for as long as it runs, and the two conflict. So history
-cannot read a file the service is using: it waits up to 1s, then stops
-with an error. Stop the service first, or point --db at a copy written
-while it was stopped. Several history runs may read one file at once.
+exclusive one for as long as it runs, and the two conflict. So when the
+file is in use (history waits up to 1s for the lock), history asks the
+running service instead, over NATS (subject driftfit.api.history), at
+--servers: by default the first of bus.servers in --config, else the
+embedded server's default address nats://127.0.0.1:4222. The service
+reads the same file and sends the records back unchanged. Several history
+runs may read one file at once.
 When nothing matches, nothing is printed on standard output and a note on
 standard error names the windows and times the sensor has.
 
@@ -92,6 +95,20 @@ type historyQuery struct {
 	format       string // table, csv or json; "" with --plot alone
 	plotPath     string
 	unit         string // "" when unknown
+	servers      string // NATS URL of a running service, asked when the file is locked
+}
+
+// defaultAPIURL is where history looks for a running service by default:
+// the embedded NATS server's default address.
+const defaultAPIURL = "nats://127.0.0.1:4222"
+
+// historySource is where history reads from: the file itself
+// (*store.DB) or a running service that holds it (remoteHistory).
+type historySource interface {
+	History(sensor string, window rolling.WindowSpec, since, until time.Time, fn func(store.HistoryRecord) error) error
+	HistorySensors(fn func(id string) error) error
+	Path() string
+	Close() error
 }
 
 // history runs the history command with now as the reference for
@@ -101,7 +118,7 @@ func history(ctx context.Context, now time.Time, args []string, stdout, stderr i
 	if err != nil {
 		return err
 	}
-	db, err := openHistoryDB(q.dbPath)
+	db, err := openHistoryDB(q.dbPath, q.servers)
 	if err != nil {
 		return err
 	}
@@ -180,6 +197,7 @@ func parseHistoryArgs(now time.Time, args []string, stderr io.Writer) (historyQu
 	format := fs.String("format", "table", "output format: table, csv or json")
 	plotPath := fs.String("plot", "", "draw level and drift rate with their 95% bands into `FILE` (.png or .svg)")
 	unit := fs.String("unit", "", "engineering `UNIT` for the plot's axis labels (overrides --config)")
+	servers := fs.String("servers", "", "NATS `URL` of the running service to ask when the file is in use (default: bus.servers in --config, else "+defaultAPIURL+")")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, historyHelp)
 		fs.PrintDefaults()
@@ -245,7 +263,7 @@ func parseHistoryArgs(now time.Time, args []string, stderr io.Writer) (historyQu
 		return q, usageError("--since %s is not before --until %s", q.since.UTC().Format(time.RFC3339), q.until.UTC().Format(time.RFC3339))
 	}
 
-	q.dbPath, q.unit = *dbPath, *unit
+	q.dbPath, q.unit, q.servers = *dbPath, *unit, *servers
 	if q.dbPath == "" && *dataDir != "" {
 		q.dbPath = filepath.Join(*dataDir, dbFile)
 	}
@@ -257,6 +275,9 @@ func parseHistoryArgs(now time.Time, args []string, stderr io.Writer) (historyQu
 		if q.dbPath == "" {
 			q.dbPath = filepath.Join(cfg.Store.Dir, dbFile)
 		}
+		if q.servers == "" && len(cfg.Bus.Servers) > 0 {
+			q.servers = cfg.Bus.Servers[0]
+		}
 		if q.unit == "" {
 			// A sensor no class matches keeps the generic label: the
 			// history is still worth drawing.
@@ -267,6 +288,9 @@ func parseHistoryArgs(now time.Time, args []string, stderr io.Writer) (historyQu
 	}
 	if q.dbPath == "" {
 		q.dbPath = defaultDBPath()
+	}
+	if q.servers == "" {
+		q.servers = defaultAPIURL
 	}
 	return q, nil
 }
@@ -325,9 +349,10 @@ func historyWindowLabel(ws rolling.WindowSpec) string {
 	return configs.FormatDuration(ws.Span) + "/" + configs.FormatDuration(ws.Pane)
 }
 
-// openHistoryDB opens the database read-only and turns the two common
-// failures into advice.
-func openHistoryDB(path string) (*store.DB, error) {
+// openHistoryDB opens the database read-only; when a running service
+// holds it, it asks that service at servers instead. The common failures
+// come back as advice.
+func openHistoryDB(path, servers string) (historySource, error) {
 	if _, err := os.Stat(path); err != nil {
 		if errors.Is(err, os.ErrNotExist) {
 			return nil, fmt.Errorf("no database file at %s (give --db FILE, --data DIR or --config FILE)", path)
@@ -336,16 +361,23 @@ func openHistoryDB(path string) (*store.DB, error) {
 	}
 	db, err := store.Open(path, store.Options{ReadOnly: true, LockTimeout: historyLockWait})
 	if errors.Is(err, store.ErrLocked) {
-		return nil, fmt.Errorf("%s is in use by a running driftfit serve (or another process writing it): "+
-			"the writer holds the file's exclusive lock and a read-only open needs a shared one; "+
-			"stop the service and retry, or read a copy written while it was stopped: %w", path, err)
+		remote, rerr := dialRemoteHistory(servers)
+		if rerr == nil {
+			return remote, nil
+		}
+		return nil, fmt.Errorf("%s is in use by a running driftfit serve (or another process writing it), "+
+			"and no service answers at %s (%v): give --servers with the service's NATS address, "+
+			"or stop the service and retry: %w", path, servers, rerr, err)
 	}
-	return db, err
+	if err != nil {
+		return nil, err
+	}
+	return db, nil
 }
 
 // explainNoRecords says on w why nothing matched: an error when the
 // sensor has no history at all, a note naming what there is otherwise.
-func explainNoRecords(db *store.DB, q historyQuery, w io.Writer) error {
+func explainNoRecords(db historySource, q historyQuery, w io.Writer) error {
 	var windows []rolling.WindowSpec
 	var first, last time.Time
 	err := db.History(q.sensor, rolling.WindowSpec{}, time.Time{}, time.Time{}, func(r store.HistoryRecord) error {
@@ -386,7 +418,7 @@ const maxSuggestions = 5
 // noSensorError reports a sensor without history, offering the ids
 // that share the longest prefix with it (a typo usually sits late in an
 // id such as plant.unit.tag).
-func noSensorError(db *store.DB, sensor string) error {
+func noSensorError(db historySource, sensor string) error {
 	type cand struct {
 		id     string
 		common int

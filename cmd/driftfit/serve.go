@@ -116,6 +116,12 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		}
 	}()
 
+	stopAPI, err := serveAPI(bus.nc, db, log)
+	if err != nil {
+		return err
+	}
+	defer stopAPI()
+
 	var board *driftBoard
 	var onPaneClose func(string, int, *rolling.Solution)
 	if *demo {

@@ -1,0 +1,201 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/rs/zerolog"
+
+	"driftfit/rolling"
+	"driftfit/store"
+)
+
+// The service answers read requests on the bus, so that history can be
+// read while serve holds the state file's lock.
+const (
+	apiHistorySubject = "driftfit.api.history"
+	apiSensorsSubject = "driftfit.api.sensors"
+
+	headerMore  = "Driftfit-More"  // "1" on every reply but the last
+	headerError = "Driftfit-Error" // on the last reply, when the request failed
+
+	// apiChunk bounds one reply's payload, well under NATS's default
+	// 1 MiB max_payload.
+	apiChunk = 256 << 10
+	// apiTimeout bounds the wait for each reply message.
+	apiTimeout = 10 * time.Second
+)
+
+// historyRequest is the JSON request of apiHistorySubject. Zero fields
+// leave that filter open.
+type historyRequest struct {
+	Sensor  string `json:"sensor"`
+	SpanNs  int64  `json:"span_ns,omitempty"`
+	PaneNs  int64  `json:"pane_ns,omitempty"`
+	SinceNs int64  `json:"since_ns,omitempty"`
+	UntilNs int64  `json:"until_ns,omitempty"`
+}
+
+// serveAPI answers history and sensor-list requests from db. The
+// returned function unsubscribes.
+func serveAPI(nc *nats.Conn, db *store.DB, log zerolog.Logger) (func(), error) {
+	log = log.With().Str("component", "api").Logger()
+	send := func(m *nats.Msg, data []byte, more bool, err error) {
+		out := nats.NewMsg(m.Reply)
+		out.Data = data
+		if more {
+			out.Header.Set(headerMore, "1")
+		}
+		if err != nil {
+			out.Header.Set(headerError, err.Error())
+		}
+		if perr := nc.PublishMsg(out); perr != nil {
+			log.Warn().Err(perr).Str("subject", m.Subject).Msg("reply not sent")
+		}
+	}
+	hist, err := nc.Subscribe(apiHistorySubject, func(m *nats.Msg) {
+		var q historyRequest
+		if err := json.Unmarshal(m.Data, &q); err != nil {
+			send(m, nil, false, fmt.Errorf("bad request: %w", err))
+			return
+		}
+		var since, until time.Time
+		if q.SinceNs != 0 {
+			since = time.Unix(0, q.SinceNs)
+		}
+		if q.UntilNs != 0 {
+			until = time.Unix(0, q.UntilNs)
+		}
+		var buf []byte
+		err := db.History(q.Sensor, rolling.WindowSpec{Span: time.Duration(q.SpanNs), Pane: time.Duration(q.PaneNs)}, since, until, func(r store.HistoryRecord) error {
+			var err error
+			if buf, err = store.AppendHistoryRecord(buf, &r); err != nil {
+				return err
+			}
+			if len(buf) >= apiChunk {
+				send(m, buf, true, nil)
+				buf = buf[:0]
+			}
+			return nil
+		})
+		send(m, buf, false, err)
+	})
+	if err != nil {
+		return nil, err
+	}
+	sensors, err := nc.Subscribe(apiSensorsSubject, func(m *nats.Msg) {
+		var buf []byte
+		err := db.HistorySensors(func(id string) error {
+			buf = append(append(buf, id...), '\n')
+			if len(buf) >= apiChunk {
+				send(m, buf, true, nil)
+				buf = buf[:0]
+			}
+			return nil
+		})
+		send(m, buf, false, err)
+	})
+	if err != nil {
+		_ = hist.Unsubscribe()
+		return nil, err
+	}
+	return func() { _ = hist.Unsubscribe(); _ = sensors.Unsubscribe() }, nil
+}
+
+// remoteHistory reads history through a running service's API. It has
+// the methods of *store.DB that history uses.
+type remoteHistory struct {
+	nc  *nats.Conn
+	url string
+}
+
+func dialRemoteHistory(url string) (*remoteHistory, error) {
+	nc, err := nats.Connect(url, nats.Name("driftfit history"), nats.Timeout(2*time.Second))
+	if err != nil {
+		return nil, err
+	}
+	return &remoteHistory{nc: nc, url: url}, nil
+}
+
+func (r *remoteHistory) Path() string { return "the service at " + r.url }
+func (r *remoteHistory) Close() error { r.nc.Close(); return nil }
+
+// request sends data to subject and hands each reply's payload to fn
+// until the last one.
+func (r *remoteHistory) request(subject string, data []byte, fn func([]byte) error) error {
+	inbox := r.nc.NewRespInbox()
+	sub, err := r.nc.SubscribeSync(inbox)
+	if err != nil {
+		return err
+	}
+	defer sub.Unsubscribe()
+	if err := r.nc.PublishRequest(subject, inbox, data); err != nil {
+		return err
+	}
+	for {
+		m, err := sub.NextMsg(apiTimeout)
+		if errors.Is(err, nats.ErrTimeout) {
+			return fmt.Errorf("no answer from the service at %s on %s within %v", r.url, subject, apiTimeout)
+		}
+		if err != nil {
+			return err
+		}
+		if len(m.Data) > 0 {
+			if err := fn(m.Data); err != nil {
+				return err
+			}
+		}
+		if e := m.Header.Get(headerError); e != "" {
+			return errors.New("service: " + e)
+		}
+		if m.Header.Get(headerMore) == "" {
+			return nil
+		}
+	}
+}
+
+func (r *remoteHistory) History(sensor string, window rolling.WindowSpec, since, until time.Time, fn func(store.HistoryRecord) error) error {
+	q := historyRequest{Sensor: sensor, SpanNs: int64(window.Span), PaneNs: int64(window.Pane)}
+	if !since.IsZero() {
+		q.SinceNs = since.UnixNano()
+	}
+	if !until.IsZero() {
+		q.UntilNs = until.UnixNano()
+	}
+	data, err := json.Marshal(q)
+	if err != nil {
+		return err
+	}
+	return r.request(apiHistorySubject, data, func(b []byte) error {
+		for len(b) > 0 {
+			rec, n, err := store.DecodeHistoryRecord(b)
+			if err != nil {
+				return err
+			}
+			if err := fn(rec); err != nil {
+				return err
+			}
+			b = b[n:]
+		}
+		return nil
+	})
+}
+
+func (r *remoteHistory) HistorySensors(fn func(id string) error) error {
+	return r.request(apiSensorsSubject, nil, func(b []byte) error {
+		for len(b) > 0 {
+			i := 0
+			for i < len(b) && b[i] != '\n' {
+				i++
+			}
+			if err := fn(string(b[:i])); err != nil {
+				return err
+			}
+			b = b[min(i+1, len(b)):]
+		}
+		return nil
+	})
+}
