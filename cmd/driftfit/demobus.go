@@ -22,6 +22,9 @@ type demoOptions struct {
 	every    time.Duration // plant time between readings of one sensor
 	live     bool          // after the backfill, publish a reading per sensor every liveEvery
 	seed     uint64
+	batch    int     // readings of one sensor per message (consecutive steps); 0 or 1: single readings
+	rate     float64 // readings per second during the backfill; 0: as set by wall
+	bad      bool    // send bursts of bad messages
 }
 
 // liveEvery is the wall (and plant) time between live demo readings.
@@ -60,7 +63,31 @@ func publishDemo(ctx context.Context, nc *nats.Conn, o demoOptions, log zerolog.
 	pause := o.wall / time.Duration(max(steps, 1))
 	log = log.With().Str("component", "demo").Logger()
 	log.Info().Int("sensors", len(plant)).Dur("plant_time", o.backfill).Dur("wall_time", o.wall).Msg("demo feed started")
+	if o.rate > 0 {
+		pause = time.Duration(float64(time.Second) * float64(len(plant)) / o.rate)
+	}
+	batch := max(o.batch, 1)
 	var buf []byte
+	var rs []rolling.Reading
+	publishBatch := func(step, n int) error {
+		for i := range plant {
+			s := &plant[i]
+			rs = rs[:0]
+			for j := range n {
+				at := start.Add(time.Duration(step+j) * o.every)
+				rs = append(rs, rolling.Reading{UnixNano: at.UnixNano(), Value: s.value(at.Sub(start).Hours()/24, rng)})
+			}
+			if n == 1 {
+				buf = ingest.AppendReading(buf[:0], ingest.Decoded{Reading: rs[0]})
+			} else {
+				buf = ingest.AppendBatch(buf[:0], s.id, rs)
+			}
+			if err := nc.Publish(o.prefix+"."+s.id, buf); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
 	publish := func(at time.Time) error {
 		d := at.Sub(start).Hours() / 24
 		for i := range plant {
@@ -74,17 +101,20 @@ func publishDemo(ctx context.Context, nc *nats.Conn, o demoOptions, log zerolog.
 	}
 	tick := time.NewTicker(max(pause, time.Millisecond))
 	defer tick.Stop()
-	for step := 0; step < steps; step++ {
-		if err := publish(start.Add(time.Duration(step) * o.every)); err != nil {
+	for step := 0; step < steps; step += batch {
+		n := min(batch, steps-step)
+		if err := publishBatch(step, n); err != nil {
 			return err
 		}
-		if step%100 == 50 {
+		if o.bad && step/100 != (step+n)/100 {
 			publishBad(nc, o.prefix, plant[0].id)
 		}
-		select {
-		case <-ctx.Done():
-			return ctx.Err()
-		case <-tick.C:
+		for range n {
+			select {
+			case <-ctx.Done():
+				return ctx.Err()
+			case <-tick.C:
+			}
 		}
 	}
 	if err := nc.Flush(); err != nil {

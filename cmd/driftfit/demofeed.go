@@ -3,6 +3,7 @@ package main
 import (
 	"bufio"
 	"context"
+	"errors"
 	"flag"
 	"fmt"
 	"io"
@@ -10,6 +11,8 @@ import (
 	"os"
 	"strconv"
 	"time"
+
+	"github.com/nats-io/nats.go"
 
 	"driftfit/configs"
 )
@@ -23,8 +26,15 @@ func runDemoFeed(ctx context.Context, args []string, stdin io.Reader, stdout, st
 	start := fs.String("start", demoStart.Format(time.RFC3339), "plant time of the first reading (RFC 3339)")
 	sensors := fs.Int("sensors", 0, "sensors to generate: the first N of the plant's 360, or more in copies of its units (0: the 360)")
 	seed := fs.Uint64("seed", 1, "random seed of the reading noise")
+	servers := fs.String("servers", "", "publish to the NATS server at `URL` (e.g. nats://127.0.0.1:4222) instead of writing CSV")
+	prefix := fs.String("prefix", "driftfit.in", "subject prefix: readings go to PREFIX.<sensor id>")
+	wall := fs.String("wall", "1m", "with --servers: wall time over which --days of plant time, ending now, are published")
+	rate := fs.Float64("rate", 0, "with --servers: readings per second instead of --wall (0: use --wall)")
+	batch := fs.Int("batch", 1, "with --servers: readings of one sensor per message")
+	live := fs.Bool("live", false, "with --servers: after the backfill, keep publishing one reading per sensor every 10s")
+	bad := fs.Bool("bad", true, "with --servers: send a burst of bad messages every 100 steps")
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "Usage: driftfit demo-feed [flags]\n\nGenerates readings of Quillmere Vale, an invented plant: most sensors stable,\na few drifting (linear, accelerating), one vibration growing exponentially and\na furnace zone whose process steps up on day 20.\n\nFlags:")
+		fmt.Fprintln(stderr, "Usage: driftfit demo-feed [flags]\n\nGenerates readings of Quillmere Vale, an invented plant: most sensors stable,\na few drifting (linear, accelerating), one vibration growing exponentially and\na furnace zone whose process steps up on day 20. Writes them as CSV (--csv),\nor publishes them to NATS (--servers): --days of plant time ending now,\ncompressed into --wall (or at --rate), optionally continuing live.\n\nFlags:")
 		fs.PrintDefaults()
 	}
 	if err := fs.Parse(args); err != nil {
@@ -42,9 +52,30 @@ func runDemoFeed(ctx context.Context, args []string, stdin io.Reader, stdout, st
 	if err != nil {
 		return usageError("--start %q: %v", *start, err)
 	}
+	if *servers != "" {
+		w, err := configs.ParseDuration(*wall)
+		if err != nil || w <= 0 {
+			return usageError("--wall %q: want a positive duration such as 1m", *wall)
+		}
+		if *batch < 1 {
+			return usageError("--batch %d: want 1 or more", *batch)
+		}
+		nc, err := nats.Connect(*servers, nats.Name("driftfit demo-feed"))
+		if err != nil {
+			return err
+		}
+		defer nc.Close()
+		log, _ := newLogger(stderr, "console", "info")
+		err = publishDemo(ctx, nc, demoOptions{prefix: *prefix, sensors: *sensors, backfill: span, wall: w, every: step,
+			live: *live, seed: *seed, batch: *batch, rate: *rate, bad: *bad}, log)
+		if err != nil && !errors.Is(err, context.Canceled) {
+			return err
+		}
+		return nc.Flush()
+	}
 	plant := demoFleet(*sensors)
 	if *csvOut == "" {
-		return usageError("give --csv FILE")
+		return usageError("give --csv FILE or --servers URL")
 	}
 	out := stdout
 	if *csvOut != "-" {

@@ -176,7 +176,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	demoDone := make(chan error, 1)
 	if *demo {
 		go func() {
-			demoDone <- publishDemo(runCtx, bus.nc, demoOptions{prefix: cfg.Bus.SubjectPrefix, live: true}, log)
+			demoDone <- publishDemo(runCtx, bus.nc, demoOptions{prefix: cfg.Bus.SubjectPrefix, live: true, bad: true}, log)
 		}()
 		go board.run(runCtx, 10*time.Second, 3, log.With().Str("component", "demo").Logger())
 	} else {
