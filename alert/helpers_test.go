@@ -2,7 +2,6 @@ package alert_test
 
 import (
 	"flag"
-	"math"
 	"math/rand/v2"
 	"testing"
 	"time"
@@ -90,4 +89,3 @@ func mustTracker(t testing.TB, sensor string, r alert.Rule) *alert.Tracker {
 	return tr
 }
 
-func sameFloat(a, b float64) bool { return math.Float64bits(a) == math.Float64bits(b) }
