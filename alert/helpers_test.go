@@ -88,4 +88,3 @@ func mustTracker(t testing.TB, sensor string, r alert.Rule) *alert.Tracker {
 	}
 	return tr
 }
-
