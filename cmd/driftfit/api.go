@@ -1,6 +1,7 @@
 package main
 
 import (
+	"encoding/binary"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -18,6 +19,8 @@ import (
 const (
 	apiHistorySubject = "driftfit.api.history"
 	apiSensorsSubject = "driftfit.api.sensors"
+	apiEventsSubject  = "driftfit.api.events"
+	apiTicketsSubject = "driftfit.api.tickets"
 
 	headerMore  = "Driftfit-More"  // "1" on every reply but the last
 	headerError = "Driftfit-Error" // on the last reply, when the request failed
@@ -102,7 +105,76 @@ func serveAPI(nc *nats.Conn, db *store.DB, log zerolog.Logger) (func(), error) {
 		_ = hist.Unsubscribe()
 		return nil, err
 	}
-	return func() { _ = hist.Unsubscribe(); _ = sensors.Unsubscribe() }, nil
+	// Events and tickets travel as frames: uvarint length, bytes; an
+	// event's frame is preceded by its time (varint Unix ns), a ticket's
+	// by its id (a frame).
+	events, err := nc.Subscribe(apiEventsSubject, func(m *nats.Msg) {
+		var q historyRequest
+		if err := json.Unmarshal(m.Data, &q); err != nil {
+			send(m, nil, false, fmt.Errorf("bad request: %w", err))
+			return
+		}
+		var since, until time.Time
+		if q.SinceNs != 0 {
+			since = time.Unix(0, q.SinceNs)
+		}
+		if q.UntilNs != 0 {
+			until = time.Unix(0, q.UntilNs)
+		}
+		var buf []byte
+		err := db.Events(since, until, func(at time.Time, data []byte) error {
+			buf = binary.AppendVarint(buf, at.UnixNano())
+			buf = appendFrame(buf, data)
+			if len(buf) >= apiChunk {
+				send(m, buf, true, nil)
+				buf = buf[:0]
+			}
+			return nil
+		})
+		send(m, buf, false, err)
+	})
+	if err != nil {
+		_ = hist.Unsubscribe()
+		_ = sensors.Unsubscribe()
+		return nil, err
+	}
+	tickets, err := nc.Subscribe(apiTicketsSubject, func(m *nats.Msg) {
+		var buf []byte
+		err := db.Tickets(func(id string, data []byte) error {
+			buf = appendFrame(appendFrame(buf, []byte(id)), data)
+			if len(buf) >= apiChunk {
+				send(m, buf, true, nil)
+				buf = buf[:0]
+			}
+			return nil
+		})
+		send(m, buf, false, err)
+	})
+	if err != nil {
+		_ = hist.Unsubscribe()
+		_ = sensors.Unsubscribe()
+		_ = events.Unsubscribe()
+		return nil, err
+	}
+	return func() {
+		_ = hist.Unsubscribe()
+		_ = sensors.Unsubscribe()
+		_ = events.Unsubscribe()
+		_ = tickets.Unsubscribe()
+	}, nil
+}
+
+func appendFrame(dst, b []byte) []byte {
+	return append(binary.AppendUvarint(dst, uint64(len(b))), b...)
+}
+
+// readFrame splits one frame off b.
+func readFrame(b []byte) (frame, rest []byte, err error) {
+	n, k := binary.Uvarint(b)
+	if k <= 0 || n > uint64(len(b)-k) {
+		return nil, nil, errors.New("malformed reply from the service")
+	}
+	return b[k : k+int(n)], b[k+int(n):], nil
 }
 
 // remoteHistory reads history through a running service's API. It has
@@ -195,6 +267,57 @@ func (r *remoteHistory) HistorySensors(fn func(id string) error) error {
 				return err
 			}
 			b = b[min(i+1, len(b)):]
+		}
+		return nil
+	})
+}
+
+func (r *remoteHistory) Events(since, until time.Time, fn func(at time.Time, data []byte) error) error {
+	var q historyRequest
+	if !since.IsZero() {
+		q.SinceNs = since.UnixNano()
+	}
+	if !until.IsZero() {
+		q.UntilNs = until.UnixNano()
+	}
+	data, err := json.Marshal(q)
+	if err != nil {
+		return err
+	}
+	return r.request(apiEventsSubject, data, func(b []byte) error {
+		for len(b) > 0 {
+			at, k := binary.Varint(b)
+			if k <= 0 {
+				return errors.New("malformed reply from the service")
+			}
+			ev, rest, err := readFrame(b[k:])
+			if err != nil {
+				return err
+			}
+			if err := fn(time.Unix(0, at), ev); err != nil {
+				return err
+			}
+			b = rest
+		}
+		return nil
+	})
+}
+
+func (r *remoteHistory) Tickets(fn func(id string, data []byte) error) error {
+	return r.request(apiTicketsSubject, nil, func(b []byte) error {
+		for len(b) > 0 {
+			id, rest, err := readFrame(b)
+			if err != nil {
+				return err
+			}
+			tk, rest, err := readFrame(rest)
+			if err != nil {
+				return err
+			}
+			if err := fn(string(id), tk); err != nil {
+				return err
+			}
+			b = rest
 		}
 		return nil
 	})

@@ -122,11 +122,23 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	}
 	defer stopAPI()
 
+	alerts, err := newAlerter(cfg, bus.nc, db, log, webhookFromConfig(cfg))
+	if err != nil {
+		return err
+	}
+	stopCal, err := alerts.subscribeCalibrations(cfg.Bus.CalibrationSubjectPrefix)
+	if err != nil {
+		return err
+	}
+	defer stopCal()
 	var board *driftBoard
-	var onPaneClose func(string, int, *rolling.Solution)
+	onPaneClose := alerts.paneClosed
 	if *demo {
 		board = newDriftBoard()
-		onPaneClose = board.paneClosed
+		onPaneClose = func(id string, w int, sol *rolling.Solution) {
+			alerts.paneClosed(id, w, sol)
+			board.paneClosed(id, w, sol)
+		}
 	}
 	svc, err := ingest.New(ingest.Options{
 		Conn:             bus.nc,
@@ -173,6 +185,13 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 
 	runCtx, cancel := context.WithCancel(ctx)
 	defer cancel()
+	// The alerter outlives ingest: it stores what the last pane closes
+	// produced after ingest has stopped.
+	alertCtx, stopAlerts := context.WithCancel(context.Background())
+	alertsDone := make(chan struct{})
+	go func() { defer close(alertsDone); alerts.run(alertCtx) }()
+	go alerts.deliver(runCtx)
+	defer func() { stopAlerts(); <-alertsDone }()
 	demoDone := make(chan error, 1)
 	if *demo {
 		go func() {
