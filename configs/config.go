@@ -24,6 +24,8 @@ type Config struct {
 	Sensors []Sensor
 	// Groups are peer groups in file order.
 	Groups []Group
+	// Tickets configures delivery of recalibration tickets beyond the bus.
+	Tickets Tickets
 
 	file string
 	// pos holds the position of every value written in the file, keyed by
@@ -135,6 +137,40 @@ type HTTP struct {
 	// Addr is the listen address of /metrics. Default "127.0.0.1:9464"
 	// (loopback, so nothing is exposed unless asked for).
 	Addr string
+}
+
+// Tickets configures where recalibration tickets go besides
+// Bus.TicketSubject, which always receives them.
+type Tickets struct {
+	Webhook Webhook
+}
+
+// Webhook configures an HTTP endpoint that receives every recalibration
+// ticket as a JSON POST. Tickets wait in the store's outbox until the
+// endpoint accepts them, so a receiver that is down loses none.
+//
+// The Authorization header value is a credential: the file only names the
+// environment variable that holds it (HeaderEnv), and configs never reads
+// that variable.
+type Webhook struct {
+	// URL is the http:// or https:// address tickets are posted to. Empty
+	// means no webhook: tickets are only published on the bus. A URL may
+	// carry a user name but never a password; its query string is masked
+	// by Explain and in error messages, since receivers often take a token
+	// there.
+	URL string
+	// Timeout bounds one delivery attempt, from connecting to reading the
+	// response status; a slower attempt counts as failed and is retried.
+	// Default 10s; must be > 0.
+	Timeout time.Duration
+	// MaxBackoff caps the wait between retries of a failed delivery, which
+	// grows with each failure until it reaches this cap. Default 5m; must
+	// be > 0.
+	MaxBackoff time.Duration
+	// HeaderEnv names the environment variable whose value is sent as the
+	// Authorization header ("Bearer ...", "Basic ..."). Empty means no
+	// Authorization header.
+	HeaderEnv string
 }
 
 // Defaults hold values that classes inherit when they do not set them.

@@ -79,6 +79,7 @@ func decode(name string, data []byte) (*Config, *decoder, error) {
 			"classes": func(n ast.Node, p string) { d.classes(n, p, c) },
 			"sensors": func(n ast.Node, p string) { d.sensors(n, p, c) },
 			"groups":  func(n ast.Node, p string) { d.groups(n, p, c) },
+			"tickets": func(n ast.Node, p string) { d.tickets(n, p, &c.Tickets) },
 		})
 	}
 	c.pos = d.pos
@@ -460,6 +461,20 @@ func (d *decoder) store(n ast.Node, path string, s *Store) {
 		"commit_interval":   d.duration(&s.CommitInterval),
 		"commit_readings":   d.integer(&s.CommitReadings),
 		"history_retention": d.duration(&s.HistoryRetention),
+	})
+}
+
+func (d *decoder) tickets(n ast.Node, path string, t *Tickets) {
+	d.fields(n, path, map[string]handler{
+		"webhook": func(n ast.Node, p string) {
+			w := &t.Webhook
+			d.fields(n, p, map[string]handler{
+				"url":         d.str(&w.URL),
+				"timeout":     d.duration(&w.Timeout),
+				"max_backoff": d.duration(&w.MaxBackoff),
+				"header_env":  d.str(&w.HeaderEnv),
+			})
+		},
 	})
 }
 

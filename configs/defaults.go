@@ -23,6 +23,14 @@ const (
 	defaultDebounce                 = 3
 	defaultClearFraction            = 0.8
 	defaultCooldown                 = 24 * time.Hour
+	// Ten seconds is long enough for a receiver that writes the ticket
+	// into a database before answering, short enough that a hung receiver
+	// does not hold up the deliveries queued behind it (our choice).
+	defaultWebhookTimeout = 10 * time.Second
+	// Retries back off up to five minutes, so a receiver back from an
+	// outage gets its tickets within minutes without being hammered
+	// while it is down (our choice).
+	defaultWebhookMaxBackoff = 5 * time.Minute
 )
 
 func defaultWindows() []Window {
@@ -79,6 +87,10 @@ func (c *Config) applyDefaults() {
 	dur(&s.HistoryRetention, "store.history_retention", defaultHistoryRetention)
 
 	str(&c.HTTP.Addr, "http.addr", defaultHTTPAddr)
+
+	wh := &c.Tickets.Webhook
+	dur(&wh.Timeout, "tickets.webhook.timeout", defaultWebhookTimeout)
+	dur(&wh.MaxBackoff, "tickets.webhook.max_backoff", defaultWebhookMaxBackoff)
 
 	if len(c.Defaults.Windows) == 0 && !c.written("defaults.windows") {
 		c.Defaults.Windows = defaultWindows()

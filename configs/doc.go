@@ -23,6 +23,8 @@
 //	sensors:   per-sensor settings keyed by exact id: class pin, as-left
 //	           value, peer group, and any class field
 //	groups:    peer groups of sensors measuring the same quantity
+//	tickets:   webhook that also receives recalibration tickets: URL,
+//	           per-attempt timeout, retry backoff cap, auth by reference
 //
 // configs/demo.yaml is a complete, commented example.
 //
@@ -49,7 +51,8 @@
 // # Credentials
 //
 // Secrets never appear in the file: it names the environment variable
-// (password_env, token_env) or the credentials file (creds_file). A
-// password inside a server URL is an error, and Explain and error messages
-// mask it.
+// (password_env, token_env, tickets.webhook.header_env) or the credentials
+// file (creds_file). A password inside a server or webhook URL is an error,
+// and Explain and error messages mask it, as well as the query values of a
+// webhook URL. This package never reads those variables.
 package configs

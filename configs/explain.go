@@ -10,10 +10,11 @@ import (
 )
 
 // Explain writes a readable summary of c for people checking a
-// configuration: bus, store, windows, every class with its limits converted
-// to canonical units (class unit per day, per day²), sensors with their own
-// settings, and peer groups. Credentials are never printed: passwords in
-// server URLs are masked and only the names of environment variables and
+// configuration: bus, store, the ticket webhook, windows, every class with
+// its limits converted to canonical units (class unit per day, per day²),
+// sensors with their own settings, and peer groups. Credentials are never
+// printed: passwords in server and webhook URLs and the query values of the
+// webhook URL are masked, and only the names of environment variables and
 // credential files appear. Write errors are ignored (the caller's writer
 // decides).
 func (c *Config) Explain(w io.Writer) {
@@ -74,6 +75,20 @@ func (c *Config) Explain(w io.Writer) {
 		p("  fit history:     kept forever\n")
 	} else {
 		p("  fit history:     kept %s\n", FormatDuration(s.HistoryRetention))
+	}
+	wh := &c.Tickets.Webhook
+	p("\ntickets\n")
+	p("  bus:             %s\n", b.TicketSubject)
+	if wh.URL == "" {
+		p("  webhook:         none\n")
+	} else {
+		p("  webhook:         POST %s\n", redactWebhookURL(wh.URL))
+		p("  attempts:        time out after %s; retries back off up to %s\n", FormatDuration(wh.Timeout), FormatDuration(wh.MaxBackoff))
+		authz := "none"
+		if wh.HeaderEnv != "" {
+			authz = "from $" + wh.HeaderEnv
+		}
+		p("  authorization:   %s\n", authz)
 	}
 	p("\nmetrics on http://%s/metrics\n", c.HTTP.Addr)
 	p("\ndefault windows: %s\n", windowList(c.Defaults.Windows))
@@ -162,9 +177,16 @@ func fmtNum(f float64) string {
 }
 
 func explainClass(w io.Writer, cl *Class, in string) {
+	fmt.Fprintf(w, "%s%s\n", in, cl.Name)
+	fmt.Fprintf(w, "%s  match:       %s\n", in, strings.Join(cl.Match, ", "))
+	explainSettings(w, cl, in+"  ")
+}
+
+// explainSettings writes the fields of a class that a sensor can override,
+// with tolerance and limits in canonical units.
+func explainSettings(w io.Writer, cl *Class, in string) {
+	in = strings.TrimSuffix(in, "  ")
 	p := func(format string, args ...any) { fmt.Fprintf(w, format, args...) }
-	p("%s%s\n", in, cl.Name)
-	p("%s  match:       %s\n", in, strings.Join(cl.Match, ", "))
 	p("%s  unit, span:  %s, %s..%s %s (width %s)\n", in, cl.Unit, fmtNum(cl.Span.Lower), fmtNum(cl.Span.Upper), cl.Unit, fmtNum(cl.Span.Width()))
 	p("%s  tolerance:   %s = ±%s %s around the as-left value\n", in, cl.Tolerance.Text, fmtNum(cl.Tolerance.Abs), cl.Unit)
 	p("%s  windows:     %s\n", in, windowList(cl.Windows))
@@ -221,4 +243,53 @@ func explainLimits(w io.Writer, cl *Class, in string) {
 		return fmt.Sprintf(" (growth rate %s /day)", fmtNum(math.Ln2/(float64(d)/float64(Day))))
 	})
 	dur("lead time", l.LeadTime, func(time.Duration) string { return "" })
+}
+
+// ExplainSensor writes how the sensor id resolves: its class and why (pinned
+// by the sensor's class field, or the class pattern it matches), the fields
+// it overrides, its as-left value and peer group, and the merged settings
+// with tolerance and limits in canonical units (class unit, unit per day,
+// unit per day²). On error nothing is written and the error is ClassFor's:
+// ErrNoClass, ErrAmbiguous, ErrUndefined, ErrOverlap or a validation error
+// of the merged settings. Write errors are ignored.
+func (c *Config) ExplainSensor(w io.Writer, id string) error {
+	cl, err := c.ClassFor(id)
+	if err != nil {
+		return err
+	}
+	p := func(format string, args ...any) { fmt.Fprintf(w, format, args...) }
+	how := "pinned by sensors[" + id + "].class"
+	var sn *Sensor
+	for i := range c.Sensors {
+		if c.Sensors[i].ID == id {
+			sn = &c.Sensors[i]
+		}
+	}
+	if sn == nil || sn.Class == "" {
+		for _, m := range cl.Match {
+			if matchPattern(m, id) {
+				how = fmt.Sprintf("matches pattern %q", m)
+				break
+			}
+		}
+	}
+	p("sensor %s\n", id)
+	p("  class:       %s (%s)\n", cl.Name, how)
+	var own []string
+	for _, f := range overridable {
+		if c.written(sensorPath(id) + "." + f) {
+			own = append(own, f)
+		}
+	}
+	if len(own) > 0 {
+		p("  overrides:   %s\n", strings.Join(own, ", "))
+	}
+	asLeft := "not set (the level of the first usable trend fit is taken)"
+	if cl.HasAsLeft {
+		asLeft = fmtNum(cl.AsLeft) + " " + cl.Unit
+	}
+	p("  as-left:     %s\n", asLeft)
+	p("  peer group:  %s\n", orNone(cl.Group))
+	explainSettings(w, cl, "  ")
+	return nil
 }

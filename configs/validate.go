@@ -109,6 +109,7 @@ func (c *Config) validate(bad map[string]bool) error {
 	v.classes()
 	v.sensors()
 	v.groups()
+	v.tickets()
 	return errors.Join(v.errs...)
 }
 
@@ -247,6 +248,88 @@ func redactURL(s string) string {
 		user = user[:c] + ":xxxxx"
 	}
 	return s[:i+3] + user + rest[at:]
+}
+
+// redactQuery masks the values of a URL's query parameters, keeping their
+// names: webhook receivers often take their token as a query parameter, and
+// the names are enough to recognise a URL in a summary or an error.
+func redactQuery(s string) string {
+	q := strings.IndexByte(s, '?')
+	if q < 0 {
+		return s
+	}
+	end := len(s)
+	if h := strings.IndexByte(s[q:], '#'); h >= 0 {
+		end = q + h
+	}
+	params := strings.Split(s[q+1:end], "&")
+	for i, kv := range params {
+		if k, _, ok := strings.Cut(kv, "="); ok {
+			params[i] = k + "=xxxxx"
+		} else if kv != "" {
+			params[i] = "xxxxx"
+		}
+	}
+	return s[:q+1] + strings.Join(params, "&") + s[end:]
+}
+
+// redactWebhookURL hides a webhook URL's password and query values.
+func redactWebhookURL(s string) string { return redactQuery(redactURL(s)) }
+
+// tickets checks the webhook. The URL is checked with net/url, the scheme
+// restricted to http and https (RFC 9110, section 4.2); the header
+// variable's value is never read here.
+func (v *validator) tickets() {
+	w := &v.c.Tickets.Webhook
+	const base = "tickets.webhook"
+	if w.Timeout <= 0 {
+		v.add(base+".timeout", FormatDuration(w.Timeout), ErrRange, "must be > 0")
+	}
+	if w.MaxBackoff <= 0 {
+		v.add(base+".max_backoff", FormatDuration(w.MaxBackoff), ErrRange, "must be > 0")
+	}
+	v.envName(base+".header_env", w.HeaderEnv)
+	if w.URL == "" {
+		// Settings for a webhook that does not exist are most likely a
+		// forgotten or misspelt url, so they are reported, as bus
+		// credentials without servers are.
+		for _, f := range []struct{ key, val string }{
+			{"timeout", FormatDuration(w.Timeout)}, {"max_backoff", FormatDuration(w.MaxBackoff)}, {"header_env", w.HeaderEnv},
+		} {
+			if p := base + "." + f.key; v.c.written(p) {
+				v.add(p, f.val, ErrConflict, "has no effect without %s.url; set the url or remove it", base)
+			}
+		}
+		return
+	}
+	p := base + ".url"
+	shown := redactWebhookURL(w.URL)
+	u, err := url.Parse(w.URL)
+	if err != nil {
+		detail := err.Error()
+		var ue *url.Error
+		if errors.As(err, &ue) {
+			detail = ue.Err.Error() // ue.URL would repeat the unmasked value
+		}
+		v.add(p, shown, ErrRange, "not a URL: %s", detail)
+		return
+	}
+	if u.Scheme != "http" && u.Scheme != "https" {
+		v.add(p, shown, ErrRange, "scheme must be http or https")
+	}
+	if u.Host == "" || u.Hostname() == "" {
+		v.add(p, shown, ErrRange, "missing host")
+	}
+	if u.User != nil {
+		if _, has := u.User.Password(); has {
+			v.add(p, shown, ErrCredential, "remove the password from the URL and put the whole Authorization header value in the environment variable named by %s.header_env", base)
+		} else if w.HeaderEnv != "" {
+			v.add(p, shown, ErrConflict, "a user name in the URL and %s.header_env both set the Authorization header; keep one", base)
+		}
+	}
+	if u.Fragment != "" || strings.HasSuffix(w.URL, "#") {
+		v.add(p, shown, ErrRange, "a fragment (#...) is never sent to the server; remove it")
+	}
 }
 
 func (v *validator) store() {
