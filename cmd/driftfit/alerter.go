@@ -63,7 +63,8 @@ type webhookOptions struct {
 	url        string
 	timeout    time.Duration
 	maxBackoff time.Duration
-	header     string // Authorization header value, if any
+	header     string        // Authorization header value, if any
+	firstRetry time.Duration // first backoff; default 1s
 }
 
 func newAlerter(cfg *configs.Config, nc *nats.Conn, db *store.DB, log zerolog.Logger, hook webhookOptions) (*alerter, error) {
@@ -72,6 +73,9 @@ func newAlerter(cfg *configs.Config, nc *nats.Conn, db *store.DB, log zerolog.Lo
 	}
 	if hook.maxBackoff <= 0 {
 		hook.maxBackoff = 5 * time.Minute
+	}
+	if hook.firstRetry <= 0 {
+		hook.firstRetry = time.Second
 	}
 	a := &alerter{
 		cfg: cfg, nc: nc, db: db, log: log.With().Str("component", "alert").Logger(),
@@ -364,7 +368,7 @@ func (a *alerter) deliver(ctx context.Context) {
 		return
 	}
 	client := &http.Client{Timeout: a.webhook.timeout}
-	backoff := time.Second
+	backoff := a.webhook.firstRetry
 	for {
 		items, err := a.db.Outbox(32)
 		if err != nil {
@@ -389,7 +393,7 @@ func (a *alerter) deliver(ctx context.Context) {
 		case len(items) == 32:
 			wait = 0
 		default:
-			backoff = time.Second
+			backoff = a.webhook.firstRetry
 		}
 		select {
 		case <-ctx.Done():
