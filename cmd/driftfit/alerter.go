@@ -43,7 +43,15 @@ type alerter struct {
 
 	writes chan alertWrite
 	wake   chan struct{} // outbox has new items
+
+	// peers, if set, judges peer-group members on their deviation from
+	// the group while the group has two live members.
+	peers *peers
 }
+
+// peerKey is the suffix of the tracker key (and stored state) of a
+// member's peer rule, judged on its deviation from its group.
+const peerKey = "~peers"
 
 type trackerEntry struct {
 	mu       sync.Mutex
@@ -124,12 +132,14 @@ func ruleFor(cfg *configs.Config, id string) (alert.Rule, bool, error) {
 	return r, on && r.Tolerance > 0, nil
 }
 
-// entry returns the sensor's tracker entry, making it (from the stored
-// state if any) on first use; nil when the sensor has no rule.
-func (a *alerter) entry(id string) *trackerEntry {
+// entry returns the tracker entry under key for sensor id, making it
+// (from the stored state if any) on first use; nil when the sensor has
+// no rule. A non-empty group marks the member's peer rule, judged on its
+// deviation from the group; its events say so in their class.
+func (a *alerter) entry(key, id, group string) *trackerEntry {
 	a.mu.Lock()
 	defer a.mu.Unlock()
-	if e, ok := a.trackers[id]; ok {
+	if e, ok := a.trackers[key]; ok {
 		return e
 	}
 	var e *trackerEntry
@@ -137,23 +147,29 @@ func (a *alerter) entry(id string) *trackerEntry {
 	if err != nil {
 		a.log.Warn().Str("sensor", id).Err(err).Msg("no alert rule")
 	}
+	if group != "" {
+		r.Class += " vs peer group " + group
+		// The deviation from the peers starts at zero by construction:
+		// the tolerance band is centred there, whatever the as-left.
+		r.AsLeft, r.HasAsLeft = 0, true
+	}
 	if ok {
 		tr, err := alert.NewTracker(id, r)
 		if err != nil {
 			a.log.Warn().Str("sensor", id).Err(err).Msg("alert rule refused")
 		} else {
 			e = &trackerEntry{tr: tr, lastEval: map[rolling.WindowSpec]int64{}}
-			if st, ok := a.saved[id]; ok {
+			if st, ok := a.saved[key]; ok {
 				if err := e.decode(st); err != nil {
 					a.log.Warn().Str("sensor", id).Err(err).Msg("stored alert state unreadable; starting afresh")
 					tr, _ = alert.NewTracker(id, r)
 					e = &trackerEntry{tr: tr, lastEval: map[rolling.WindowSpec]int64{}}
 				}
-				delete(a.saved, id)
+				delete(a.saved, key)
 			}
 		}
 	}
-	a.trackers[id] = e
+	a.trackers[key] = e
 	return e
 }
 
@@ -202,7 +218,19 @@ func (e *trackerEntry) decode(b []byte) error {
 // fit's newest reading time is the evaluation time, so a replay of old
 // data judges it as it happened.
 func (a *alerter) paneClosed(id string, _ int, sol *rolling.Solution) {
-	e := a.entry(id)
+	if a.peers != nil && a.peers.comparing(id) {
+		return // judged on its deviation from the group instead
+	}
+	a.evaluate(id, id, "", sol)
+}
+
+// evaluatePeers judges a member's deviation from its peer group.
+func (a *alerter) evaluatePeers(id, group string, sol *rolling.Solution) {
+	a.evaluate(id+peerKey, id, group, sol)
+}
+
+func (a *alerter) evaluate(key, id, group string, sol *rolling.Solution) {
+	e := a.entry(key, id, group)
 	if e == nil || sol.N == 0 {
 		return
 	}
@@ -221,22 +249,22 @@ func (a *alerter) paneClosed(id string, _ int, sol *rolling.Solution) {
 		return
 	}
 	e.lastEval[sol.Window] = last
-	a.submit(id, e, d)
+	a.submit(key, e, d)
 }
 
-// submit queues the entry's state and the decision's events and tickets.
-// The caller holds e.mu.
-func (a *alerter) submit(id string, e *trackerEntry, d alert.Decision) {
+// submit queues the entry's state (stored under key) and the decision's
+// events and tickets. The caller holds e.mu.
+func (a *alerter) submit(key string, e *trackerEntry, d alert.Decision) {
 	st, err := e.encode()
 	if err != nil {
-		a.log.Error().Str("sensor", id).Err(err).Msg("alert state not encoded")
+		a.log.Error().Str("sensor", key).Err(err).Msg("alert state not encoded")
 		return
 	}
-	w := alertWrite{w: store.AlertWrite{Sensor: id, State: st}, events: d.Events}
+	w := alertWrite{w: store.AlertWrite{Sensor: key, State: st}, events: d.Events}
 	for _, ev := range d.Events {
 		data, err := json.Marshal(ev)
 		if err != nil {
-			a.log.Error().Str("sensor", id).Err(err).Msg("event not encoded")
+			a.log.Error().Str("sensor", key).Err(err).Msg("event not encoded")
 			continue
 		}
 		w.w.Events = append(w.w.Events, store.TimedValue{At: ev.At, Data: data})
@@ -247,7 +275,7 @@ func (a *alerter) submit(id string, e *trackerEntry, d alert.Decision) {
 		}
 		data, err := json.Marshal(tk)
 		if err != nil {
-			a.log.Error().Str("sensor", id).Err(err).Msg("ticket not encoded")
+			a.log.Error().Str("sensor", key).Err(err).Msg("ticket not encoded")
 			continue
 		}
 		if w.w.Tickets == nil {
@@ -262,19 +290,35 @@ func (a *alerter) submit(id string, e *trackerEntry, d alert.Decision) {
 	a.writes <- w
 }
 
-// calibrate applies a calibration event to the sensor's tracker.
+// calibrate applies a calibration event to the sensor's trackers: its
+// own rule's and, for a peer-group member, its peer rule's.
 func (a *alerter) calibrate(id string, c alert.Calibration) error {
-	e := a.entry(id)
+	e := a.entry(id, id, "")
 	if e == nil {
 		return fmt.Errorf("sensor %s has no alert rule", id)
 	}
-	e.mu.Lock()
-	defer e.mu.Unlock()
-	d, err := e.tr.Calibrate(c)
-	if err != nil {
-		return err
+	keys := []*trackerEntry{e}
+	a.mu.Lock()
+	if pe := a.trackers[id+peerKey]; pe != nil {
+		keys = append(keys, pe)
 	}
-	a.submit(id, e, d)
+	a.mu.Unlock()
+	for i, e := range keys {
+		key := id
+		if i > 0 {
+			key = id + peerKey
+			c.AsLeft = 0 // the peer deviation restarts from zero
+		}
+		e.mu.Lock()
+		d, err := e.tr.Calibrate(c)
+		if err == nil {
+			a.submit(key, e, d)
+		}
+		e.mu.Unlock()
+		if err != nil {
+			return err
+		}
+	}
 	a.log.Info().Str("sensor", id).Float64("as_found", c.AsFound).Float64("as_left", c.AsLeft).Time("at", c.Time).Msg("calibration recorded")
 	return nil
 }
