@@ -8,6 +8,7 @@ import (
 	"errors"
 	"fmt"
 	"net/http"
+	"os"
 	"sync"
 	"time"
 
@@ -519,8 +520,13 @@ func (a *alerter) subscribeCalibrations(prefix string) (func(), error) {
 }
 
 // webhookFromConfig returns the ticket webhook settings of the
-// configuration; none yet when the configuration has no webhook section.
+// configuration, reading the Authorization header value from the
+// environment variable it names.
 func webhookFromConfig(cfg *configs.Config) webhookOptions {
-	_ = cfg
-	return webhookOptions{}
+	w := cfg.Tickets.Webhook
+	o := webhookOptions{url: w.URL, timeout: w.Timeout, maxBackoff: w.MaxBackoff}
+	if w.HeaderEnv != "" {
+		o.header = os.Getenv(w.HeaderEnv)
+	}
+	return o
 }
