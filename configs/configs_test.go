@@ -334,6 +334,30 @@ func TestParse_WebhookURLs(t *testing.T) {
 	}
 }
 
+// A problem of the class itself is reported once, not again for each
+// sensor listed under sensors (whose merged settings are checked too).
+func TestParse_ClassProblemReportedOnce(t *testing.T) {
+	data := `classes:
+  - name: p
+    match: ["a.*"]
+    unit: kPa
+    span: {lower: 0, upper: 10}
+    tolerance: "0.1 kPa"
+    limits: {slope: "0.2 kPa/fortnight"}
+sensors:
+  a.one: {as_left: 1}
+  a.two: {cooldown: 1h}
+`
+	_, err := configs.Parse("once.yaml", []byte(data))
+	if err == nil {
+		t.Fatal("Parse = nil error, want the unknown time unit")
+	}
+	want := `once.yaml:7:21: classes[0].limits.slope = "0.2 kPa/fortnight": bad unit: unknown time unit "fortnight"`
+	if got := splitJoined(err); len(got) != 1 || !strings.HasPrefix(got[0].Error(), want) {
+		t.Errorf("Parse errors = %q, want exactly one starting %q", err, want)
+	}
+}
+
 func TestParse_ExplicitZeroKept(t *testing.T) {
 	c, err := configs.Load("testdata/explicit_zero.good.yaml")
 	if err != nil {

@@ -61,11 +61,7 @@ func (v *validator) add(path, value string, sentinel error, format string, args 
 			return
 		}
 	}
-	detail := fmt.Sprintf(format, args...)
-	if v.note != "" && !strings.HasPrefix(path, "sensors[") {
-		detail += " " + v.note
-	}
-	fe := &FieldError{File: v.c.file, Field: path, Value: value, Err: sentinel, Detail: detail}
+	fe := &FieldError{File: v.c.file, Field: path, Value: value, Err: sentinel, Detail: fmt.Sprintf(format, args...)}
 	// Place the error at the field, or at the nearest written ancestor
 	// when the field itself is missing.
 	for p := path; p != ""; p = parent(p) {
@@ -73,6 +69,14 @@ func (v *validator) add(path, value string, sentinel error, format string, args 
 			fe.Line, fe.Column = pos.line, pos.column
 			break
 		}
+	}
+	// A class problem found again through a sensor's merged settings is
+	// the class's own: report it once, without naming the sensor.
+	if v.seen[fe.Error()] {
+		return
+	}
+	if v.note != "" && !strings.HasPrefix(path, "sensors[") {
+		fe.Detail += " " + v.note
 	}
 	key := fe.Error()
 	if v.seen[key] {
