@@ -470,10 +470,10 @@ func TestClassFor_Demo(t *testing.T) {
 	}{
 		// 0.25 % of 2500 kPa = 6.25 kPa; 0.5 % of 2500 = 12.5 kPa per year
 		// = 12.5/365.2425 kPa/day.
-		{"qm.u1.steam.pt-101", "pressure-transmitter", 6.25, 12.5 / 365.2425, 0.4, true, "u1-steam-header"},
+		{"qm.u1.steam.pt-101", "pressure-transmitter", 6.25, 12.5 / 365.2425, 1000.4, true, "u1-steam-header"},
 		// Span overridden to 0..6000: 0.25 % = 15 kPa; 0.5 % = 30 kPa per
 		// year = 30/365.2425 kPa/day.
-		{"qm.u2.reactor.pt-105", "pressure-transmitter", 15, 30 / 365.2425, -1.2, true, ""},
+		{"qm.u2.reactor.pt-105", "pressure-transmitter", 15, 30 / 365.2425, 1498.8, true, ""},
 		// Pinned class, tolerance overridden to 0.1 degC; 1 degC/year.
 		{"qm.u4.lab.ref-01", "rtd-temperature", 0.1, 1 / 365.2425, 0, false, ""},
 		// 1.5 m3/h per month = 1.5/30.436875 m3/h per day.
@@ -636,7 +636,7 @@ func TestExplainSensor(t *testing.T) {
 		{"qm.u2.reactor.pt-105", []string{
 			`class:       pressure-transmitter (matches pattern "qm.*.*.pt-*")`,
 			"overrides:   span.upper",
-			"as-left:     -1.2 kPa",
+			"as-left:     1498.8 kPa",
 			"peer group:  none",
 			"unit, span:  kPa, 0..6000 kPa (width 6000)",
 			// 0.25 % of 6000 kPa = 15 kPa.
