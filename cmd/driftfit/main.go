@@ -34,6 +34,7 @@ func init() {
 		{"serve", "run the service: read readings from NATS, keep and store the fits", runServe},
 		{"demo-feed", "generate readings of an invented plant", runDemoFeed},
 		{"history", "print or plot the fit history of a sensor from the database", runHistory},
+		{"check-config", "check a configuration file and explain what it sets", runCheckConfig},
 		{"alerts", "list alert events, or the alerts still firing", runAlerts},
 		{"tickets", "list recalibration tickets", runTickets},
 		{"calibrated", "record a sensor's calibration (as-found, as-left) with the running service", runCalibrated},
