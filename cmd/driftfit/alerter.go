@@ -96,6 +96,8 @@ func newAlerter(cfg *configs.Config, nc *nats.Conn, db *store.DB, log zerolog.Lo
 		a.saved[id] = bytes.Clone(state)
 		return nil
 	})
+	// The caution travels in every event and ticket; the log says it once.
+	a.log.Info().Str("caution", alert.Caution).Msg("alert rules active")
 	return a, err
 }
 
@@ -390,7 +392,7 @@ func (a *alerter) publish(w alertWrite) {
 		}
 		lvl.Str("sensor", ev.Sensor).Str("window", ev.Window).Str("kind", ev.Kind.String()).Str("type", ev.Type.String()).
 			Str("severity", ev.Severity.String()).Float64("value", ev.Value).Float64("limit", ev.Limit).Str("unit", ev.Unit).
-			Str("caution", alert.Caution).Msg("alert")
+			Msg("alert")
 		if err := a.nc.Publish(a.alertPrefix+"."+ev.Sensor, w.w.Events[i].Data); err != nil {
 			a.log.Warn().Err(err).Str("sensor", ev.Sensor).Msg("alert not published")
 		}
@@ -398,7 +400,7 @@ func (a *alerter) publish(w alertWrite) {
 	for _, tk := range w.ticket {
 		data := w.w.Tickets[tk.ID]
 		a.log.Info().Str("sensor", tk.Sensor).Str("ticket", tk.ID).Time("due", tk.Due).Bool("closed", tk.Calibration != nil).
-			Str("caution", alert.Caution).Msg("recalibration ticket")
+			Msg("recalibration ticket")
 		if err := a.nc.Publish(a.ticketSubject, data); err != nil {
 			a.log.Warn().Err(err).Str("ticket", tk.ID).Msg("ticket not published")
 		}
