@@ -171,11 +171,11 @@ loop:
 		case m := <-in:
 			s.handle(m)
 			s.drain(in, drainMax-1)
-			if s.sinceCommit >= s.o.CommitReadings {
+			if s.sinceCommit >= s.o.CommitReadings && s.committerFree() {
 				s.commit()
 			}
 		case <-tick.C:
-			if s.dirty {
+			if s.dirty && s.committerFree() {
 				s.commit()
 			}
 		case runErr = <-s.fatal:

@@ -76,7 +76,10 @@ type Options struct {
 	// Default 200ms.
 	CommitInterval time.Duration
 	// CommitReadings starts a commit early once this many readings were
-	// applied since the last one. Default 10,000.
+	// applied since the last one. Default 10,000. While the previous
+	// commit is still writing, readings keep being applied and go into
+	// the next commit, so a slow disk makes commits larger rather than
+	// stalling ingest.
 	CommitReadings int
 	// FutureSkew is how far a reading's time may lie ahead of Now.
 	// Default 5m.
@@ -98,6 +101,13 @@ type Options struct {
 	// solution went into the fit history). It runs on the worker: keep
 	// it short, and do not keep sol past the call.
 	OnPaneClose func(id string, window int, sol *rolling.Solution)
+	// OnApplied, if not nil, is called by a sensor's worker after it
+	// folded the readings of one message into the sensor (readings the
+	// sensor refused as too old included), before they are committed.
+	// It runs on the worker: keep it short, and do not keep readings past
+	// the call. Nil costs nothing; driftfit bench uses it to time the way
+	// from publish to fit.
+	OnApplied func(id string, readings []rolling.Reading)
 }
 
 func (o *Options) fill() error {

@@ -21,7 +21,7 @@ import (
 
 // natsServer runs a NATS server with JetStream in the test, its store in
 // dir, on port (0: any free one).
-func natsServer(t *testing.T, dir string, port int) *server.Server {
+func natsServer(t testing.TB, dir string, port int) *server.Server {
 	t.Helper()
 	if port == 0 {
 		port = -1
@@ -95,7 +95,7 @@ func (h *harness) stop() {
 }
 
 // waitFor polls cond until it holds or 30 s pass.
-func waitFor(t *testing.T, what string, cond func() bool) {
+func waitFor(t testing.TB, what string, cond func() bool) {
 	t.Helper()
 	deadline := time.Now().Add(30 * time.Second)
 	for !cond() {

@@ -89,7 +89,8 @@ func (w *worker) apply(j *job, readings []rolling.Reading) {
 		w.touch = append(w.touch, ref)
 	}
 	var ok uint64
-	for _, r := range readings[j.off : j.off+j.n] {
+	rs := readings[j.off : j.off+j.n]
+	for _, r := range rs {
 		if mask := st.sensor.Closes(r.UnixNano); mask != 0 {
 			w.closePanes(ref, mask)
 		}
@@ -103,6 +104,9 @@ func (w *worker) apply(j *job, readings []rolling.Reading) {
 	w.s.applied.Add(ok)
 	if m := w.s.o.Metrics; m != nil {
 		m.Applied.Add(float64(ok))
+	}
+	if f := w.s.o.OnApplied; f != nil {
+		f(ref.id, rs)
 	}
 }
 

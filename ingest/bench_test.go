@@ -1,0 +1,107 @@
+package ingest_test
+
+import (
+	"context"
+	"fmt"
+	"path/filepath"
+	"strconv"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go"
+
+	"driftfit/ingest"
+	"driftfit/rolling"
+	"driftfit/store"
+)
+
+// BenchmarkService_Direct measures the per-reading path of a running
+// service in direct mode: NATS delivery, decode, validate, hand-off to the
+// workers and the windows (1d/1h and 30d/1d) of 1,000 sensors, with
+// commits running beside it (fsync off, so the disk does not set the
+// pace). One op is one reading; the publisher stays at most 50,000
+// messages ahead, so nothing is dropped.
+func BenchmarkService_Direct(b *testing.B) {
+	for _, per := range []int{1, 100} {
+		b.Run("per_msg="+strconv.Itoa(per), func(b *testing.B) {
+			dir := b.TempDir()
+			ns := natsServer(b, filepath.Join(dir, "nats"), 0)
+			defer ns.Shutdown()
+			nc, err := nats.Connect(ns.ClientURL())
+			if err != nil {
+				b.Fatal(err)
+			}
+			defer nc.Close()
+			pub, err := nats.Connect(ns.ClientURL())
+			if err != nil {
+				b.Fatal(err)
+			}
+			defer pub.Close()
+			db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{NoSync: true})
+			if err != nil {
+				b.Fatal(err)
+			}
+			defer db.Close()
+			svc, err := ingest.New(ingest.Options{
+				Conn: nc, DB: db, Mode: ingest.ModeDirect,
+				Sensor: func(string) (ingest.SensorConfig, error) {
+					return ingest.SensorConfig{Windows: []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}, {Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}}}, nil
+				},
+			})
+			if err != nil {
+				b.Fatal(err)
+			}
+			ctx, cancel := context.WithCancel(context.Background())
+			done := make(chan error, 1)
+			go func() { done <- svc.Run(ctx) }()
+			defer func() {
+				cancel()
+				if err := <-done; err != nil {
+					b.Error(err)
+				}
+			}()
+
+			const sensors = 10000
+			end := time.Now().Add(-time.Minute).Truncate(time.Second)
+			subjects := make([]string, sensors)
+			payloads := make([][]byte, sensors)
+			rs := make([]rolling.Reading, per)
+			for i := range sensors {
+				subjects[i] = fmt.Sprintf("driftfit.in.bench.s%04d", i)
+				for j := range rs {
+					rs[j] = rolling.Reading{UnixNano: end.Add(-time.Duration(per-j) * time.Second).UnixNano(), Value: 100 + float64(i%7) + float64(j)*0.01}
+				}
+				if per == 1 {
+					payloads[i] = ingest.AppendReading(nil, ingest.Decoded{Reading: rs[0]})
+				} else {
+					payloads[i] = ingest.AppendBatch(nil, subjects[i][len("driftfit.in."):], rs)
+				}
+			}
+			// Core NATS keeps nothing for late subscribers: probe until live.
+			waitFor(b, "subscription", func() bool {
+				_ = pub.Publish(subjects[0], payloads[0])
+				_ = pub.Flush()
+				return svc.Stats().Applied > 0
+			})
+			base := svc.Stats()
+			msgs := (b.N + per - 1) / per
+			b.ReportAllocs()
+			b.ResetTimer()
+			for k := range msgs {
+				for stuck := time.Now(); k&255 == 0 && uint64(k)-(svc.Stats().Messages-base.Messages) > 50000; {
+					time.Sleep(50 * time.Microsecond)
+					if time.Since(stuck) > 10*time.Second {
+						b.Fatalf("after %d messages sent, %+v taken; server slow consumers %d", k, svc.Stats(), ns.NumSlowConsumers())
+					}
+				}
+				if err := pub.Publish(subjects[k%sensors], payloads[k%sensors]); err != nil {
+					b.Fatal(err)
+				}
+			}
+			want := base.Applied + uint64(msgs*per)
+			waitFor(b, "readings applied", func() bool { return svc.Stats().Applied >= want })
+			b.StopTimer()
+			b.ReportMetric(float64(msgs*per)/b.Elapsed().Seconds(), "readings/s")
+		})
+	}
+}
