@@ -38,6 +38,7 @@ func init() {
 		{"alerts", "list alert events, or the alerts still firing", runAlerts},
 		{"tickets", "list recalibration tickets", runTickets},
 		{"calibrated", "record a sensor's calibration (as-found, as-left) with the running service", runCalibrated},
+		{"bench", "measure throughput, latency, memory and restart against the bare bus", runBench},
 	}
 }
 

@@ -1,0 +1,1143 @@
+package main
+
+import (
+	"bufio"
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"math"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"runtime"
+	"runtime/debug"
+	"runtime/pprof"
+	"slices"
+	"strconv"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"text/tabwriter"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+	"github.com/prometheus/client_golang/prometheus"
+	dto "github.com/prometheus/client_model/go"
+	"github.com/rs/zerolog"
+
+	"driftfit/configs"
+	"driftfit/ingest"
+	"driftfit/rolling"
+	"driftfit/store"
+)
+
+// benchFleetSmall is the smaller fleet of the memory and restart phase.
+const benchFleetSmall = 10000
+
+// benchAlertNote says why the alert latency has no number yet.
+const benchAlertNote = "not measured yet: rules are judged when a pane closes, so this needs a configured class and readings that cross a pane boundary and a limit"
+
+// benchChanged is the count of sensors that receive a reading between two
+// commits in the fleet phase: what a commit writes should follow it, not
+// the fleet size.
+const benchChanged = 1000
+
+func runBench(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("bench", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	o := benchOptions{}
+	fs.DurationVar(&o.duration, "duration", 10*time.Second, "time for the throughput and latency phases, shared among them")
+	fs.IntVar(&o.sensors, "sensors", 10000, "sensors the publisher feeds in the throughput and latency phases")
+	fs.IntVar(&o.sensorsMax, "sensors-max", 100000, "largest fleet of the memory and restart phase (also run at 10,000 when larger; 0 skips the phase)")
+	fs.StringVar(&o.servers, "servers", "", "comma-separated NATS URLs to use instead of an embedded server")
+	fs.BoolVar(&o.json, "json", false, "print the results as one JSON object")
+	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the whole run to `FILE` (go tool pprof reads it)")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "Usage: driftfit bench [flags]\n\nMeasures the service as serve builds it (decode, validate, windows, bbolt\ncommits with fsync) against a subscriber that only counts or acks the same\nmessages, on an embedded NATS server on 127.0.0.1 unless --servers is given.\nNo thresholds: it prints what it measured. It fails only when a phase\napplied nothing or produced a number that is not finite.\n\nFlags:")
+		fs.PrintDefaults()
+	}
+	if err := fs.Parse(args); err != nil {
+		return err
+	}
+	switch {
+	case fs.NArg() != 0:
+		return usageError("unexpected arguments %q", fs.Args())
+	case o.duration < time.Second:
+		return usageError("--duration %v: want at least 1s", o.duration)
+	case o.sensors < 1:
+		return usageError("--sensors %d: want at least 1", o.sensors)
+	case o.sensorsMax < 0:
+		return usageError("--sensors-max %d: want 0 or more", o.sensorsMax)
+	}
+	log := zerolog.New(stderr).Level(zerolog.WarnLevel).With().Timestamp().Logger()
+	if *cpuProfile != "" {
+		f, err := os.Create(*cpuProfile)
+		if err != nil {
+			return err
+		}
+		defer f.Close()
+		if err := pprof.StartCPUProfile(f); err != nil {
+			return err
+		}
+		defer pprof.StopCPUProfile()
+	}
+	rep, err := bench(ctx, o, log, stderr)
+	if err != nil {
+		return err
+	}
+	if o.json {
+		enc := json.NewEncoder(stdout)
+		enc.SetIndent("", "  ")
+		if err := enc.Encode(rep); err != nil {
+			return err
+		}
+	} else {
+		rep.print(stdout)
+	}
+	return rep.check()
+}
+
+type benchOptions struct {
+	duration   time.Duration
+	sensors    int
+	sensorsMax int
+	servers    string
+	json       bool
+}
+
+// benchReport is what bench measured; its JSON form is the --json output.
+type benchReport struct {
+	Date       string            `json:"date"`
+	CPUs       int               `json:"cpus"`
+	CPUModel   string            `json:"cpu_model"`
+	Go         string            `json:"go"`
+	Bus        string            `json:"bus"`
+	Duration   string            `json:"duration"`
+	Sensors    int               `json:"sensors"`
+	Windows    string            `json:"windows"`
+	Throughput []benchThroughput `json:"throughput"`
+	Latency    benchLatency      `json:"latency"`
+	Fleets     []benchFleet      `json:"fleets"`
+	Notes      []string          `json:"notes"`
+}
+
+// benchThroughput is one delivery case: the pipeline and its baseline on
+// the same messages.
+type benchThroughput struct {
+	Case       string `json:"case"`
+	Mode       string `json:"mode"`
+	PerMessage int    `json:"readings_per_message"`
+	// Readings applied by the pipeline in Seconds of publishing.
+	Readings        uint64  `json:"readings_applied"`
+	Seconds         float64 `json:"seconds"`
+	AppliedPerSec   float64 `json:"applied_per_s"`
+	CommittedPerSec float64 `json:"committed_per_s"`
+	// Baseline is "count" (a core subscriber that only counts) or "ack"
+	// (a JetStream consumer that only acknowledges).
+	Baseline       string  `json:"baseline"`
+	BaselinePerSec float64 `json:"baseline_per_s"`
+	Ratio          float64 `json:"ratio"`
+	// Commits and the key and value bytes they put (store.CommitStats),
+	// the mean commit time with fsync, and the bytes the whole process
+	// wrote to disk meanwhile (/proc/self/io; -1 if unknown).
+	Commits        int     `json:"commits"`
+	BytesPerCommit float64 `json:"bytes_per_commit"`
+	BytesPerSec    float64 `json:"bytes_per_s"`
+	CommitMs       float64 `json:"commit_ms_mean"`
+	DiskPerSec     float64 `json:"disk_bytes_per_s"`
+	// Lost counts messages the publisher gave up waiting for (baseline
+	// and pipeline together); SlowConsumers the slow-consumer events the
+	// embedded server reported meanwhile. Both should be zero.
+	Lost          uint64 `json:"lost_messages"`
+	SlowConsumers uint64 `json:"server_slow_consumers"`
+}
+
+// benchLatency is the time from publishing a reading to the worker having
+// folded it into the sensor's windows, at a steady offered load.
+type benchLatency struct {
+	Mode          string  `json:"mode"`
+	OfferedPerSec float64 `json:"offered_per_s"`
+	Samples       int     `json:"samples"`
+	P50Ms         float64 `json:"p50_ms"`
+	P99Ms         float64 `json:"p99_ms"`
+	MaxMs         float64 `json:"max_ms"`
+	// Alert is why the alert latency has no number.
+	Alert string `json:"alert"`
+}
+
+// benchFleet is a restart of the service on a file holding a fleet with
+// full windows, the memory it then holds, and commits of a few changed
+// sensors in that fleet.
+type benchFleet struct {
+	Sensors        int     `json:"sensors"`
+	PanesPerSensor float64 `json:"panes_per_sensor"`
+	FileBytes      int64   `json:"file_bytes"`
+	OpenMs         float64 `json:"open_ms"`
+	RestoreMs      float64 `json:"restore_ms"`
+	HeapPerSensor  float64 `json:"heap_bytes_per_sensor"`
+	RSSPerSensor   float64 `json:"rss_anon_bytes_per_sensor"`
+	Changed        int     `json:"changed_per_commit"`
+	Commits        int     `json:"commits"`
+	BytesPerCommit float64 `json:"bytes_per_commit"`
+	CommitMs       float64 `json:"commit_ms_mean"`
+	DiskPerCommit  float64 `json:"disk_bytes_per_commit"`
+}
+
+// check fails a run that measured nothing or produced a number that is
+// not finite; it never judges speed.
+func (r *benchReport) check() error {
+	var errs []error
+	finite := func(what string, vs ...float64) {
+		for _, v := range vs {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				errs = append(errs, fmt.Errorf("bench: %s: a result is %v", what, v))
+				return
+			}
+		}
+	}
+	for _, t := range r.Throughput {
+		if t.Readings == 0 {
+			errs = append(errs, fmt.Errorf("bench: %s: no reading applied", t.Case))
+		}
+		if t.BaselinePerSec <= 0 {
+			errs = append(errs, fmt.Errorf("bench: %s: the baseline received nothing", t.Case))
+		}
+		finite(t.Case, t.AppliedPerSec, t.CommittedPerSec, t.BaselinePerSec, t.Ratio, t.BytesPerCommit, t.BytesPerSec, t.CommitMs, t.DiskPerSec)
+	}
+	if r.Latency.Samples == 0 {
+		errs = append(errs, errors.New("bench: latency: no probe reading came through"))
+	}
+	finite("latency", r.Latency.OfferedPerSec, r.Latency.P50Ms, r.Latency.P99Ms, r.Latency.MaxMs)
+	for _, f := range r.Fleets {
+		what := fmt.Sprintf("fleet of %d", f.Sensors)
+		if f.Commits == 0 {
+			errs = append(errs, fmt.Errorf("bench: %s: no commit of changed sensors", what))
+		}
+		finite(what, f.PanesPerSensor, f.OpenMs, f.RestoreMs, f.HeapPerSensor, f.RSSPerSensor, f.BytesPerCommit, f.CommitMs, f.DiskPerCommit)
+	}
+	return errors.Join(errs...)
+}
+
+// benchEnv is what every phase shares: the configuration serve would use
+// with no file (default windows), the bus, a temporary directory.
+type benchEnv struct {
+	cfg   *configs.Config
+	bus   *busConn
+	dir   string
+	log   zerolog.Logger
+	tag   string // keeps subjects and the stream apart from other runs on a shared bus
+	specs []rolling.WindowSpec
+	fleet []demoSensor
+}
+
+func bench(ctx context.Context, o benchOptions, log zerolog.Logger, progress io.Writer) (*benchReport, error) {
+	dir, err := os.MkdirTemp("", "driftfit-bench-")
+	if err != nil {
+		return nil, err
+	}
+	defer os.RemoveAll(dir)
+	cfg, err := configs.Parse("(defaults)", []byte("{}"))
+	if err != nil {
+		return nil, err
+	}
+	cfg.Store.Dir = dir
+	if o.servers != "" {
+		cfg.Bus.Servers = strings.Split(o.servers, ",")
+	}
+	// The bus metrics are unused here; connectBus wants somewhere to count.
+	bus, err := connectBus(cfg, -1, log, ingest.NewMetrics())
+	if err != nil {
+		return nil, err
+	}
+	defer bus.close()
+	if !waitUntil(ctx, 10*time.Second, bus.nc.IsConnected) {
+		return nil, fmt.Errorf("bench: not connected to %s after 10s", o.servers)
+	}
+	e := &benchEnv{cfg: cfg, bus: bus, dir: dir, log: log, tag: strconv.FormatUint(rand.Uint64()&0xffffff, 36)}
+	sc, _ := sensorConfig(cfg)("bench")
+	e.specs = sc.Windows
+	e.fleet = demoFleet(max(o.sensors, o.sensorsMax))
+
+	rep := &benchReport{
+		Date:     time.Now().UTC().Format(time.RFC3339),
+		CPUs:     runtime.NumCPU(),
+		CPUModel: cpuModel(),
+		Go:       runtime.Version(),
+		Bus:      "embedded NATS server, 127.0.0.1",
+		Duration: o.duration.String(),
+		Sensors:  o.sensors,
+		Windows:  specsString(e.specs),
+		Latency:  benchLatency{Alert: benchAlertNote},
+	}
+	if o.servers != "" {
+		rep.Bus = bus.nc.ConnectedUrlRedacted()
+	}
+	rep.Notes = append(rep.Notes,
+		"pipeline: decode, validate, every window of every sensor, alert evaluation at pane closes, bbolt commits with fsync, acks (stream), wired as serve wires them; the default configuration has no sensor classes, so no alert rule applies and evaluation costs next to nothing here",
+		"baseline: the same messages, published the same way, received by a core subscriber that only counts (direct) or a JetStream consumer that only acks each message (stream)",
+		"publisher: keeps at most a window of messages ahead of what the receiver took, so neither side drops; it shares the CPUs with both")
+
+	// Eight equal slots: three cases with a baseline and a pipeline each,
+	// filling the stream, and the latency phase.
+	slot := o.duration / 8
+	step := func(what string) { fmt.Fprintf(progress, "bench: %s\n", what) }
+
+	sensors := e.fleet[:o.sensors]
+	for _, per := range []int{1, 100} {
+		step(fmt.Sprintf("direct, %d per message", per))
+		pool := e.makePool(sensors, per, "bench"+e.tag+".d")
+		t, err := e.directCase(ctx, pool, slot)
+		if err != nil {
+			return nil, err
+		}
+		rep.Throughput = append(rep.Throughput, t)
+	}
+	step("stream, 100 per message")
+	t, err := e.streamCase(ctx, e.makePool(sensors, 100, "bench"+e.tag+".s"), slot)
+	if err != nil {
+		return nil, err
+	}
+	rep.Throughput = append(rep.Throughput, t)
+
+	step("latency")
+	offered := rep.Throughput[0].AppliedPerSec / 2
+	if rep.Latency, err = e.latency(ctx, e.makePool(sensors, 1, "bench"+e.tag+".l"), offered, slot); err != nil {
+		return nil, err
+	}
+
+	var sizes []int
+	if o.sensorsMax > benchFleetSmall {
+		sizes = append(sizes, benchFleetSmall)
+	}
+	if o.sensorsMax > 0 {
+		sizes = append(sizes, o.sensorsMax)
+	}
+	for _, n := range sizes {
+		step(fmt.Sprintf("fleet of %d sensors: build the file, restart, commits", n))
+		f, err := e.fleetCase(ctx, e.fleet[:n])
+		if err != nil {
+			return nil, err
+		}
+		rep.Fleets = append(rep.Fleets, f)
+	}
+	if len(rep.Fleets) > 0 {
+		rep.Notes = append(rep.Notes,
+			"fleet: the file is built through store.Batch with full windows (one reading in every pane), then a fresh service opens it with fsync on and restores every sensor; the file is in the page cache (a warm restart)",
+			"fleet memory: heap in use and anonymous RSS after a GC, before and after the restore, divided by the sensors; RSS includes what the runtime keeps for reuse")
+	}
+	return rep, nil
+}
+
+// benchPool is a set of encoded messages the publisher cycles through.
+type benchPool struct {
+	prefix   string
+	per      int // readings per message
+	subjects []string
+	data     [][]byte
+	bytes    int // total payload bytes
+}
+
+// benchPoolBytes bounds the memory of one pool. A pool repeats once sent
+// in full: the readings land again in the same open panes, which is
+// work of the same kind.
+const benchPoolBytes = 32 << 20
+
+// makePool encodes readings of the demo sensors, per readings a message:
+// single readings 10 s apart, round-robin over the sensors, or batches of
+// per readings 1 s apart, one batch per sensor. Times end a minute ago.
+func (e *benchEnv) makePool(sensors []demoSensor, per int, prefix string) *benchPool {
+	p := &benchPool{prefix: prefix, per: per}
+	rng := rand.New(rand.NewPCG(uint64(per), 7))
+	subj := make([]string, len(sensors))
+	for i := range sensors {
+		subj[i] = prefix + "." + sensors[i].id
+	}
+	end := time.Now().Add(-time.Minute).Truncate(time.Second)
+	if per == 1 {
+		msgs := min(len(sensors)*20, benchPoolBytes/64)
+		steps := (msgs + len(sensors) - 1) / len(sensors)
+		for k := range msgs {
+			i, step := k%len(sensors), k/len(sensors)
+			at := end.Add(-time.Duration(steps-step) * 10 * time.Second)
+			d := float64(at.Unix()%(30*86400)) / 86400
+			buf := ingest.AppendReading(nil, ingest.Decoded{Reading: rolling.Reading{UnixNano: at.UnixNano(), Value: sensors[i].value(d, rng)}})
+			p.subjects, p.data = append(p.subjects, subj[i]), append(p.data, buf)
+			p.bytes += len(buf)
+		}
+		return p
+	}
+	rs := make([]rolling.Reading, per)
+	for i := range sensors {
+		for j := range rs {
+			at := end.Add(-time.Duration(per-j) * time.Second)
+			d := float64(at.Unix()%(30*86400)) / 86400
+			rs[j] = rolling.Reading{UnixNano: at.UnixNano(), Value: sensors[i].value(d, rng)}
+		}
+		buf := ingest.AppendBatch(nil, sensors[i].id, rs)
+		p.subjects, p.data = append(p.subjects, subj[i]), append(p.data, buf)
+		p.bytes += len(buf)
+		if p.bytes > benchPoolBytes {
+			break
+		}
+	}
+	return p
+}
+
+// window returns how many messages the publisher may be ahead of the
+// receiver: 16 MiB of payload, well inside the 256 MiB and million
+// messages the subscriptions hold before they drop.
+func (p *benchPool) window() uint64 {
+	avg := max(1, p.bytes/len(p.data))
+	return uint64(min(100000, (16<<20)/avg))
+}
+
+// publish sends the pool's messages in turn until the deadline, never
+// more than window ahead of taken(), and returns the count sent and the
+// count it gave up on: when taken() stays still for benchStall with the
+// window full, the messages in flight are taken as lost (dropped by a
+// slow consumer somewhere) and publishing goes on.
+func (p *benchPool) publish(ctx context.Context, nc *nats.Conn, until time.Time, taken func() uint64) (sent, lost uint64, err error) {
+	win := p.window()
+	for i := 0; ; i++ {
+		if i&63 == 0 {
+			if ctx.Err() != nil || time.Now().After(until) {
+				return sent, lost, nc.Flush()
+			}
+			last, since := taken(), time.Now()
+			for sent-min(sent, last+lost) > win {
+				time.Sleep(100 * time.Microsecond)
+				now := time.Now()
+				if now.After(until) {
+					return sent, lost, nc.Flush()
+				}
+				if t := taken(); t != last {
+					last, since = t, now
+				} else if now.Sub(since) > benchStall {
+					lost = sent - last
+				}
+			}
+		}
+		k := i % len(p.data)
+		if err := nc.Publish(p.subjects[k], p.data[k]); err != nil {
+			return sent, lost, err
+		}
+		sent++
+	}
+}
+
+// benchStall is how long a receiver may take nothing before the
+// publisher counts what it has in flight as lost.
+const benchStall = 250 * time.Millisecond
+
+// slowConsumers returns the embedded server's count of slow-consumer
+// events, 0 on an outside server.
+func (e *benchEnv) slowConsumers() uint64 {
+	if e.bus.ns == nil {
+		return 0
+	}
+	return uint64(e.bus.ns.NumSlowConsumers())
+}
+
+// connect opens another connection to the bench's bus, of the same kind
+// as the pipeline's.
+func (e *benchEnv) connect() (*nats.Conn, error) {
+	if e.bus.ns != nil {
+		return nats.Connect(e.bus.ns.ClientURL(), nats.InProcessServer(e.bus.ns))
+	}
+	return nats.Connect(strings.Join(e.cfg.Bus.Servers, ","))
+}
+
+// benchPipeline is one service as serve builds it, on its own state file.
+type benchPipeline struct {
+	svc    *ingest.Service
+	db     *store.DB
+	m      *ingest.Metrics
+	opened time.Duration // store.Open
+	cancel context.CancelFunc
+	done   chan error
+
+	stopAlerts context.CancelFunc
+	alertsDone chan struct{}
+
+	stopOnce sync.Once
+	stopErr  error
+}
+
+// startPipeline opens (or creates) the state file at path and runs a
+// service on it with serve's options and the default configuration.
+func (e *benchEnv) startPipeline(ctx context.Context, path string, mode ingest.Mode, prefix, stream string, onApplied func(string, []rolling.Reading)) (*benchPipeline, error) {
+	if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
+		return nil, err
+	}
+	t0 := time.Now()
+	db, err := store.Open(path, store.Options{})
+	if err != nil {
+		return nil, err
+	}
+	opened := time.Since(t0)
+	cfg := e.cfg
+	m := ingest.NewMetrics()
+	lg := e.log
+	alerts, err := newAlerter(cfg, e.bus.nc, db, lg, webhookFromConfig(cfg))
+	if err != nil {
+		db.Close()
+		return nil, err
+	}
+	svc, err := ingest.New(ingest.Options{
+		Conn:             e.bus.nc,
+		DB:               db,
+		Sensor:           sensorConfig(cfg),
+		Mode:             mode,
+		SubjectPrefix:    prefix,
+		StreamName:       stream,
+		CommitInterval:   cfg.Store.CommitInterval,
+		CommitReadings:   cfg.Store.CommitReadings,
+		FutureSkew:       cfg.Bus.FutureSkew,
+		MaxPayload:       cfg.Bus.MaxPayloadBytes,
+		HistoryRetention: cfg.Store.HistoryRetention,
+		Logger:           &lg,
+		Metrics:          m,
+		OnPaneClose:      alerts.paneClosed,
+		OnApplied:        onApplied,
+	})
+	if err != nil {
+		db.Close()
+		return nil, err
+	}
+	runCtx, cancel := context.WithCancel(ctx)
+	// As in serve, the alerter outlives ingest.
+	alertCtx, stopAlerts := context.WithCancel(context.WithoutCancel(ctx))
+	p := &benchPipeline{svc: svc, db: db, m: m, opened: opened, cancel: cancel, done: make(chan error, 1),
+		stopAlerts: stopAlerts, alertsDone: make(chan struct{})}
+	go func() { defer close(p.alertsDone); alerts.run(alertCtx) }()
+	go alerts.deliver(runCtx)
+	go func() { p.done <- svc.Run(runCtx) }()
+	return p, nil
+}
+
+// stop shuts the service down (it commits what it applied) and closes
+// the file.
+// Later calls return the first call's result.
+func (p *benchPipeline) stop() error {
+	p.stopOnce.Do(func() {
+		p.cancel()
+		err := <-p.done
+		p.stopAlerts()
+		<-p.alertsDone
+		p.stopErr = errors.Join(err, p.db.Close())
+	})
+	return p.stopErr
+}
+
+// waitLive publishes a reading to probe until the direct subscription is
+// live, as core NATS keeps nothing for late subscribers.
+func (p *benchPipeline) waitLive(ctx context.Context, nc *nats.Conn, subject string) error {
+	msg := ingest.AppendReading(nil, ingest.Decoded{Reading: rolling.Reading{UnixNano: time.Now().Add(-time.Minute).UnixNano(), Value: 1}})
+	ok := waitUntil(ctx, 10*time.Second, func() bool {
+		_ = nc.Publish(subject, msg)
+		_ = nc.Flush()
+		return p.svc.Stats().Applied > 0
+	})
+	if !ok {
+		return fmt.Errorf("bench: no reading on %s applied within 10s", subject)
+	}
+	return nil
+}
+
+// warmUp sends one message for every sensor of the pool and waits until
+// they are applied: a sensor's windows are allocated with its first
+// reading, which is not the steady state to measure.
+func (p *benchPipeline) warmUp(ctx context.Context, nc *nats.Conn, pool *benchPool) error {
+	want := p.svc.Stats().Applied
+	seen := map[string]bool{}
+	for k, subj := range pool.subjects {
+		if seen[subj] {
+			continue
+		}
+		seen[subj] = true
+		if err := nc.Publish(subj, pool.data[k]); err != nil {
+			return err
+		}
+		want += uint64(pool.per)
+	}
+	if err := nc.Flush(); err != nil {
+		return err
+	}
+	if !waitUntil(ctx, time.Minute, func() bool { return p.svc.Stats().Applied >= want }) {
+		return errors.New("bench: warm-up readings not applied within a minute")
+	}
+	return nil
+}
+
+// committed waits until the file holds at least n applied readings and
+// returns when that was seen.
+func (p *benchPipeline) committed(ctx context.Context, n uint64) (time.Time, error) {
+	var err error
+	ok := waitUntil(ctx, time.Minute, func() bool {
+		var got uint64
+		got, err = p.db.Applied()
+		return err == nil && got >= n
+	})
+	if err != nil {
+		return time.Time{}, err
+	}
+	if !ok {
+		return time.Time{}, fmt.Errorf("bench: %d readings not committed within a minute", n)
+	}
+	return time.Now(), nil
+}
+
+// commitStats reads the commit count, the key and value bytes and the
+// commit time so far.
+func (p *benchPipeline) commitStats() (n int, bytes, seconds float64) {
+	var m dto.Metric
+	if err := p.m.CommitTime.Write(&m); err == nil {
+		n, seconds = int(m.GetHistogram().GetSampleCount()), m.GetHistogram().GetSampleSum()
+	}
+	return n, counterValue(p.m.CommitBytes), seconds
+}
+
+func counterValue(c prometheus.Counter) float64 {
+	var m dto.Metric
+	if err := c.Write(&m); err != nil {
+		return 0
+	}
+	return m.GetCounter().GetValue()
+}
+
+// directCase measures direct mode: the baseline subscriber, then the
+// pipeline, each fed from the pool for one slot.
+func (e *benchEnv) directCase(ctx context.Context, pool *benchPool, slot time.Duration) (benchThroughput, error) {
+	out := benchThroughput{Case: fmt.Sprintf("direct %d/msg", pool.per), Mode: "direct", PerMessage: pool.per, Baseline: "count"}
+	slow0 := e.slowConsumers()
+	defer func() { out.SlowConsumers = e.slowConsumers() - slow0 }()
+	pub, err := e.connect()
+	if err != nil {
+		return out, err
+	}
+	defer pub.Close()
+
+	// Baseline: a subscriber on its own connection that only counts.
+	base, err := e.connect()
+	if err != nil {
+		return out, err
+	}
+	var got atomic.Uint64
+	sub, err := base.Subscribe(pool.prefix+".>", func(*nats.Msg) { got.Add(1) })
+	if err == nil {
+		err = sub.SetPendingLimits(1<<20, 256<<20)
+	}
+	if err == nil {
+		err = base.Flush()
+	}
+	if err != nil {
+		base.Close()
+		return out, err
+	}
+	t0 := time.Now()
+	_, lost, err := pool.publish(ctx, pub, t0.Add(slot), got.Load)
+	if err != nil {
+		base.Close()
+		return out, err
+	}
+	out.Lost += lost
+	out.BaselinePerSec = float64(got.Load()) * float64(pool.per) / time.Since(t0).Seconds()
+	base.Close()
+
+	// The pipeline, on the same messages.
+	p, err := e.startPipeline(ctx, filepath.Join(e.dir, "direct-"+strconv.Itoa(pool.per), dbFile), ingest.ModeDirect, pool.prefix, "", nil)
+	if err != nil {
+		return out, err
+	}
+	defer p.stop()
+	if err := p.waitLive(ctx, pub, pool.prefix+".bench-probe"); err != nil {
+		return out, err
+	}
+	if err := p.warmUp(ctx, pub, pool); err != nil {
+		return out, err
+	}
+	start := p.svc.Stats()
+	io0 := diskWritten()
+	taken := func() uint64 { return p.svc.Stats().Messages - start.Messages }
+	t0 = time.Now()
+	_, lost, err = pool.publish(ctx, pub, t0.Add(slot), taken)
+	if err != nil {
+		return out, err
+	}
+	out.Lost += lost
+	end := p.svc.Stats()
+	tEnd := time.Now()
+	tCommit, err := p.committed(ctx, end.Applied)
+	if err != nil {
+		return out, err
+	}
+	out.fill(p, end.Applied-start.Applied, t0, tEnd, tCommit, io0)
+	return out, p.stop()
+}
+
+// fill computes the pipeline's rates: applied over the publishing time,
+// committed over the time until the file held them.
+func (t *benchThroughput) fill(p *benchPipeline, applied uint64, t0, tEnd, tCommit time.Time, io0 int64) {
+	t.Readings = applied
+	t.Seconds = tEnd.Sub(t0).Seconds()
+	t.AppliedPerSec = float64(applied) / t.Seconds
+	t.CommittedPerSec = float64(applied) / tCommit.Sub(t0).Seconds()
+	t.Ratio = t.AppliedPerSec / t.BaselinePerSec
+	n, bytes, secs := p.commitStats()
+	t.Commits = n
+	if n > 0 {
+		t.BytesPerCommit = bytes / float64(n)
+		t.CommitMs = secs / float64(n) * 1000
+	}
+	t.BytesPerSec = bytes / tCommit.Sub(t0).Seconds()
+	t.DiskPerSec = -1
+	if io1 := diskWritten(); io0 >= 0 && io1 >= 0 {
+		t.DiskPerSec = float64(io1-io0) / tCommit.Sub(t0).Seconds()
+	}
+}
+
+// streamCase fills a stream for one slot, then drains it with an ack-only
+// consumer and with the pipeline, each for at most one slot.
+func (e *benchEnv) streamCase(ctx context.Context, pool *benchPool, slot time.Duration) (benchThroughput, error) {
+	out := benchThroughput{Case: fmt.Sprintf("stream %d/msg", pool.per), Mode: "stream", PerMessage: pool.per, Baseline: "ack"}
+	streamName := "DRIFTFIT_BENCH_" + strings.ToUpper(e.tag)
+	js, err := jetstream.New(e.bus.nc)
+	if err != nil {
+		return out, err
+	}
+	stream, err := js.CreateStream(ctx, jetstream.StreamConfig{Name: streamName, Subjects: []string{pool.prefix + ".>"}, Storage: jetstream.FileStorage})
+	if err != nil {
+		return out, fmt.Errorf("bench: create stream: %w", err)
+	}
+	defer func() { _ = js.DeleteStream(context.WithoutCancel(ctx), streamName) }()
+
+	pub, err := e.connect()
+	if err != nil {
+		return out, err
+	}
+	defer pub.Close()
+	// Fill with acknowledged publishes, so the stream holds every message
+	// sent; at most 256 MiB of it.
+	pjs, err := jetstream.New(pub, jetstream.WithPublishAsyncMaxPending(4096))
+	if err != nil {
+		return out, err
+	}
+	var sent uint64
+	maxMsgs := uint64(max(1, (256<<20)/(pool.bytes/len(pool.data)+1)))
+	t0 := time.Now()
+	for i := 0; time.Since(t0) < slot && ctx.Err() == nil && sent < maxMsgs; i++ {
+		k := i % len(pool.data)
+		if _, err := pjs.PublishAsync(pool.subjects[k], pool.data[k]); err != nil {
+			return out, err
+		}
+		sent++
+	}
+	select {
+	case <-pjs.PublishAsyncComplete():
+	case <-time.After(time.Minute):
+		return out, errors.New("bench: stream did not acknowledge the fill within a minute")
+	}
+	if !waitUntil(ctx, time.Minute, func() bool {
+		info, err := stream.Info(ctx)
+		return err == nil && info.State.Msgs >= sent
+	}) {
+		return out, fmt.Errorf("bench: stream did not store %d messages within a minute", sent)
+	}
+
+	// Baseline: a durable pull consumer that acknowledges each message.
+	t0 = time.Now()
+	cons, err := js.CreateConsumer(ctx, streamName, jetstream.ConsumerConfig{
+		Durable: "bench-ack", AckPolicy: jetstream.AckExplicitPolicy, AckWait: time.Minute,
+		MaxAckPending: 1 << 16, DeliverPolicy: jetstream.DeliverAllPolicy,
+	})
+	if err != nil {
+		return out, err
+	}
+	var got atomic.Uint64
+	cc, err := cons.Consume(func(m jetstream.Msg) {
+		_ = m.Ack()
+		got.Add(1)
+	}, jetstream.PullMaxMessages(2048))
+	if err != nil {
+		return out, err
+	}
+	waitUntil(ctx, slot, func() bool { return got.Load() >= sent })
+	out.BaselinePerSec = float64(got.Load()) * float64(pool.per) / time.Since(t0).Seconds()
+	cc.Stop()
+	<-cc.Closed()
+	_ = js.DeleteConsumer(ctx, streamName, "bench-ack")
+
+	// The pipeline on the same stream, from its first message.
+	io0 := diskWritten()
+	t0 = time.Now()
+	p, err := e.startPipeline(ctx, filepath.Join(e.dir, "stream", dbFile), ingest.ModeStream, pool.prefix, streamName, nil)
+	if err != nil {
+		return out, err
+	}
+	defer p.stop()
+	want := sent * uint64(pool.per)
+	waitUntil(ctx, slot, func() bool { return p.svc.Stats().Applied >= want })
+	end := p.svc.Stats()
+	tEnd := time.Now()
+	tCommit, err := p.committed(ctx, end.Applied)
+	if err != nil {
+		return out, err
+	}
+	out.fill(p, end.Applied, t0, tEnd, tCommit, io0)
+	return out, p.stop()
+}
+
+// latency offers readings at a steady rate in direct mode, with one probe
+// reading a millisecond stamped with its publish time, and times each
+// probe until its worker has folded it into the windows.
+func (e *benchEnv) latency(ctx context.Context, pool *benchPool, offered float64, slot time.Duration) (benchLatency, error) {
+	out := benchLatency{Mode: "direct 1/msg", Alert: benchAlertNote}
+	probe := pool.prefix + ".bench-probe"
+	probeID := "bench-probe"
+	var mu sync.Mutex
+	var lat []time.Duration
+	var from atomic.Int64 // probes stamped before are the ones of waitLive
+	from.Store(math.MaxInt64)
+	onApplied := func(id string, rs []rolling.Reading) {
+		if id != probeID {
+			return
+		}
+		now := time.Now().UnixNano()
+		mu.Lock()
+		for _, r := range rs {
+			if r.UnixNano >= from.Load() {
+				lat = append(lat, time.Duration(now-r.UnixNano))
+			}
+		}
+		mu.Unlock()
+	}
+	pub, err := e.connect()
+	if err != nil {
+		return out, err
+	}
+	defer pub.Close()
+	p, err := e.startPipeline(ctx, filepath.Join(e.dir, "latency", dbFile), ingest.ModeDirect, pool.prefix, "", onApplied)
+	if err != nil {
+		return out, err
+	}
+	defer p.stop()
+	if err := p.waitLive(ctx, pub, probe); err != nil {
+		return out, err
+	}
+
+	perTick := int(offered / 1000)
+	tick := time.NewTicker(time.Millisecond)
+	defer tick.Stop()
+	var buf []byte
+	k, probes := 0, 0
+	t0 := time.Now()
+	from.Store(t0.UnixNano())
+	for time.Since(t0) < slot && ctx.Err() == nil {
+		<-tick.C
+		for range perTick {
+			if err := pub.Publish(pool.subjects[k], pool.data[k]); err != nil {
+				return out, err
+			}
+			k = (k + 1) % len(pool.data)
+		}
+		buf = ingest.AppendReading(buf[:0], ingest.Decoded{Reading: rolling.Reading{UnixNano: time.Now().UnixNano(), Value: 1}})
+		if err := pub.Publish(probe, buf); err != nil {
+			return out, err
+		}
+		probes++
+	}
+	if err := pub.Flush(); err != nil {
+		return out, err
+	}
+	out.OfferedPerSec = float64(perTick) * 1000
+	waitUntil(ctx, 10*time.Second, func() bool {
+		mu.Lock()
+		defer mu.Unlock()
+		return len(lat) >= probes
+	})
+	mu.Lock()
+	samples := slices.Clone(lat)
+	mu.Unlock()
+	slices.Sort(samples)
+	out.Samples = len(samples)
+	if len(samples) > 0 {
+		q := func(f float64) float64 {
+			return float64(samples[int(f*float64(len(samples)-1))].Nanoseconds()) / 1e6
+		}
+		out.P50Ms, out.P99Ms, out.MaxMs = q(0.5), q(0.99), q(1)
+	}
+	return out, p.stop()
+}
+
+// fleetCase builds a state file holding the sensors with full windows,
+// restarts a service on it, measures time and memory, then commits a
+// reading for a fixed count of sensors a few times.
+func (e *benchEnv) fleetCase(ctx context.Context, sensors []demoSensor) (benchFleet, error) {
+	out := benchFleet{Sensors: len(sensors)}
+	prefix := "bench" + e.tag + ".f"
+	path := filepath.Join(e.dir, "fleet-"+strconv.Itoa(len(sensors)), dbFile)
+	defer os.RemoveAll(filepath.Dir(path))
+	panes, err := e.buildFleet(path, sensors)
+	if err != nil {
+		return out, err
+	}
+	out.PanesPerSensor = float64(panes) / float64(len(sensors))
+	if fi, err := os.Stat(path); err == nil {
+		out.FileBytes = fi.Size()
+	}
+
+	heap0, rss0 := memNow()
+	t0 := time.Now()
+	p, err := e.startPipeline(ctx, path, ingest.ModeDirect, prefix, "", nil)
+	if err != nil {
+		return out, err
+	}
+	defer p.stop()
+	n := int64(len(sensors))
+	if !waitUntil(ctx, 5*time.Minute, func() bool { return int64(p.svc.Stats().Sensors) >= n }) {
+		return out, fmt.Errorf("bench: %d sensors not restored within 5 minutes", n)
+	}
+	out.RestoreMs = float64(time.Since(t0).Microseconds()) / 1000
+	out.OpenMs = float64(p.opened.Microseconds()) / 1000
+	heap1, rss1 := memNow()
+	out.HeapPerSensor = float64(heap1-heap0) / float64(n)
+	out.RSSPerSensor = float64(rss1-rss0) / float64(n)
+
+	pub, err := e.connect()
+	if err != nil {
+		return out, err
+	}
+	defer pub.Close()
+	if err := p.waitLive(ctx, pub, prefix+"."+sensors[0].id); err != nil {
+		return out, err
+	}
+	if _, err := p.committed(ctx, p.svc.Stats().Applied); err != nil {
+		return out, err
+	}
+	out.Changed = min(benchChanged, len(sensors))
+	stride := len(sensors) / out.Changed
+	c0, b0, s0 := p.commitStats()
+	io0 := diskWritten()
+	var buf []byte
+	const rounds = 5
+	for range rounds {
+		before := p.svc.Stats().Applied
+		at := time.Now().Add(-time.Second).UnixNano()
+		for i := range out.Changed {
+			buf = ingest.AppendReading(buf[:0], ingest.Decoded{Reading: rolling.Reading{UnixNano: at, Value: sensors[i*stride].level}})
+			if err := pub.Publish(prefix+"."+sensors[i*stride].id, buf); err != nil {
+				return out, err
+			}
+		}
+		if err := pub.Flush(); err != nil {
+			return out, err
+		}
+		want := before + uint64(out.Changed)
+		if !waitUntil(ctx, time.Minute, func() bool { return p.svc.Stats().Applied >= want }) {
+			return out, fmt.Errorf("bench: fleet readings not applied within a minute")
+		}
+		if _, err := p.committed(ctx, want); err != nil {
+			return out, err
+		}
+	}
+	c1, b1, s1 := p.commitStats()
+	out.Commits = c1 - c0
+	if out.Commits > 0 {
+		out.BytesPerCommit = (b1 - b0) / float64(out.Commits)
+		out.CommitMs = (s1 - s0) / float64(out.Commits) * 1000
+		if io1 := diskWritten(); io0 >= 0 && io1 >= 0 {
+			out.DiskPerCommit = float64(io1-io0) / float64(out.Commits)
+		} else {
+			out.DiskPerCommit = -1
+		}
+	}
+	return out, p.stop()
+}
+
+// buildFleet writes the sensors' state with one reading in every pane of
+// every window (the newest 24 hours hourly, the 30 days before daily),
+// in key order, without fsync: building is not what is measured.
+func (e *benchEnv) buildFleet(path string, sensors []demoSensor) (panes int, err error) {
+	if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
+		return 0, err
+	}
+	db, err := store.Open(path, store.Options{NoSync: true})
+	if err != nil {
+		return 0, err
+	}
+	defer func() { err = errors.Join(err, db.Close()) }()
+	ids := make([]int, len(sensors))
+	for i := range ids {
+		ids[i] = i
+	}
+	slices.SortFunc(ids, func(a, b int) int { return strings.Compare(sensors[a].id, sensors[b].id) })
+	rng := rand.New(rand.NewPCG(11, 11))
+	now := time.Now().Add(-time.Minute)
+	var times []time.Time
+	for d := 30; d >= 1; d-- {
+		times = append(times, now.Add(-time.Duration(d)*24*time.Hour))
+	}
+	for h := 23; h >= 0; h-- {
+		times = append(times, now.Add(-time.Duration(h)*time.Hour))
+	}
+	var batch store.Batch
+	for j, i := range ids {
+		s, err := rolling.NewSensor(e.specs...)
+		if err != nil {
+			return 0, err
+		}
+		for _, at := range times {
+			d := float64(at.Unix()%(30*86400)) / 86400
+			if err := s.Add(rolling.Reading{UnixNano: at.UnixNano(), Value: sensors[i].value(d, rng)}); err != nil {
+				return 0, fmt.Errorf("bench: fill sensor %s: %w", sensors[i].id, err)
+			}
+		}
+		s.Changed(func(rolling.PaneKey) { panes++ })
+		if err := batch.Sensor(sensors[i].id, s); err != nil {
+			return 0, err
+		}
+		if j%2000 == 1999 || j == len(ids)-1 {
+			if _, err := db.Commit(&batch); err != nil {
+				return 0, err
+			}
+		}
+	}
+	return panes, nil
+}
+
+// memNow returns the heap in use and the anonymous resident memory after
+// a collection.
+func memNow() (heap, rss int64) {
+	runtime.GC()
+	debug.FreeOSMemory() // a GC that also returns free pages, so RSS tracks what is live
+	var ms runtime.MemStats
+	runtime.ReadMemStats(&ms)
+	return int64(ms.HeapInuse), procStatusKB("RssAnon:") * 1024
+}
+
+// procStatusKB reads a "kB" field of /proc/self/status; 0 if absent.
+func procStatusKB(field string) int64 {
+	data, err := os.ReadFile("/proc/self/status")
+	if err != nil {
+		return 0
+	}
+	for line := range strings.Lines(string(data)) {
+		if rest, ok := strings.CutPrefix(line, field); ok {
+			n, _ := strconv.ParseInt(strings.TrimSuffix(strings.TrimSpace(rest), " kB"), 10, 64)
+			return n
+		}
+	}
+	return 0
+}
+
+// diskWritten returns the bytes this process caused to be written to
+// storage (write_bytes of /proc/self/io), or -1 where that is unknown.
+func diskWritten() int64 {
+	data, err := os.ReadFile("/proc/self/io")
+	if err != nil {
+		return -1
+	}
+	for line := range strings.Lines(string(data)) {
+		if rest, ok := strings.CutPrefix(line, "write_bytes:"); ok {
+			n, err := strconv.ParseInt(strings.TrimSpace(rest), 10, 64)
+			if err != nil {
+				return -1
+			}
+			return n
+		}
+	}
+	return -1
+}
+
+// cpuModel returns the first "model name" of /proc/cpuinfo, or "".
+func cpuModel() string {
+	f, err := os.Open("/proc/cpuinfo")
+	if err != nil {
+		return ""
+	}
+	defer f.Close()
+	sc := bufio.NewScanner(f)
+	for sc.Scan() {
+		if k, v, ok := strings.Cut(sc.Text(), ":"); ok && strings.TrimSpace(k) == "model name" {
+			return strings.TrimSpace(v)
+		}
+	}
+	return ""
+}
+
+// waitUntil polls cond every millisecond until it holds (true), the
+// timeout passes or ctx ends (false).
+func waitUntil(ctx context.Context, timeout time.Duration, cond func() bool) bool {
+	deadline := time.Now().Add(timeout)
+	for !cond() {
+		if ctx.Err() != nil || time.Now().After(deadline) {
+			return false
+		}
+		time.Sleep(time.Millisecond)
+	}
+	return true
+}
+
+func specsString(specs []rolling.WindowSpec) string {
+	parts := make([]string, len(specs))
+	for i, s := range specs {
+		parts[i] = configs.FormatDuration(s.Span) + "/" + configs.FormatDuration(s.Pane)
+	}
+	return strings.Join(parts, ", ")
+}
+
+func (r *benchReport) print(w io.Writer) {
+	fmt.Fprintf(w, "driftfit bench  %s  %d CPUs (%s)  %s\n", r.Date, r.CPUs, r.CPUModel, r.Go)
+	fmt.Fprintf(w, "bus: %s; %d sensors; windows %s; %s in all for throughput and latency\n\n", r.Bus, r.Sensors, r.Windows, r.Duration)
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "case\tapplied/s\tcommitted/s\tbaseline/s\tratio\tbaseline\tcommits\tbytes/commit\tbytes/s\tcommit ms\tdisk bytes/s\tlost\t")
+	for _, t := range r.Throughput {
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%.2f\t%s\t%d\t%s\t%s\t%.1f\t%s\t%d\t\n", t.Case, grouped(t.AppliedPerSec), grouped(t.CommittedPerSec),
+			grouped(t.BaselinePerSec), t.Ratio, t.Baseline, t.Commits, grouped(t.BytesPerCommit), grouped(t.BytesPerSec), t.CommitMs, grouped(t.DiskPerSec), t.Lost)
+	}
+	tw.Flush()
+	l := r.Latency
+	fmt.Fprintf(w, "\nlatency, publish to fit updated (%s, %s readings/s offered, %d probes): p50 %.2f ms, p99 %.2f ms, max %.2f ms\n",
+		l.Mode, grouped(l.OfferedPerSec), l.Samples, l.P50Ms, l.P99Ms, l.MaxMs)
+	fmt.Fprintf(w, "latency, reading over a limit to alert on the bus: %s\n", l.Alert)
+	if len(r.Fleets) > 0 {
+		fmt.Fprintln(w)
+		tw = tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+		fmt.Fprintln(tw, "sensors\tpanes each\tfile MB\topen ms\trestore ms\theap/sensor\tRSS/sensor\tchanged/commit\tbytes/commit\tcommit ms\tdisk bytes/commit\t")
+		for _, f := range r.Fleets {
+			fmt.Fprintf(tw, "%s\t%.0f\t%.0f\t%.1f\t%.0f\t%s\t%s\t%d\t%s\t%.1f\t%s\t\n", grouped(float64(f.Sensors)), f.PanesPerSensor, float64(f.FileBytes)/1e6,
+				f.OpenMs, f.RestoreMs, grouped(f.HeapPerSensor), grouped(f.RSSPerSensor), f.Changed, grouped(f.BytesPerCommit), f.CommitMs, grouped(f.DiskPerCommit))
+		}
+		tw.Flush()
+	}
+	fmt.Fprintln(w)
+	for _, n := range r.Notes {
+		fmt.Fprintf(w, "- %s\n", n)
+	}
+}
+
+// grouped formats v rounded to a whole number with thousands separators.
+func grouped(v float64) string {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return fmt.Sprint(v)
+	}
+	s := strconv.FormatInt(int64(math.Round(v)), 10)
+	neg := strings.HasPrefix(s, "-")
+	s = strings.TrimPrefix(s, "-")
+	var b bytes.Buffer
+	for i, c := range s {
+		if i > 0 && (len(s)-i)%3 == 0 {
+			b.WriteByte(',')
+		}
+		b.WriteRune(c)
+	}
+	if neg {
+		return "-" + b.String()
+	}
+	return b.String()
+}
