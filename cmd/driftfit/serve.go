@@ -131,6 +131,12 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		return err
 	}
 	defer stopCal()
+	// Peer groups: members are judged on their deviation from the group.
+	var onApplied func(string, []rolling.Reading)
+	if len(cfg.Groups) > 0 {
+		alerts.peers = newPeers(cfg, alerts, log)
+		onApplied = alerts.peers.applied
+	}
 	var board *driftBoard
 	onPaneClose := alerts.paneClosed
 	if *demo {
@@ -156,6 +162,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		Logger:           &log,
 		Metrics:          metrics,
 		OnPaneClose:      onPaneClose,
+		OnApplied:        onApplied,
 	})
 	if err != nil {
 		return err
