@@ -58,3 +58,45 @@ func TestDB_Commit_SeveralBatches(t *testing.T) {
 		t.Errorf("Restore = %v, sensors %v, want both", err, ids)
 	}
 }
+
+// TestBatch_DropPanes checks that dropping a sensor's panes and writing its
+// fresh state in the same batch leaves only the fresh panes, and no other
+// sensor's.
+func TestBatch_DropPanes(t *testing.T) {
+	db := openDB(t, tempPath(t))
+	spec := rolling.WindowSpec{Span: day, Pane: hour}
+	t0 := time.Date(2026, 6, 1, 0, 0, 0, 0, time.UTC).UnixNano()
+	fill := func(from, n int) *rolling.Sensor {
+		s, _ := rolling.NewSensor(spec)
+		for j := range n {
+			_ = s.Add(rolling.Reading{UnixNano: t0 + int64(from+j)*int64(20*time.Minute), Value: float64(j)})
+		}
+		return s
+	}
+	var b store.Batch
+	for _, id := range []string{"qm.a.pt-1", "qm.a.pt-10", "qm.a.pt-2"} {
+		if err := b.Sensor(id, fill(0, 30)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if _, err := db.Commit(&b); err != nil {
+		t.Fatal(err)
+	}
+	if err := b.DropPanes("qm.a.pt-1"); err != nil {
+		t.Fatal(err)
+	}
+	if err := b.Sensor("qm.a.pt-1", fill(40, 5)); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.Commit(&b); err != nil {
+		t.Fatal(err)
+	}
+	got := map[string]int{}
+	err := db.Restore(func(string) (*rolling.Sensor, error) { return rolling.NewSensor(spec) }, func(r store.Restored) error {
+		got[r.ID] = r.Sensor.Solve(0).N
+		return nil
+	})
+	if err != nil || got["qm.a.pt-1"] != 5 || got["qm.a.pt-10"] != 30 || got["qm.a.pt-2"] != 30 {
+		t.Errorf("restored readings %v (%v), want pt-1 5 and the others 30", got, err)
+	}
+}

@@ -19,6 +19,7 @@ const (
 	opHorizon               // delete panes under prefix key with index < val
 	opDelete                // delete pane key
 	opRecord                // put key/val into history, key2 into the time index
+	opDropPanes             // delete every pane key under prefix key
 )
 
 // span locates bytes in the batch's buffer. Offsets, not slices, because
@@ -138,6 +139,18 @@ func (b *Batch) Record(id string, sol *rolling.Solution) error {
 	return nil
 }
 
+// DropPanes deletes, when the batch commits, every stored pane of the
+// sensor written before this call, as when its fits restart from a
+// calibration; panes added with Sensor after it are kept. Fit history is
+// not touched.
+func (b *Batch) DropPanes(id string) error {
+	if err := checkID(id); err != nil {
+		return err
+	}
+	b.ops = append(b.ops, op{kind: opDropPanes, key: b.appendKey(func(dst []byte) []byte { return appendIDPrefix(dst, id) })})
+	return nil
+}
+
 // SetPosition sets the stream position (the sequence of the last message
 // whose readings the batch holds) to write with the batch. Without it,
 // a commit leaves the stored position unchanged.
@@ -237,6 +250,16 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats) error {
 			var n int
 			n, err = deleteBelow(cur, key, readInt(val))
 			st.Deletes += n
+		case opDropPanes:
+			if cur == nil {
+				cur = panes.Cursor()
+			}
+			for k, _ := cur.Seek(key); k != nil && bytes.HasPrefix(k, key); k, _ = cur.Seek(key) {
+				if err = cur.Delete(); err != nil {
+					break
+				}
+				st.Deletes++
+			}
 		case opDelete:
 			st.Deletes++
 			err = panes.Delete(key)
