@@ -67,6 +67,12 @@ func (w *worker) snapshot(tok *commitToken) {
 	var err error
 	for _, ref := range w.touch {
 		ref.st.touched = false
+		if ref.st.dropped {
+			ref.st.dropped = false
+			if e := b.DropPanes(ref.id); e != nil && err == nil {
+				err = fmt.Errorf("sensor %s: %w", ref.id, e)
+			}
+		}
 		if e := b.Sensor(ref.id, ref.st.sensor); e != nil && err == nil {
 			err = fmt.Errorf("sensor %s: %w", ref.id, e)
 		}

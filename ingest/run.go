@@ -58,6 +58,11 @@ type sensorRef struct {
 type sensorState struct {
 	sensor  *rolling.Sensor
 	touched bool // listed in the worker's touched since the last commit
+	// since refuses readings older than the sensor's last restart (a
+	// calibration), Unix ns; 0: none. dropped asks the next commit to
+	// delete the stored panes of before the restart.
+	since   int64
+	dropped bool
 }
 
 // Service reads readings from NATS into per-sensor fits and commits them
@@ -81,6 +86,7 @@ type Service struct {
 	dirty       bool
 
 	commits chan commitReq
+	control chan restartReq
 	fatal   chan error
 
 	// appliedBase is the applied count of the restored state; the
@@ -105,6 +111,7 @@ func New(o Options) (*Service, error) {
 		dec:     Decoder{MaxBytes: o.MaxPayload},
 		prefix:  o.SubjectPrefix + ".",
 		commits: make(chan commitReq, 1),
+		control: make(chan restartReq),
 		fatal:   make(chan error, 1),
 	}
 	s.badLog = s.log.Sample(&zerolog.BurstSampler{Burst: 10, Period: 10 * time.Second})
@@ -178,6 +185,8 @@ loop:
 			if s.dirty && s.committerFree() {
 				s.commit()
 			}
+		case req := <-s.control:
+			req.done <- s.restart(req.id, req.from)
 		case runErr = <-s.fatal:
 			break loop
 		case <-ctx.Done():
@@ -539,4 +548,53 @@ func (s *Service) flush() {
 	for w := range s.pending {
 		s.flushWorker(w)
 	}
+}
+
+// restartReq asks the dispatcher to restart a sensor's fits.
+type restartReq struct {
+	id   string
+	from time.Time
+	done chan error
+}
+
+// Restart starts a sensor's fits afresh from the time from, as after a
+// calibration: the sensor's windows are emptied, its stored panes are
+// deleted with the next commit (its fit history is kept), and readings
+// older than from are refused from then on (as too old) while the service
+// runs. Readings received before the call are applied first. It is safe
+// for concurrent use and returns once the dispatcher has taken the
+// request, or ctx is done.
+func (s *Service) Restart(ctx context.Context, id string, from time.Time) error {
+	req := restartReq{id: id, from: from, done: make(chan error, 1)}
+	select {
+	case s.control <- req:
+	case <-ctx.Done():
+		return ctx.Err()
+	}
+	select {
+	case err := <-req.done:
+		return err
+	case <-ctx.Done():
+		return ctx.Err()
+	}
+}
+
+func (s *Service) restart(id string, from time.Time) error {
+	ref := s.refs[id]
+	if ref == nil {
+		cfg, err := s.o.Sensor(id)
+		if err != nil {
+			return fmt.Errorf("ingest: restart %s: %w", id, err)
+		}
+		sensor, err := rolling.NewSensor(cfg.Windows...)
+		if err != nil {
+			return fmt.Errorf("ingest: restart %s: %w", id, err)
+		}
+		ref = s.addRef(strings.Clone(id), cfg.Unit, sensor)
+	}
+	// Behind everything already routed to the sensor's worker.
+	s.flushWorker(ref.worker)
+	s.workers[ref.worker].in <- &workBatch{restart: &restartJob{ref: ref, from: from.UnixNano()}}
+	s.dirty = true
+	return nil
 }

@@ -311,3 +311,52 @@ func TestService_Direct(t *testing.T) {
 		t.Errorf("stored applied count = %d (%v), want %d", n, err, want)
 	}
 }
+
+// TestService_Restart checks that restarting a sensor's fits (as after a
+// calibration) empties its windows, refuses readings from before the
+// restart, and deletes the stored panes of before it, so the state file
+// holds only the readings since.
+func TestService_Restart(t *testing.T) {
+	dir := t.TempDir()
+	ns := natsServer(t, filepath.Join(dir, "nats"), 0)
+	defer ns.Shutdown()
+	h := startService(t, ns.ClientURL(), dir, ingest.ModeStream)
+	waitStream(t, h.nc)
+	js, err := h.nc.JetStream()
+	if err != nil {
+		t.Fatal(err)
+	}
+	base := time.Now().Add(-12 * time.Hour).Truncate(time.Hour)
+	publish := func(fromMin, toMin int) {
+		for m := fromMin; m < toMin; m += 10 {
+			at := base.Add(time.Duration(m) * time.Minute)
+			if _, err := js.Publish("driftfit.in.qm.c.pt-7", []byte(fmt.Sprintf(`{"t":%d,"v":%d}`, at.Unix(), m))); err != nil {
+				t.Fatal(err)
+			}
+		}
+	}
+	publish(0, 300) // 30 readings
+	waitFor(t, "first readings", func() bool { return h.svc.Stats().Applied == 30 })
+	cut := base.Add(240 * time.Minute)
+	if err := h.svc.Restart(t.Context(), "qm.c.pt-7", cut); err != nil {
+		t.Fatal(err)
+	}
+	publish(200, 400) // 20 readings: 4 before the cut (refused), 16 after
+	waitFor(t, "second readings", func() bool { st := h.svc.Stats(); return st.Applied == 46 && st.Rejected == 4 })
+	h.stop()
+	db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{ReadOnly: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	n := -1
+	err = db.Restore(func(string) (*rolling.Sensor, error) {
+		return rolling.NewSensor(rolling.WindowSpec{Span: 24 * time.Hour, Pane: time.Hour})
+	}, func(r store.Restored) error {
+		n = r.Sensor.Solve(0).N
+		return nil
+	})
+	if err != nil || n != 16 {
+		t.Errorf("stored sensor holds %d readings (%v), want the 16 since the restart", n, err)
+	}
+}

@@ -2,6 +2,7 @@ package ingest
 
 import (
 	"errors"
+	"time"
 
 	"github.com/nats-io/nats.go"
 
@@ -21,6 +22,7 @@ type workBatch struct {
 	jobs     []job
 	readings []rolling.Reading
 	token    *commitToken
+	restart  *restartJob
 }
 
 // worker owns a share of the sensors: it alone touches their state.
@@ -70,6 +72,10 @@ func (w *worker) run() {
 			w.snapshot(b.token)
 			continue
 		}
+		if b.restart != nil {
+			w.restart(b.restart)
+			continue
+		}
 		for i := range b.jobs {
 			w.apply(&b.jobs[i], b.readings)
 		}
@@ -91,6 +97,10 @@ func (w *worker) apply(j *job, readings []rolling.Reading) {
 	var ok uint64
 	rs := readings[j.off : j.off+j.n]
 	for _, r := range rs {
+		if r.UnixNano < st.since {
+			w.reject(ref, r, errBeforeRestart)
+			continue
+		}
 		if mask := st.sensor.Closes(r.UnixNano); mask != 0 {
 			w.closePanes(ref, mask)
 		}
@@ -110,6 +120,34 @@ func (w *worker) apply(j *job, readings []rolling.Reading) {
 	}
 }
 
+// restartJob empties a sensor's windows; see Service.Restart.
+type restartJob struct {
+	ref  *sensorRef
+	from int64
+}
+
+// errBeforeRestart is the cause of a reading refused because it is older
+// than the sensor's last restart.
+var errBeforeRestart = errors.New("ingest: reading older than the sensor's last calibration")
+
+func (w *worker) restart(j *restartJob) {
+	st := j.ref.st
+	specs := make([]rolling.WindowSpec, st.sensor.Windows())
+	for i := range specs {
+		specs[i] = st.sensor.Spec(i)
+	}
+	fresh, err := rolling.NewSensor(specs...)
+	if err != nil {
+		return // the specs came from a working sensor
+	}
+	st.sensor, st.since, st.dropped = fresh, j.from, true
+	if !st.touched {
+		st.touched = true
+		w.touch = append(w.touch, j.ref)
+	}
+	w.s.log.Info().Str("sensor", j.ref.id).Time("from", time.Unix(0, j.from)).Msg("fits restarted")
+}
+
 // closePanes records the fit of every window whose newest pane the next
 // reading will close.
 func (w *worker) closePanes(ref *sensorRef, mask uint64) {
@@ -127,7 +165,7 @@ func (w *worker) closePanes(ref *sensorRef, mask uint64) {
 // reject dead-letters one reading the sensor refused.
 func (w *worker) reject(ref *sensorRef, r rolling.Reading, err error) {
 	reason := ReasonTooOld
-	if !errors.Is(err, rolling.ErrTooOld) {
+	if !errors.Is(err, rolling.ErrTooOld) && !errors.Is(err, errBeforeRestart) {
 		reason = ReasonUnknown
 	}
 	msg := nats.NewMsg(w.s.o.RejectedSubject)

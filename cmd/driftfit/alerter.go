@@ -48,6 +48,8 @@ type alerter struct {
 	// peers, if set, judges peer-group members on their deviation from
 	// the group while the group has two live members.
 	peers *peers
+	// restart, if set, restarts a sensor's fits from a calibration's time.
+	restart func(ctx context.Context, id string, from time.Time) error
 }
 
 // peerKey is the suffix of the tracker key (and stored state) of a
@@ -293,36 +295,46 @@ func (a *alerter) submit(key string, e *trackerEntry, d alert.Decision) {
 	a.writes <- w
 }
 
-// calibrate applies a calibration event to the sensor's trackers: its
-// own rule's and, for a peer-group member, its peer rule's.
+// calibrate records a calibration: it applies it to the sensor's
+// trackers (its own rule's and, for a peer-group member, its peer rule's),
+// which closes the open ticket, then restarts the sensor's fits from the
+// calibration's time. A sensor without alert rule still has its fits
+// restarted.
 func (a *alerter) calibrate(id string, c alert.Calibration) error {
-	e := a.entry(id, id, "")
-	if e == nil {
-		return fmt.Errorf("sensor %s has no alert rule", id)
+	var entries []*trackerEntry
+	var keys []string
+	if e := a.entry(id, id, ""); e != nil {
+		entries, keys = append(entries, e), append(keys, id)
 	}
-	keys := []*trackerEntry{e}
 	a.mu.Lock()
 	if pe := a.trackers[id+peerKey]; pe != nil {
-		keys = append(keys, pe)
+		entries, keys = append(entries, pe), append(keys, id+peerKey)
 	}
 	a.mu.Unlock()
-	for i, e := range keys {
-		key := id
-		if i > 0 {
-			key = id + peerKey
-			c.AsLeft = 0 // the peer deviation restarts from zero
+	for i, e := range entries {
+		cc := c
+		if keys[i] != id {
+			cc.AsLeft = 0 // the peer deviation restarts from zero
 		}
 		e.mu.Lock()
-		d, err := e.tr.Calibrate(c)
+		d, err := e.tr.Calibrate(cc)
 		if err == nil {
-			a.submit(key, e, d)
+			a.submit(keys[i], e, d)
 		}
 		e.mu.Unlock()
 		if err != nil {
 			return err
 		}
 	}
-	a.log.Info().Str("sensor", id).Float64("as_found", c.AsFound).Float64("as_left", c.AsLeft).Time("at", c.Time).Msg("calibration recorded")
+	if a.restart != nil {
+		ctx, cancel := context.WithTimeout(context.Background(), apiTimeout)
+		defer cancel()
+		if err := a.restart(ctx, id, c.Time); err != nil {
+			return fmt.Errorf("restart fits: %w", err)
+		}
+	}
+	a.log.Info().Str("sensor", id).Float64("as_found", c.AsFound).Float64("as_left", c.AsLeft).Time("at", c.Time).
+		Bool("alert_rule", len(entries) > 0).Msg("calibration recorded")
 	return nil
 }
 

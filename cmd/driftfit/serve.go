@@ -126,11 +126,6 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	if err != nil {
 		return err
 	}
-	stopCal, err := alerts.subscribeCalibrations(cfg.Bus.CalibrationSubjectPrefix)
-	if err != nil {
-		return err
-	}
-	defer stopCal()
 	// Peer groups: members are judged on their deviation from the group.
 	var onApplied func(string, []rolling.Reading)
 	if len(cfg.Groups) > 0 {
@@ -167,6 +162,13 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	if err != nil {
 		return err
 	}
+	// A calibration restarts the sensor's fits from its time.
+	alerts.restart = svc.Restart
+	stopCal, err := alerts.subscribeCalibrations(cfg.Bus.CalibrationSubjectPrefix)
+	if err != nil {
+		return err
+	}
+	defer stopCal()
 
 	if cfg.HTTP.Addr != "off" {
 		stop, err := serveHTTP(cfg.HTTP.Addr, promhttp.HandlerFor(reg, promhttp.HandlerOpts{}), log, "metrics")
