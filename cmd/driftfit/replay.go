@@ -1,7 +1,6 @@
 package main
 
 import (
-	"bytes"
 	"context"
 	"errors"
 	"flag"
@@ -67,35 +66,31 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 type replayer struct {
 	wins    []windowArg
 	specs   []rolling.WindowSpec
-	sensors map[string]*rolling.Sensor
+	sensors map[string]*replaySensor // written by the parser goroutine until it ends
 	rows    int
 	bad     int
 	tooOld  int
 	shown   int
-	// lastID and last cache the previous row's sensor: replay files are
-	// often grouped by sensor, and a byte comparison beats a map lookup.
-	lastID []byte
-	last   *rolling.Sensor
 }
 
 // replayChunk is a run of parsed rows handed from the parser to the
 // applier, so parsing and fitting run on two cores.
 type replayChunk struct {
-	ids   []byte // the rows' sensor ids, back to back
-	ends  []int  // end of each row's id in ids
-	rds   []rolling.Reading
-	lines []int
-	errs  []error // per row; nil for a good row
+	sensors []*replaySensor // nil for a bad row
+	rds     []rolling.Reading
+	lines   []int
+	errs    []error // per row; nil for a good row
 }
 
 const replayChunkRows = 4096
 
 func (c *replayChunk) reset() {
-	c.ids, c.ends, c.rds, c.lines, c.errs = c.ids[:0], c.ends[:0], c.rds[:0], c.lines[:0], c.errs[:0]
+	clear(c.sensors)
+	c.sensors, c.rds, c.lines, c.errs = c.sensors[:0], c.rds[:0], c.lines[:0], c.errs[:0]
 }
 
 func replay(ctx context.Context, in io.Reader, wins []windowArg, strict bool, stderr io.Writer) (*replayer, error) {
-	rp := &replayer{wins: wins, sensors: map[string]*rolling.Sensor{}}
+	rp := &replayer{wins: wins, sensors: map[string]*replaySensor{}}
 	for _, w := range wins {
 		rp.specs = append(rp.specs, w.spec)
 	}
@@ -116,8 +111,11 @@ func replay(ctx context.Context, in io.Reader, wins []windowArg, strict bool, st
 		c := <-free
 		for cr.Next() {
 			id, rd, err := cr.Row()
-			c.ids = append(c.ids, id...)
-			c.ends = append(c.ends, len(c.ids))
+			var e *replaySensor
+			if err == nil {
+				e = rp.lookup(id)
+			}
+			c.sensors = append(c.sensors, e)
 			c.rds = append(c.rds, rd)
 			c.lines = append(c.lines, cr.Line())
 			c.errs = append(c.errs, err)
@@ -151,15 +149,13 @@ func replay(ctx context.Context, in io.Reader, wins []windowArg, strict bool, st
 		if ctx.Err() != nil {
 			return nil, ctx.Err()
 		}
-		start := 0
 		for i := range c.rds {
-			id := c.ids[start:c.ends[i]]
-			start = c.ends[i]
 			rp.rows++
 			err := c.errs[i]
 			if err == nil {
-				if err = rp.add(id, c.rds[i]); err != nil {
-					err = fmt.Errorf("line %d: sensor %q: %w", c.lines[i], id, err)
+				e := c.sensors[i]
+				if err = e.s.Add(c.rds[i]); err != nil {
+					err = fmt.Errorf("line %d: sensor %q: %w", c.lines[i], e.id, err)
 				}
 			}
 			if err == nil {
@@ -186,20 +182,23 @@ func replay(ctx context.Context, in io.Reader, wins []windowArg, strict bool, st
 	return rp, nil
 }
 
-func (rp *replayer) add(id []byte, rd rolling.Reading) error {
-	s := rp.last
-	if s == nil || !bytes.Equal(id, rp.lastID) {
-		s = rp.sensors[string(id)]
-		if s == nil {
-			var err error
-			if s, err = rolling.NewSensor(rp.specs...); err != nil {
-				return err
-			}
-			rp.sensors[string(id)] = s
-		}
-		rp.last, rp.lastID = s, append(rp.lastID[:0], id...)
+// replaySensor is one sensor of the file. The parser goroutine finds and
+// makes them (it alone uses the map); the applier alone touches s.
+type replaySensor struct {
+	id string
+	s  *rolling.Sensor
+}
+
+// lookup returns the sensor of id, making it on first sight: one hash
+// of the id per row, and no copy of it but the first.
+func (rp *replayer) lookup(id []byte) *replaySensor {
+	e := rp.sensors[string(id)]
+	if e == nil {
+		s, _ := rolling.NewSensor(rp.specs...) // specs were checked by parseWindows
+		e = &replaySensor{id: string(id), s: s}
+		rp.sensors[e.id] = e
 	}
-	return s.Add(rd)
+	return e
 }
 
 func (rp *replayer) print(w io.Writer, format string) error {
@@ -224,7 +223,7 @@ func (rp *replayer) print(w io.Writer, format string) error {
 		table = newFitTable(w)
 	}
 	for _, id := range ids {
-		s := rp.sensors[id]
+		s := rp.sensors[id].s
 		for _, i := range order {
 			sol := s.Solve(i)
 			for _, m := range rolling.Models {
@@ -261,8 +260,8 @@ func (rp *replayer) summary(w io.Writer) error {
 	}
 	for i, wa := range rp.wins {
 		var late uint64
-		for _, s := range rp.sensors {
-			late += s.Late(i)
+		for _, e := range rp.sensors {
+			late += e.s.Late(i)
 		}
 		if late > 0 {
 			fmt.Fprintf(&b, "; window %s turned away %d late readings", wa.label, late)
@@ -273,9 +272,9 @@ func (rp *replayer) summary(w io.Writer) error {
 }
 
 func (rp *replayer) anyLate() bool {
-	for _, s := range rp.sensors {
+	for _, e := range rp.sensors {
 		for i := range rp.wins {
-			if s.Late(i) > 0 {
+			if e.s.Late(i) > 0 {
 				return true
 			}
 		}
