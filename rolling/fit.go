@@ -169,6 +169,9 @@ func (s *Sensor) Solve(i int) Solution {
 
 	var lin, par, ex normal
 	par.p, lin.p, ex.p = 3, 2, 2
+	// While no pane mixes readings ≤ 0 with positive ones, the exp fit
+	// uses every reading and shares the line's normal matrix.
+	mixed := false
 	invSpan := 1 / fspan
 	for k, j := oldest, first; k <= rg.newest; k, j = k+1, j+1 {
 		if j == P {
@@ -181,10 +184,12 @@ func (s *Sensor) Solve(i int) Solution {
 		a := float64(2*(k*rg.width-tfirst)+rg.width-span) * invSpan
 		a2 := a * a
 		pn := float64(p.n)
-		m1 := pn*a + bz*p.su
-		m2 := pn*a2 + 2*a*bz*p.su + bz2*p.su2
-		m3 := pn*a2*a + 3*a2*bz*p.su + 3*a*bz2*p.su2 + bz3*p.su3
-		m4 := pn*a2*a2 + 4*a2*a*bz*p.su + 6*a2*bz2*p.su2 + 4*a*bz3*p.su3 + bz4*p.su4
+		// Σzʲ = Σₘ C(j,m)·a^(j−m)·(bz^m·Σuᵐ), in Horner form.
+		t1, t2, t3, t4 := bz*p.su, bz2*p.su2, bz3*p.su3, bz4*p.su4
+		m1 := pn*a + t1
+		m2 := a*(pn*a+2*t1) + t2
+		m3 := a*(a*(pn*a+3*t1)+3*t2) + t3
+		m4 := a*(a*(a*(pn*a+4*t1)+6*t2)+4*t3) + t4
 		d := p.y0 - anchorY
 		par.n += pn
 		par.g[0][1] += m1
@@ -192,17 +197,24 @@ func (s *Sensor) Solve(i int) Solution {
 		par.g[1][2] += m3
 		par.g[2][2] += m4
 		par.r[0] += p.sy + pn*d
-		par.r[1] += a*p.sy + bz*p.suy + d*m1
-		par.r[2] += a2*p.sy + 2*a*bz*p.suy + bz2*p.su2y + d*m2
+		ty1 := bz * p.suy
+		par.r[1] += a*p.sy + ty1 + d*m1
+		par.r[2] += a*(a*p.sy+2*ty1) + bz2*p.su2y + d*m2
 		if p.npos > 0 {
-			sup, su2p := rg.posMoments(j)
-			qn := float64(p.npos)
-			q1 := qn*a + bz*sup
 			dl := p.l0 - anchorL
+			qn, q1, q2 := pn, m1, m2
+			if p.mixed() {
+				// Only the positive readings enter the exp fit.
+				mixed = true
+				sup, su2p := rg.posMoments(j)
+				qn = float64(p.npos)
+				q1 = qn*a + bz*sup
+				q2 = qn*a2 + 2*a*bz*sup + bz2*su2p
+			}
 			ex.n += qn
 			ex.g[0][1] += q1
-			ex.g[1][1] += qn*a2 + 2*a*bz*sup + bz2*su2p
-			ex.r[0] += p.sl + qn*dl
+			ex.g[1][1] += q2
+			ex.r[0] += p.sl + float64(p.npos)*dl
 			ex.r[1] += a*p.sl + bz*p.sul + dl*q1
 		}
 	}
@@ -211,13 +223,25 @@ func (s *Sensor) Solve(i int) Solution {
 	lin.n = par.n
 	lin.g[0][0], lin.g[0][1], lin.g[1][1] = par.n, par.g[0][1], par.g[0][2]
 	lin.r[0], lin.r[1] = par.r[0], par.r[1]
-	ex.g[0][0] = ex.n
-
 	var bl, bp, be [3]float64
 	var il, ip, ie [3][3]float64
 	sol.Line.PosDef = lin.solve(&bl, &il)
 	sol.Parabola.PosDef = par.solve(&bp, &ip)
-	sol.Exp.PosDef = npos > 0 && ex.solve(&be, &ie)
+	switch {
+	case npos == 0:
+	case mixed:
+		ex.g[0][0] = ex.n
+		sol.Exp.PosDef = ex.solve(&be, &ie)
+	default:
+		// Every reading is positive: the line's matrix, to the bit, so
+		// its factorisation serves.
+		ex.g, ex.det = lin.g, lin.det
+		if sol.Exp.PosDef = sol.Line.PosDef; sol.Exp.PosDef {
+			ie = il
+			be[0] = il[0][0]*ex.r[0] + il[0][1]*ex.r[1]
+			be[1] = il[1][0]*ex.r[0] + il[1][1]*ex.r[1]
+		}
+	}
 
 	// Residual pass, pane by pane in pane coordinates.
 	ybar := par.r[0] / par.n
@@ -240,7 +264,7 @@ func (s *Sensor) Solve(i int) Solution {
 		css := p.syy + 2*c*p.sy + pn*c*c
 		par.css += css
 		lin.css += css
-		lin.rss += paneRSS(p, bl[0]+bl[1]*a-d, bz*bl[1], 0)
+		lin.rss += paneRSSLine(p, bl[0]+bl[1]*a-d, bz*bl[1])
 		par.rss += paneRSS(p, bp[0]+bp[1]*a+bp[2]*a*a-d, bz*(bp[1]+2*bp[2]*a), bz2*bp[2])
 		if p.npos > 0 {
 			sup, su2p := rg.posMoments(j)
@@ -269,6 +293,11 @@ func (s *Sensor) Solve(i int) Solution {
 func paneRSS(p *pane, q0, q1, q2 float64) float64 {
 	return p.syy - 2*(q0*p.sy+q1*p.suy+q2*p.su2y) +
 		q0*q0*float64(p.n) + 2*q0*q1*p.su + (q1*q1+2*q0*q2)*p.su2 + 2*q1*q2*p.su3 + q2*q2*p.su4
+}
+
+// paneRSSLine is paneRSS with q2 = 0.
+func paneRSSLine(p *pane, q0, q1 float64) float64 {
+	return p.syy - 2*(q0*p.sy+q1*p.suy) + q0*q0*float64(p.n) + 2*q0*q1*p.su + q1*q1*p.su2
 }
 
 // pdTol is the smallest Cholesky pivot, relative to its diagonal entry,
@@ -401,11 +430,12 @@ func (ne *normal) finish(f *Fit, beta [3]float64, inv [3][3]float64, g, anchor f
 }
 
 // cond returns the 2-norm condition number λmax/λmin of the symmetric
-// positive definite normal matrix. The two largest eigenvalues come from
-// the closed form for symmetric matrices (O. K. Smith, "Eigenvalues of a
-// symmetric 3 × 3 matrix", Comm. ACM 4(4), 1961); the smallest from the
-// determinant, which the Cholesky factor gives accurately even when the
-// matrix is nearly singular.
+// positive definite normal matrix. λmax is the largest root of the
+// characteristic polynomial, found by Newton's method from Gershgorin's
+// upper bound (the cubic is convex and rising there, so the iterates fall
+// monotonically onto the root); the other two eigenvalues then have a
+// known sum and product, and λmin comes from the determinant, which the
+// Cholesky factor gives accurately even for a nearly singular matrix.
 func (ne *normal) cond() float64 {
 	g := &ne.g
 	if ne.p == 2 {
@@ -416,21 +446,23 @@ func (ne *normal) cond() float64 {
 	}
 	a00, a11, a22 := g[0][0], g[1][1], g[2][2]
 	a01, a02, a12 := g[0][1], g[0][2], g[1][2]
-	q := (a00 + a11 + a22) / 3
-	p1 := a01*a01 + a02*a02 + a12*a12
-	b00, b11, b22 := a00-q, a11-q, a22-q
-	p2 := b00*b00 + b11*b11 + b22*b22 + 2*p1
-	if p2 == 0 {
-		return 1
+	c2 := a00 + a11 + a22
+	c1 := a00*a11 - a01*a01 + a00*a22 - a02*a02 + a11*a22 - a12*a12
+	c0 := ne.det
+	l := max(a00+math.Abs(a01)+math.Abs(a02), math.Abs(a01)+a11+math.Abs(a12), math.Abs(a02)+math.Abs(a12)+a22)
+	for range 64 {
+		f := ((l-c2)*l+c1)*l - c0
+		df := (3*l-2*c2)*l + c1
+		if !(f > 0 && df > 0) {
+			break
+		}
+		next := l - f/df
+		if !(next < l) {
+			break
+		}
+		l = next
 	}
-	pp := math.Sqrt(p2 / 6)
-	// det((A − qI)/pp) / 2, clamped against rounding.
-	det := (b00*(b11*b22-a12*a12) - a01*(a01*b22-a12*a02) + a02*(a01*a12-b11*a02)) / (pp * pp * pp) / 2
-	det = max(-1, min(1, det))
-	phi := math.Acos(det) / 3
-	e1 := q + 2*pp*math.Cos(phi)
-	e3 := q + 2*pp*math.Cos(phi+2*math.Pi/3)
-	e2 := 3*q - e1 - e3
-	lo := ne.det / (e1 * e2)
-	return e1 / lo
+	s, p := c2-l, c0/l
+	mid := (s + math.Sqrt(max(s*s-4*p, 0))) / 2
+	return l * mid / p
 }
