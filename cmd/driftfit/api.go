@@ -42,6 +42,29 @@ type historyRequest struct {
 	UntilNs int64  `json:"until_ns,omitempty"`
 }
 
+// times returns the request's time range; zero ends are open.
+func (q *historyRequest) times() (since, until time.Time) {
+	if q.SinceNs != 0 {
+		since = time.Unix(0, q.SinceNs)
+	}
+	if q.UntilNs != 0 {
+		until = time.Unix(0, q.UntilNs)
+	}
+	return since, until
+}
+
+// newRequest returns the request for a time range; zero ends are open.
+func newRequest(sensor string, window rolling.WindowSpec, since, until time.Time) historyRequest {
+	q := historyRequest{Sensor: sensor, SpanNs: int64(window.Span), PaneNs: int64(window.Pane)}
+	if !since.IsZero() {
+		q.SinceNs = since.UnixNano()
+	}
+	if !until.IsZero() {
+		q.UntilNs = until.UnixNano()
+	}
+	return q
+}
+
 // serveAPI answers history and sensor-list requests from db. The
 // returned function unsubscribes.
 func serveAPI(nc *nats.Conn, db *store.DB, log zerolog.Logger) (func(), error) {
@@ -65,13 +88,7 @@ func serveAPI(nc *nats.Conn, db *store.DB, log zerolog.Logger) (func(), error) {
 			send(m, nil, false, fmt.Errorf("bad request: %w", err))
 			return
 		}
-		var since, until time.Time
-		if q.SinceNs != 0 {
-			since = time.Unix(0, q.SinceNs)
-		}
-		if q.UntilNs != 0 {
-			until = time.Unix(0, q.UntilNs)
-		}
+		since, until := q.times()
 		var buf []byte
 		err := db.History(q.Sensor, rolling.WindowSpec{Span: time.Duration(q.SpanNs), Pane: time.Duration(q.PaneNs)}, since, until, func(r store.HistoryRecord) error {
 			var err error
@@ -114,13 +131,7 @@ func serveAPI(nc *nats.Conn, db *store.DB, log zerolog.Logger) (func(), error) {
 			send(m, nil, false, fmt.Errorf("bad request: %w", err))
 			return
 		}
-		var since, until time.Time
-		if q.SinceNs != 0 {
-			since = time.Unix(0, q.SinceNs)
-		}
-		if q.UntilNs != 0 {
-			until = time.Unix(0, q.UntilNs)
-		}
+		since, until := q.times()
 		var buf []byte
 		err := db.Events(since, until, func(at time.Time, data []byte) error {
 			buf = binary.AppendVarint(buf, at.UnixNano())
@@ -230,14 +241,7 @@ func (r *remoteHistory) request(subject string, data []byte, fn func([]byte) err
 }
 
 func (r *remoteHistory) History(sensor string, window rolling.WindowSpec, since, until time.Time, fn func(store.HistoryRecord) error) error {
-	q := historyRequest{Sensor: sensor, SpanNs: int64(window.Span), PaneNs: int64(window.Pane)}
-	if !since.IsZero() {
-		q.SinceNs = since.UnixNano()
-	}
-	if !until.IsZero() {
-		q.UntilNs = until.UnixNano()
-	}
-	data, err := json.Marshal(q)
+	data, err := json.Marshal(newRequest(sensor, window, since, until))
 	if err != nil {
 		return err
 	}
@@ -273,14 +277,7 @@ func (r *remoteHistory) HistorySensors(fn func(id string) error) error {
 }
 
 func (r *remoteHistory) Events(since, until time.Time, fn func(at time.Time, data []byte) error) error {
-	var q historyRequest
-	if !since.IsZero() {
-		q.SinceNs = since.UnixNano()
-	}
-	if !until.IsZero() {
-		q.UntilNs = until.UnixNano()
-	}
-	data, err := json.Marshal(q)
+	data, err := json.Marshal(newRequest("", rolling.WindowSpec{}, since, until))
 	if err != nil {
 		return err
 	}

@@ -71,20 +71,7 @@ func TestServe_HistoryMatchesReplay(t *testing.T) {
 	logPath := filepath.Join(dir, "serve.log")
 	started := time.Now()
 	c := startChild(t, logPath, "serve", "--config", cfg, "--http-addr", "off", "--log-level", "warn")
-	deadline := time.Now().Add(2 * time.Minute)
-	for {
-		cons, err := js.Consumer(ctx, "DRIFTFIT", "driftfit")
-		if err == nil {
-			info := cons.CachedInfo()
-			if info.Created.After(started) && info.NumPending == 0 && info.NumAckPending == 0 && info.Delivered.Stream >= 903 {
-				break
-			}
-		}
-		if time.Now().After(deadline) {
-			t.Fatalf("serve did not catch up; log:\n%s", readTail(logPath))
-		}
-		time.Sleep(50 * time.Millisecond)
-	}
+	waitCaughtUp(t, js, started, logPath)
 	// While serve holds the file, history asks it over the bus.
 	db := filepath.Join(dir, "data", dbFile)
 	live := map[string]string{}

@@ -199,28 +199,7 @@ func TestServe_CrashSafety(t *testing.T) {
 	// follow commits), then a graceful stop.
 	started := time.Now()
 	c := startChild(t, logPath, args...)
-	stream, err := js.Stream(ctx, "DRIFTFIT")
-	if err != nil {
-		t.Fatal(err)
-	}
-	last := stream.CachedInfo().State.LastSeq
-	deadline := time.Now().Add(3 * time.Minute)
-	for {
-		// The consumer this run made (serve makes it anew at start) has
-		// delivered the whole stream and holds no unacknowledged message;
-		// acknowledgements follow commits.
-		cons, err := js.Consumer(ctx, "DRIFTFIT", "driftfit")
-		if err == nil {
-			info := cons.CachedInfo()
-			if info.Created.After(started) && info.NumPending == 0 && info.NumAckPending == 0 && info.Delivered.Stream >= last {
-				break
-			}
-		}
-		if time.Now().After(deadline) {
-			t.Fatalf("serve did not catch up; log:\n%s", readTail(logPath))
-		}
-		time.Sleep(100 * time.Millisecond)
-	}
+	waitCaughtUp(t, js, started, logPath)
 	if err := c.cmd.Process.Signal(syscall.SIGTERM); err != nil {
 		t.Fatal(err)
 	}
@@ -278,6 +257,34 @@ func TestServe_CrashSafety(t *testing.T) {
 	}
 	if seen != len(ids) {
 		t.Errorf("%d sensors stored, want %d", seen, len(ids))
+	}
+}
+
+// waitCaughtUp waits until the consumer of a serve process started after
+// started has delivered the whole stream and holds no unacknowledged
+// message (acknowledgements follow commits); serve makes its consumer
+// anew at every start, so one made before started is not it.
+func waitCaughtUp(t *testing.T, js jetstream.JetStream, started time.Time, logPath string) {
+	t.Helper()
+	ctx := t.Context()
+	stream, err := js.Stream(ctx, "DRIFTFIT")
+	if err != nil {
+		t.Fatal(err)
+	}
+	last := stream.CachedInfo().State.LastSeq
+	deadline := time.Now().Add(3 * time.Minute)
+	for {
+		cons, err := js.Consumer(ctx, "DRIFTFIT", "driftfit")
+		if err == nil {
+			info := cons.CachedInfo()
+			if info.Created.After(started) && info.NumPending == 0 && info.NumAckPending == 0 && info.Delivered.Stream >= last {
+				return
+			}
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("serve did not catch up; log:\n%s", readTail(logPath))
+		}
+		time.Sleep(50 * time.Millisecond)
 	}
 }
 
