@@ -38,6 +38,10 @@ var (
 	// zero) and the standard errors zero, but R² is undefined and left 0.
 	ErrConstant = errors.New("rolling: all values equal")
 
+	// ErrNumeric is set in Fit.Err when the fit's numbers are not finite:
+	// the sums are beyond float64's range (values near 1e150 or more).
+	ErrNumeric = errors.New("rolling: sums out of floating-point range")
+
 	// ErrModel is returned for a Model value the operation does not support.
 	ErrModel = errors.New("rolling: unsupported model")
 )

@@ -424,9 +424,35 @@ func (ne *normal) finish(f *Fit, beta [3]float64, inv [3][3]float64, g, anchor f
 	f.Cond = ne.cond()
 	if !(ne.css > 0) {
 		f.Err = ErrConstant
-		return
+	} else {
+		f.R2 = 1 - rss/ne.css
 	}
-	f.R2 = 1 - rss/ne.css
+	if !f.finite() {
+		*f = Fit{Model: f.Model, Err: ErrNumeric, N: f.N, Excluded: f.Excluded, First: f.First, Last: f.Last}
+	}
+}
+
+// finite reports whether every number of the fit is finite.
+func (f *Fit) finite() bool {
+	sum := f.ResidSD + f.R2 + f.Cond + f.TCrit
+	for r := range 3 {
+		sum += f.Coef[r] + f.SE[r] + f.CI[r][0] + f.CI[r][1] + f.Cov[r][0] + f.Cov[r][1] + f.Cov[r][2]
+	}
+	// A sum of finite numbers can overflow, so check the terms when the
+	// sum is not finite.
+	if !math.IsNaN(sum) && !math.IsInf(sum, 0) {
+		return true
+	}
+	vals := []float64{f.ResidSD, f.R2, f.Cond, f.TCrit}
+	for r := range 3 {
+		vals = append(vals, f.Coef[r], f.SE[r], f.CI[r][0], f.CI[r][1], f.Cov[r][0], f.Cov[r][1], f.Cov[r][2])
+	}
+	for _, v := range vals {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return false
+		}
+	}
+	return true
 }
 
 // cond returns the 2-norm condition number λmax/λmin of the symmetric

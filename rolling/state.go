@@ -177,11 +177,15 @@ func decodePane(p *pane, side *posMoments, key PaneKey, data []byte) error {
 		return bad("reading times outside the pane")
 	case p.mixed() != (len(data) == mixedPaneSize):
 		return bad("positive moments present iff the pane has readings ≤ 0")
+	case !momentsPlausible(float64(p.n), p.su, p.su2, p.su3, p.su4):
+		return bad("time moments impossible for positions in [−½, ½)")
+	case !spreadPlausible(float64(p.n), p.sy, p.syy, p.su2, p.suy) || !spreadPlausible(float64(p.npos), p.sl, p.sll, p.su2, p.sul):
+		return bad("value sums impossible (negative square sum or Cauchy–Schwarz violated)")
 	}
 	if p.mixed() {
 		side.su = math.Float64frombits(le.Uint64(data[paneSize:]))
 		side.su2 = math.Float64frombits(le.Uint64(data[paneSize+8:]))
-		if math.IsNaN(side.su) || math.IsInf(side.su, 0) || math.IsNaN(side.su2) || math.IsInf(side.su2, 0) {
+		if !momentsPlausible(float64(p.npos), side.su, side.su2, 0, 0) {
 			return bad("non-finite sum")
 		}
 	}
@@ -200,4 +204,26 @@ func (s *Sensor) Closes(t int64) uint64 {
 		}
 	}
 	return mask
+}
+
+// plausTol allows for rounding in sums that meet a bound exactly.
+const plausTol = 1e-9
+
+// momentsPlausible reports whether Σu, Σu², Σu³, Σu⁴ over n positions u
+// in [−½, ½) can be: |Σuᵏ| ≤ n/2ᵏ, even powers non-negative. NaN fails.
+func momentsPlausible(n, su, su2, su3, su4 float64) bool {
+	lim := n * (1 + plausTol)
+	return math.Abs(su) <= lim/2 && su2 >= 0 && su2 <= lim/4 &&
+		math.Abs(su3) <= lim/8 && su4 >= 0 && su4 <= lim/16
+}
+
+// spreadPlausible reports whether value sums over n readings can be:
+// Σỹ² ≥ 0, (Σỹ)² ≤ n·Σỹ² and (Σuỹ)² ≤ Σu²·Σỹ² (Cauchy–Schwarz), all
+// finite. NaN fails.
+func spreadPlausible(n, sy, syy, su2, suy float64) bool {
+	if !(syy >= 0) || math.IsInf(syy, 0) {
+		return false
+	}
+	slack := (1 + plausTol)
+	return sy*sy <= n*syy*slack+1e-300 && suy*suy <= su2*syy*slack+1e-300
 }

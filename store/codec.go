@@ -65,6 +65,7 @@ var errCodes = [...]error{
 	2: rolling.ErrNoTimeSpread,
 	3: rolling.ErrSingular,
 	4: rolling.ErrConstant,
+	5: rolling.ErrNumeric,
 }
 
 func errCode(err error) (byte, bool) {

@@ -72,6 +72,8 @@ func fitStatus(err error) string {
 		return "singular"
 	case errors.Is(err, rolling.ErrConstant):
 		return "constant"
+	case errors.Is(err, rolling.ErrNumeric):
+		return "out_of_range"
 	}
 	return "error"
 }
