@@ -30,6 +30,7 @@ import (
 	dto "github.com/prometheus/client_model/go"
 	"github.com/rs/zerolog"
 
+	"driftfit/alert"
 	"driftfit/configs"
 	"driftfit/ingest"
 	"driftfit/rolling"
@@ -38,9 +39,6 @@ import (
 
 // benchFleetSmall is the smaller fleet of the memory and restart phase.
 const benchFleetSmall = 10000
-
-// benchAlertNote says why the alert latency has no number yet.
-const benchAlertNote = "not measured yet: rules are judged when a pane closes, so this needs a configured class and readings that cross a pane boundary and a limit"
 
 // benchChanged is the count of sensors that receive a reading between two
 // commits in the fleet phase: what a commit writes should follow it, not
@@ -122,16 +120,21 @@ type benchReport struct {
 	Windows    string            `json:"windows"`
 	Throughput []benchThroughput `json:"throughput"`
 	Latency    benchLatency      `json:"latency"`
+	Alerts     []benchAlert      `json:"alert_latency"`
 	Fleets     []benchFleet      `json:"fleets"`
 	Notes      []string          `json:"notes"`
 }
 
 // benchThroughput is one delivery case: the pipeline and its baseline on
-// the same messages.
+// the same messages. The tuned case reuses the baseline of the case it
+// repeats with other commit settings.
 type benchThroughput struct {
 	Case       string `json:"case"`
 	Mode       string `json:"mode"`
 	PerMessage int    `json:"readings_per_message"`
+	// Commit is the pipeline's store.commit_interval and
+	// store.commit_readings, passed to ingest as serve passes them.
+	Commit string `json:"commit"`
 	// Readings applied by the pipeline in Seconds of publishing.
 	Readings        uint64  `json:"readings_applied"`
 	Seconds         float64 `json:"seconds"`
@@ -166,8 +169,33 @@ type benchLatency struct {
 	P50Ms         float64 `json:"p50_ms"`
 	P99Ms         float64 `json:"p99_ms"`
 	MaxMs         float64 `json:"max_ms"`
-	// Alert is why the alert latency has no number.
-	Alert string `json:"alert"`
+}
+
+// benchAlert is the time from probe readings that put a sensor's slope
+// over its limit to the raised alert on the bus, under one offered load.
+// Rules are judged when a pane closes, and the first reading in the next
+// pane is what closes it, so the evaluation interval is the pane width.
+type benchAlert struct {
+	Load          string  `json:"load"`
+	OfferedPerSec float64 `json:"offered_per_s"` // background readings, besides the probes
+	Interval      string  `json:"evaluation_interval"`
+	Probes        int     `json:"probes"`
+	Raised        int     `json:"raised"`
+	// OffPane counts alerts judged at another pane close than the first
+	// after the crossing reading; zero when the probes work as designed.
+	OffPane int `json:"judged_off_pane"`
+	// Close*: from publishing the reading that closed the pane (the
+	// probe's first reading in the next pane, which triggers the
+	// evaluation) to receiving the raised event.
+	CloseP50Ms float64 `json:"close_to_alert_p50_ms"`
+	CloseP99Ms float64 `json:"close_to_alert_p99_ms"`
+	CloseMaxMs float64 `json:"close_to_alert_max_ms"`
+	// Cross*: from publishing the crossing reading (the one from which a
+	// fit of the window is over the limit) to receiving the raised event;
+	// it includes the wait for the pane to close.
+	CrossP50Ms float64 `json:"cross_to_alert_p50_ms"`
+	CrossP99Ms float64 `json:"cross_to_alert_p99_ms"`
+	CrossMaxMs float64 `json:"cross_to_alert_max_ms"`
 }
 
 // benchFleet is a restart of the service on a file holding a fleet with
@@ -213,6 +241,13 @@ func (r *benchReport) check() error {
 		errs = append(errs, errors.New("bench: latency: no probe reading came through"))
 	}
 	finite("latency", r.Latency.OfferedPerSec, r.Latency.P50Ms, r.Latency.P99Ms, r.Latency.MaxMs)
+	for _, a := range r.Alerts {
+		what := "alert latency, " + a.Load
+		if a.Raised == 0 {
+			errs = append(errs, fmt.Errorf("bench: %s: no alert raised for %d probes", what, a.Probes))
+		}
+		finite(what, a.OfferedPerSec, a.CloseP50Ms, a.CloseP99Ms, a.CloseMaxMs, a.CrossP50Ms, a.CrossP99Ms, a.CrossMaxMs)
+	}
 	for _, f := range r.Fleets {
 		what := fmt.Sprintf("fleet of %d", f.Sensors)
 		if f.Commits == 0 {
@@ -272,13 +307,12 @@ func bench(ctx context.Context, o benchOptions, log zerolog.Logger, progress io.
 		Duration: o.duration.String(),
 		Sensors:  o.sensors,
 		Windows:  specsString(e.specs),
-		Latency:  benchLatency{Alert: benchAlertNote},
 	}
 	if o.servers != "" {
 		rep.Bus = bus.nc.ConnectedUrlRedacted()
 	}
 	rep.Notes = append(rep.Notes,
-		"pipeline: decode, validate, every window of every sensor, alert evaluation at pane closes, bbolt commits with fsync, acks (stream), wired as serve wires them; the default configuration has no sensor classes, so no alert rule applies and evaluation costs next to nothing here",
+		"pipeline: decode, validate, every window of every sensor, alert evaluation at pane closes, bbolt commits with fsync, acks (stream), wired as serve wires them; the default configuration has no sensor classes, so in the throughput and publish-to-fit phases no alert rule applies and evaluation costs next to nothing",
 		"baseline: the same messages, published the same way, received by a core subscriber that only counts (direct) or a JetStream consumer that only acks each message (stream)",
 		"publisher: keeps at most a window of messages ahead of what the receiver took, so neither side drops; it shares the CPUs with both")
 
@@ -296,6 +330,23 @@ func bench(ctx context.Context, o benchOptions, log zerolog.Logger, progress io.
 			return nil, err
 		}
 		rep.Throughput = append(rep.Throughput, t)
+		if per != 1 {
+			continue
+		}
+		// The same messages against the same baseline, with fewer,
+		// larger commits: every sensor changes between two commits at one
+		// reading a message, so what a commit writes does not grow with
+		// the readings it holds.
+		tuned, err := e.commitConfig(benchTunedInterval, benchTunedReadings)
+		if err != nil {
+			return nil, err
+		}
+		step(fmt.Sprintf("direct, %d per message, commits %s", per, commitString(tuned)))
+		tt := benchThroughput{Case: t.Case + " tuned", Mode: t.Mode, PerMessage: per, Baseline: t.Baseline, BaselinePerSec: t.BaselinePerSec}
+		if err := e.directPipeline(ctx, tuned, pool, slot, &tt); err != nil {
+			return nil, err
+		}
+		rep.Throughput = append(rep.Throughput, tt)
 	}
 	step("stream, 100 per message")
 	t, err := e.streamCase(ctx, e.makePool(sensors, 100, "bench"+e.tag+".s"), slot)
@@ -309,6 +360,11 @@ func bench(ctx context.Context, o benchOptions, log zerolog.Logger, progress io.
 	if rep.Latency, err = e.latency(ctx, e.makePool(sensors, 1, "bench"+e.tag+".l"), offered, slot); err != nil {
 		return nil, err
 	}
+	step("alert latency")
+	if rep.Alerts, err = e.alertLatency(ctx, e.makePool(sensors, 1, "bench"+e.tag+".a"), offered, max(slot, time.Second)); err != nil {
+		return nil, err
+	}
+	rep.Notes = append(rep.Notes, benchAlertNote)
 
 	var sizes []int
 	if o.sensorsMax > benchFleetSmall {
@@ -332,6 +388,13 @@ func bench(ctx context.Context, o benchOptions, log zerolog.Logger, progress io.
 	}
 	return rep, nil
 }
+
+// Commit settings of the tuned direct case with one reading a message:
+// ten times serve's default readings and five times its interval.
+const (
+	benchTunedInterval = time.Second
+	benchTunedReadings = 100000
+)
 
 // benchPool is a set of encoded messages the publisher cycles through.
 type benchPool struct {
@@ -469,8 +532,8 @@ type benchPipeline struct {
 }
 
 // startPipeline opens (or creates) the state file at path and runs a
-// service on it with serve's options and the default configuration.
-func (e *benchEnv) startPipeline(ctx context.Context, path string, mode ingest.Mode, prefix, stream string, onApplied func(string, []rolling.Reading)) (*benchPipeline, error) {
+// service on it with the options serve derives from cfg.
+func (e *benchEnv) startPipeline(ctx context.Context, cfg *configs.Config, path string, mode ingest.Mode, prefix, stream string, onApplied func(string, []rolling.Reading)) (*benchPipeline, error) {
 	if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
 		return nil, err
 	}
@@ -480,7 +543,6 @@ func (e *benchEnv) startPipeline(ctx context.Context, path string, mode ingest.M
 		return nil, err
 	}
 	opened := time.Since(t0)
-	cfg := e.cfg
 	m := ingest.NewMetrics()
 	lg := e.log
 	alerts, err := newAlerter(cfg, e.bus.nc, db, lg, webhookFromConfig(cfg))
@@ -615,7 +677,6 @@ func counterValue(c prometheus.Counter) float64 {
 func (e *benchEnv) directCase(ctx context.Context, pool *benchPool, slot time.Duration) (benchThroughput, error) {
 	out := benchThroughput{Case: fmt.Sprintf("direct %d/msg", pool.per), Mode: "direct", PerMessage: pool.per, Baseline: "count"}
 	slow0 := e.slowConsumers()
-	defer func() { out.SlowConsumers = e.slowConsumers() - slow0 }()
 	pub, err := e.connect()
 	if err != nil {
 		return out, err
@@ -648,36 +709,80 @@ func (e *benchEnv) directCase(ctx context.Context, pool *benchPool, slot time.Du
 	out.Lost += lost
 	out.BaselinePerSec = float64(got.Load()) * float64(pool.per) / time.Since(t0).Seconds()
 	base.Close()
+	out.SlowConsumers = e.slowConsumers() - slow0
 
 	// The pipeline, on the same messages.
-	p, err := e.startPipeline(ctx, filepath.Join(e.dir, "direct-"+strconv.Itoa(pool.per), dbFile), ingest.ModeDirect, pool.prefix, "", nil)
+	err = e.directPipeline(ctx, e.cfg, pool, slot, &out)
+	return out, err
+}
+
+// directPipeline runs the pipeline with the settings of cfg on the pool's
+// messages for one slot and fills out's pipeline figures.
+func (e *benchEnv) directPipeline(ctx context.Context, cfg *configs.Config, pool *benchPool, slot time.Duration, out *benchThroughput) error {
+	out.Commit = commitString(cfg)
+	slow0 := e.slowConsumers()
+	defer func() { out.SlowConsumers += e.slowConsumers() - slow0 }()
+	pub, err := e.connect()
 	if err != nil {
-		return out, err
+		return err
+	}
+	defer pub.Close()
+	dir := filepath.Join(e.dir, fmt.Sprintf("direct-%d-%d", pool.per, cfg.Store.CommitReadings))
+	defer os.RemoveAll(dir)
+	p, err := e.startPipeline(ctx, cfg, filepath.Join(dir, dbFile), ingest.ModeDirect, pool.prefix, "", nil)
+	if err != nil {
+		return err
 	}
 	defer p.stop()
 	if err := p.waitLive(ctx, pub, pool.prefix+".bench-probe"); err != nil {
-		return out, err
+		return err
 	}
 	if err := p.warmUp(ctx, pub, pool); err != nil {
-		return out, err
+		return err
+	}
+	// Untimed traffic first: the first commits of a fresh file and the
+	// heap growing to its working size made the first pipeline of a run
+	// up to twice as slow as a second one with the same settings, which
+	// is start-up, not the steady state measured here.
+	s0 := p.svc.Stats().Messages
+	if _, _, err := pool.publish(ctx, pub, time.Now().Add(slot/2), func() uint64 { return p.svc.Stats().Messages - s0 }); err != nil {
+		return err
 	}
 	start := p.svc.Stats()
 	io0 := diskWritten()
 	taken := func() uint64 { return p.svc.Stats().Messages - start.Messages }
-	t0 = time.Now()
-	_, lost, err = pool.publish(ctx, pub, t0.Add(slot), taken)
+	t0 := time.Now()
+	_, lost, err := pool.publish(ctx, pub, t0.Add(slot), taken)
 	if err != nil {
-		return out, err
+		return err
 	}
 	out.Lost += lost
 	end := p.svc.Stats()
 	tEnd := time.Now()
 	tCommit, err := p.committed(ctx, end.Applied)
 	if err != nil {
-		return out, err
+		return err
 	}
 	out.fill(p, end.Applied-start.Applied, t0, tEnd, tCommit, io0)
-	return out, p.stop()
+	return p.stop()
+}
+
+// commitConfig returns the configuration serve would read from a file
+// that sets only the commit interval and readings, on the bench's bus
+// and directory.
+func (e *benchEnv) commitConfig(interval time.Duration, readings int) (*configs.Config, error) {
+	src := fmt.Sprintf("store: {commit_interval: %s, commit_readings: %d}\n", configs.FormatDuration(interval), readings)
+	cfg, err := configs.Parse("(bench commit settings)", []byte(src))
+	if err != nil {
+		return nil, err
+	}
+	cfg.Store.Dir, cfg.Bus.Servers = e.dir, e.cfg.Bus.Servers
+	return cfg, nil
+}
+
+// commitString describes the commit settings of cfg.
+func commitString(cfg *configs.Config) string {
+	return fmt.Sprintf("every %s or %s readings", configs.FormatDuration(cfg.Store.CommitInterval), grouped(float64(cfg.Store.CommitReadings)))
 }
 
 // fill computes the pipeline's rates: applied over the publishing time,
@@ -704,7 +809,7 @@ func (t *benchThroughput) fill(p *benchPipeline, applied uint64, t0, tEnd, tComm
 // streamCase fills a stream for one slot, then drains it with an ack-only
 // consumer and with the pipeline, each for at most one slot.
 func (e *benchEnv) streamCase(ctx context.Context, pool *benchPool, slot time.Duration) (benchThroughput, error) {
-	out := benchThroughput{Case: fmt.Sprintf("stream %d/msg", pool.per), Mode: "stream", PerMessage: pool.per, Baseline: "ack"}
+	out := benchThroughput{Case: fmt.Sprintf("stream %d/msg", pool.per), Mode: "stream", PerMessage: pool.per, Baseline: "ack", Commit: commitString(e.cfg)}
 	streamName := "DRIFTFIT_BENCH_" + strings.ToUpper(e.tag)
 	js, err := jetstream.New(e.bus.nc)
 	if err != nil {
@@ -775,7 +880,7 @@ func (e *benchEnv) streamCase(ctx context.Context, pool *benchPool, slot time.Du
 	// The pipeline on the same stream, from its first message.
 	io0 := diskWritten()
 	t0 = time.Now()
-	p, err := e.startPipeline(ctx, filepath.Join(e.dir, "stream", dbFile), ingest.ModeStream, pool.prefix, streamName, nil)
+	p, err := e.startPipeline(ctx, e.cfg, filepath.Join(e.dir, "stream", dbFile), ingest.ModeStream, pool.prefix, streamName, nil)
 	if err != nil {
 		return out, err
 	}
@@ -796,7 +901,7 @@ func (e *benchEnv) streamCase(ctx context.Context, pool *benchPool, slot time.Du
 // reading a millisecond stamped with its publish time, and times each
 // probe until its worker has folded it into the windows.
 func (e *benchEnv) latency(ctx context.Context, pool *benchPool, offered float64, slot time.Duration) (benchLatency, error) {
-	out := benchLatency{Mode: "direct 1/msg", Alert: benchAlertNote}
+	out := benchLatency{Mode: "direct 1/msg"}
 	probe := pool.prefix + ".bench-probe"
 	probeID := "bench-probe"
 	var mu sync.Mutex
@@ -821,7 +926,7 @@ func (e *benchEnv) latency(ctx context.Context, pool *benchPool, offered float64
 		return out, err
 	}
 	defer pub.Close()
-	p, err := e.startPipeline(ctx, filepath.Join(e.dir, "latency", dbFile), ingest.ModeDirect, pool.prefix, "", onApplied)
+	p, err := e.startPipeline(ctx, e.cfg, filepath.Join(e.dir, "latency", dbFile), ingest.ModeDirect, pool.prefix, "", onApplied)
 	if err != nil {
 		return out, err
 	}
@@ -861,17 +966,298 @@ func (e *benchEnv) latency(ctx context.Context, pool *benchPool, offered float64
 		return len(lat) >= probes
 	})
 	mu.Lock()
-	samples := slices.Clone(lat)
+	out.Samples = len(lat)
+	out.P50Ms, out.P99Ms, out.MaxMs = quantilesMs(lat)
 	mu.Unlock()
-	slices.Sort(samples)
-	out.Samples = len(samples)
-	if len(samples) > 0 {
-		q := func(f float64) float64 {
-			return float64(samples[int(f*float64(len(samples)-1))].Nanoseconds()) / 1e6
+	return out, p.stop()
+}
+
+// The alert phase. Each probe is a sensor of a class that judges the
+// slope of a line over a window of 1-second panes, with debounce 1 (off)
+// and min_readings 4 (the least alert.Tracker accepts). A probe
+// publishes a reading every benchAlertGap, stamped with the wall-clock
+// time of publishing, on a ramp 50 times as steep as the limit, so any
+// four of its readings put the fit over the limit: its fourth reading is
+// the crossing one, and the alert must be raised at the first pane close
+// after it. Probes start one every benchAlertGap, so the crossings fall
+// evenly over the pane; each holds its first reading after a pane
+// boundary for probeHold, and stops once its raised event is on the bus.
+const (
+	benchAlertPane = time.Second
+	benchAlertGap  = 10 * time.Millisecond
+	benchAlertRate = 50.0 // kPa/s, against a limit of 1 kPa/s
+	benchAlertWait = 10 * time.Second
+	benchAlertMin  = 4 // min_readings; the crossing reading is the 4th
+)
+
+// benchAlertClass is the probes' class; %[1]s is the probe id prefix,
+// %[2]s the pane.
+const benchAlertClass = `classes:
+  - name: ramp-probe
+    match: ["%[1]s.ramp-*"]
+    unit: kPa
+    span: {lower: 0, upper: 1000}
+    tolerance: "5 kPa"
+    windows:
+      - {span: 2m, pane: %[2]s}
+    min_readings: %[3]d
+    min_coverage: 0
+    debounce: 1
+    limits:
+      slope: "1 kPa/s"
+`
+
+// benchAlertNote says what the alert latency is, for the output.
+const benchAlertNote = "alert latency: probe sensors of a class judged on the slope of a 2m window of 1s panes (debounce 1, min_readings 4) publish a reading every 10 ms, stamped with the publish time, on a ramp 50 times the limit; the fourth reading crosses the limit and the alert is raised at the next pane close, which the probe's first reading in the next pane triggers; probes hold that reading 0-240 ms after the boundary, spread evenly, so it meets the alerter's 200 ms flush at every phase. close→alert runs from publishing that reading to receiving the raised event on <alert prefix>.<sensor>; cross→alert from publishing the crossing reading, so it also includes the wait for the pane to end (at most the evaluation interval) and the hold. The alerter stores a batch of results and then publishes it; the service runs as serve runs it, with no load besides the probes (idle) and with the publish-to-fit phase's offered load"
+
+// alertProbe is one probe sensor of the alert phase.
+type alertProbe struct {
+	id      string
+	subject string
+	start   time.Time
+	stamps  []int64      // times of the readings published, Unix ns; publisher only
+	last    atomic.Int64 // newest reading time of the raised event's fit, Unix ns
+	recv    atomic.Int64 // when the raised event was received, Unix ns; 0 before
+}
+
+// alertLatency runs the probes on a service configured with their class,
+// first with no other traffic, then beside the pool's messages at offered
+// readings a second; probes start over the given time in each.
+func (e *benchEnv) alertLatency(ctx context.Context, pool *benchPool, offered float64, starts time.Duration) ([]benchAlert, error) {
+	idPrefix := "bench-" + e.tag
+	cfg, err := configs.Parse("(bench alert class)", fmt.Appendf(nil, benchAlertClass, idPrefix, configs.FormatDuration(benchAlertPane), benchAlertMin))
+	if err != nil {
+		return nil, err
+	}
+	cfg.Store.Dir, cfg.Bus.Servers = e.dir, e.cfg.Bus.Servers
+	pub, err := e.connect()
+	if err != nil {
+		return nil, err
+	}
+	defer pub.Close()
+	probeConn, err := e.connect()
+	if err != nil {
+		return nil, err
+	}
+	defer probeConn.Close()
+	dir := filepath.Join(e.dir, "alerts")
+	defer os.RemoveAll(dir)
+	p, err := e.startPipeline(ctx, cfg, filepath.Join(dir, dbFile), ingest.ModeDirect, pool.prefix, "", nil)
+	if err != nil {
+		return nil, err
+	}
+	defer p.stop()
+	if err := p.waitLive(ctx, pub, pool.prefix+".bench-probe"); err != nil {
+		return nil, err
+	}
+	if err := p.warmUp(ctx, pub, pool); err != nil {
+		return nil, err
+	}
+
+	// The receiver of alerts, on its own connection as any consumer.
+	rcv, err := e.connect()
+	if err != nil {
+		return nil, err
+	}
+	defer rcv.Close()
+	var mu sync.Mutex
+	probes := map[string]*alertProbe{}
+	sub, err := rcv.Subscribe(cfg.Bus.AlertSubjectPrefix+".>", func(m *nats.Msg) {
+		now := time.Now().UnixNano()
+		var ev alert.Event
+		if json.Unmarshal(m.Data, &ev) != nil || ev.Type != alert.Raised {
+			return
 		}
-		out.P50Ms, out.P99Ms, out.MaxMs = q(0.5), q(0.99), q(1)
+		mu.Lock()
+		pr := probes[ev.Sensor]
+		mu.Unlock()
+		if pr != nil && pr.recv.Load() == 0 {
+			pr.last.Store(ev.Last.UnixNano())
+			pr.recv.Store(now)
+		}
+	})
+	if err == nil {
+		err = rcv.Flush()
+	}
+	if err != nil {
+		return nil, err
+	}
+	defer sub.Unsubscribe()
+
+	var out []benchAlert
+	rng := rand.New(rand.NewPCG(13, 13))
+	for _, run := range []struct {
+		name, tag string
+		offered   float64
+	}{{"idle", "i", 0}, {"loaded", "l", offered}} {
+		n := int(starts / benchAlertGap)
+		batch := make([]*alertProbe, n)
+		mu.Lock()
+		for i := range batch {
+			id := fmt.Sprintf("%s.ramp-%s%d", idPrefix, run.tag, i)
+			batch[i] = &alertProbe{id: id, subject: pool.prefix + "." + id}
+			probes[id] = batch[i]
+		}
+		mu.Unlock()
+		a := benchAlert{Load: run.name, Interval: configs.FormatDuration(benchAlertPane), Probes: n}
+		if run.offered > 0 {
+			a.Load = fmt.Sprintf("direct 1/msg at %s readings/s", grouped(run.offered))
+		}
+		stop := make(chan struct{})
+		var wg sync.WaitGroup
+		var loadErr error
+		if run.offered > 0 {
+			a.OfferedPerSec = float64(int(run.offered/1000)) * 1000
+			wg.Go(func() { loadErr = pool.steady(pub, int(run.offered/1000), stop) })
+		}
+		err := runProbes(ctx, probeConn, batch, rng)
+		close(stop)
+		wg.Wait()
+		if err = errors.Join(err, loadErr); err != nil {
+			return nil, err
+		}
+		a.fill(batch)
+		out = append(out, a)
 	}
 	return out, p.stop()
+}
+
+// runProbes starts a probe every benchAlertGap and publishes a reading of
+// every started probe whose alert has not come every benchAlertGap, until
+// all alerts came or benchAlertWait after the last start.
+func runProbes(ctx context.Context, nc *nats.Conn, probes []*alertProbe, rng *rand.Rand) error {
+	if len(probes) == 0 {
+		return nil
+	}
+	tick := time.NewTicker(benchAlertGap)
+	defer tick.Stop()
+	var buf []byte
+	started := 0
+	var deadline time.Time
+	for {
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case <-tick.C:
+		}
+		if started < len(probes) {
+			probes[started].start = time.Now()
+			started++
+			if started == len(probes) {
+				deadline = time.Now().Add(benchAlertWait)
+			}
+		}
+		waiting := 0
+		for i, pr := range probes[:started] {
+			if pr.recv.Load() != 0 {
+				continue
+			}
+			waiting++
+			now := time.Now()
+			if begin := now.Truncate(benchAlertPane); len(pr.stamps) > 0 && pr.stamps[len(pr.stamps)-1] < begin.UnixNano() &&
+				now.Before(begin.Add(probeHold(i))) {
+				continue // the reading that closes the pane comes later
+			}
+			// 0.01 kPa of noise keeps the residuals of a fit of four
+			// readings from being exactly zero.
+			v := 100 + benchAlertRate*now.Sub(pr.start).Seconds() + 0.02*(rng.Float64()-0.5)
+			buf = ingest.AppendReading(buf[:0], ingest.Decoded{Reading: rolling.Reading{UnixNano: now.UnixNano(), Value: v}})
+			if err := nc.Publish(pr.subject, buf); err != nil {
+				return err
+			}
+			pr.stamps = append(pr.stamps, now.UnixNano())
+		}
+		if !deadline.IsZero() && (waiting == 0 || time.Now().After(deadline)) {
+			return nc.Flush()
+		}
+	}
+}
+
+// probeHold is how long probe i stays silent after a pane boundary: 0 to
+// 240 ms in steps of 10 ms. It spreads the readings that close panes over
+// more than the alerter's 200 ms flush period, so they meet it at every
+// phase, as the readings of sensors with different cadences do; without
+// it they would all arrive within 10 ms of the boundary and meet the
+// flush at the one phase this run happens to have.
+func probeHold(i int) time.Duration { return time.Duration(i%25) * benchAlertGap }
+
+// steady publishes the pool's messages at perMs a millisecond until stop
+// is closed.
+func (p *benchPool) steady(nc *nats.Conn, perMs int, stop <-chan struct{}) error {
+	tick := time.NewTicker(time.Millisecond)
+	defer tick.Stop()
+	for k := 0; ; {
+		select {
+		case <-stop:
+			return nc.Flush()
+		case <-tick.C:
+		}
+		for range perMs {
+			if err := nc.Publish(p.subjects[k], p.data[k]); err != nil {
+				return err
+			}
+			k = (k + 1) % len(p.data)
+		}
+	}
+}
+
+// fill computes the latencies of the probes whose alert came.
+func (a *benchAlert) fill(probes []*alertProbe) {
+	var toClose, toCross []time.Duration
+	for _, pr := range probes {
+		recv := pr.recv.Load()
+		if recv == 0 {
+			continue
+		}
+		a.Raised++
+		c, x, off, ok := probeLatency(pr.stamps, benchAlertMin-1, pr.last.Load(), recv, benchAlertPane)
+		if !ok {
+			a.OffPane++
+			continue
+		}
+		if off {
+			a.OffPane++
+		}
+		toClose, toCross = append(toClose, c), append(toCross, x)
+	}
+	a.CloseP50Ms, a.CloseP99Ms, a.CloseMaxMs = quantilesMs(toClose)
+	a.CrossP50Ms, a.CrossP99Ms, a.CrossMaxMs = quantilesMs(toCross)
+}
+
+// probeLatency returns the times from the reading that closed the pane a
+// raised event judged, and from the crossing reading stamps[cross], to
+// the event's receipt at recv. stamps are a probe's reading times in
+// order (Unix ns), last the newest reading time of the judged fit. Panes
+// are aligned to the Unix epoch, so the judged pane is [last - last mod
+// pane, +pane), and the closing reading is the first at or after its end.
+// off reports that the crossing reading lies in an earlier pane (the
+// alert came a pane close late); ok is false when the judged pane ended
+// before the crossing reading or no reading closed it, which a probe
+// working as designed never shows.
+func probeLatency(stamps []int64, cross int, last, recv int64, pane time.Duration) (fromClose, fromCross time.Duration, off, ok bool) {
+	if cross < 0 || cross >= len(stamps) || last <= 0 {
+		return 0, 0, false, false
+	}
+	begin := last - last%int64(pane)
+	end := begin + int64(pane)
+	i, _ := slices.BinarySearch(stamps, end)
+	if i == len(stamps) || stamps[cross] >= end {
+		return 0, 0, false, false
+	}
+	return time.Duration(recv - stamps[i]), time.Duration(recv - stamps[cross]), stamps[cross] < begin, true
+}
+
+// quantilesMs returns the median, the 99th percentile and the maximum of
+// ds in milliseconds, each the sample at rank ⌊q·(n-1)⌋ of the sorted
+// samples (no interpolation); zeros for no samples.
+func quantilesMs(ds []time.Duration) (p50, p99, maxMs float64) {
+	if len(ds) == 0 {
+		return 0, 0, 0
+	}
+	s := slices.Clone(ds)
+	slices.Sort(s)
+	q := func(f float64) float64 { return float64(s[int(f*float64(len(s)-1))].Nanoseconds()) / 1e6 }
+	return q(0.5), q(0.99), q(1)
 }
 
 // fleetCase builds a state file holding the sensors with full windows,
@@ -893,7 +1279,7 @@ func (e *benchEnv) fleetCase(ctx context.Context, sensors []demoSensor) (benchFl
 
 	heap0, rss0 := memNow()
 	t0 := time.Now()
-	p, err := e.startPipeline(ctx, path, ingest.ModeDirect, prefix, "", nil)
+	p, err := e.startPipeline(ctx, e.cfg, path, ingest.ModeDirect, prefix, "", nil)
 	if err != nil {
 		return out, err
 	}
@@ -1101,10 +1487,17 @@ func (r *benchReport) print(w io.Writer) {
 			grouped(t.BaselinePerSec), t.Ratio, t.Baseline, t.Commits, grouped(t.BytesPerCommit), grouped(t.BytesPerSec), t.CommitMs, grouped(t.DiskPerSec), t.Lost)
 	}
 	tw.Flush()
+	for _, t := range r.Throughput {
+		fmt.Fprintf(w, "%s: commits %s\n", t.Case, t.Commit)
+	}
 	l := r.Latency
 	fmt.Fprintf(w, "\nlatency, publish to fit updated (%s, %s readings/s offered, %d probes): p50 %.2f ms, p99 %.2f ms, max %.2f ms\n",
 		l.Mode, grouped(l.OfferedPerSec), l.Samples, l.P50Ms, l.P99Ms, l.MaxMs)
-	fmt.Fprintf(w, "latency, reading over a limit to alert on the bus: %s\n", l.Alert)
+	for _, a := range r.Alerts {
+		fmt.Fprintf(w, "latency, alert on the bus, evaluation interval %s (%s; %d probes, %d raised, %d judged off pane):\n", a.Interval, a.Load, a.Probes, a.Raised, a.OffPane)
+		fmt.Fprintf(w, "  from the reading that closed the pane: p50 %.1f ms, p99 %.1f ms, max %.1f ms\n", a.CloseP50Ms, a.CloseP99Ms, a.CloseMaxMs)
+		fmt.Fprintf(w, "  from the reading that crossed the limit: p50 %.1f ms, p99 %.1f ms, max %.1f ms\n", a.CrossP50Ms, a.CrossP99Ms, a.CrossMaxMs)
+	}
 	if len(r.Fleets) > 0 {
 		fmt.Fprintln(w)
 		tw = tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
