@@ -310,6 +310,23 @@ const pdTol = 1e-12
 // leaving beta and inv zero, when G is not positive definite.
 func (ne *normal) solve(beta *[3]float64, inv *[3][3]float64) bool {
 	p := ne.p
+	if p == 2 {
+		// The 2×2 case written out: pivot g00, then the Schur complement.
+		g00, g01, g11 := ne.g[0][0], ne.g[0][1], ne.g[1][1]
+		if !(g00 > 0) {
+			return false
+		}
+		d := g11 - g01*g01/g00
+		if !(d > pdTol*g11) {
+			return false
+		}
+		ne.det = g00 * d
+		inv[0][0], inv[0][1], inv[1][1] = g11/ne.det, -g01/ne.det, 1/d
+		inv[1][0] = inv[0][1]
+		beta[0] = inv[0][0]*ne.r[0] + inv[0][1]*ne.r[1]
+		beta[1] = inv[1][0]*ne.r[0] + inv[1][1]*ne.r[1]
+		return true
+	}
 	var l [3][3]float64
 	for c := 0; c < p; c++ {
 		d := ne.g[c][c]
@@ -378,40 +395,30 @@ func (ne *normal) finish(f *Fit, beta [3]float64, inv [3][3]float64, g, anchor f
 		f.Err = ErrSingular
 		return
 	}
-	var t [3][3]float64
-	t[0] = [3]float64{1, 1, 1}
-	t[1] = [3]float64{0, g, 2 * g}
-	t[2] = [3]float64{0, 0, g * g}
-	for r := 0; r < p; r++ {
-		for c := p; c < 3; c++ {
-			t[r][c] = 0
-		}
-	}
 	f.DF = f.N - p
 	rss := max(ne.rss, 0)
 	s2 := rss / float64(f.DF)
-	var ti [3][3]float64 // T·G⁻¹
-	for r := 0; r < p; r++ {
-		for c := 0; c < p; c++ {
-			var v float64
-			for k := 0; k < p; k++ {
-				v += t[r][k] * inv[k][c]
+	if p == 2 {
+		// T = [[1, 1], [0, g]]: written out, the hot case of two fits.
+		i00, i01, i11 := inv[0][0], inv[0][1], inv[1][1]
+		f.Coef[0], f.Coef[1] = beta[0]+beta[1], g*beta[1]
+		f.Cov[0][0] = s2 * (i00 + 2*i01 + i11)
+		f.Cov[0][1] = s2 * g * (i01 + i11)
+		f.Cov[1][0] = f.Cov[0][1]
+		f.Cov[1][1] = s2 * g * g * i11
+	} else {
+		t := [3][3]float64{{1, 1, 1}, {0, g, 2 * g}, {0, 0, g * g}}
+		var ti [3][3]float64 // T·G⁻¹
+		for r := range 3 {
+			for c := range 3 {
+				ti[r][c] = t[r][0]*inv[0][c] + t[r][1]*inv[1][c] + t[r][2]*inv[2][c]
 			}
-			ti[r][c] = v
 		}
-	}
-	for r := 0; r < p; r++ {
-		var v float64
-		for k := 0; k < p; k++ {
-			v += t[r][k] * beta[k]
-		}
-		f.Coef[r] = v
-		for c := 0; c < p; c++ {
-			var w float64
-			for k := 0; k < p; k++ {
-				w += ti[r][k] * t[c][k]
+		for r := range 3 {
+			f.Coef[r] = t[r][0]*beta[0] + t[r][1]*beta[1] + t[r][2]*beta[2]
+			for c := range 3 {
+				f.Cov[r][c] = s2 * (ti[r][0]*t[c][0] + ti[r][1]*t[c][1] + ti[r][2]*t[c][2])
 			}
-			f.Cov[r][c] = s2 * w
 		}
 	}
 	f.Coef[0] += anchor
