@@ -750,6 +750,8 @@ func (e *benchEnv) directPipeline(ctx context.Context, cfg *configs.Config, pool
 	}
 	start := p.svc.Stats()
 	io0 := diskWritten()
+	var c0 commitTotals
+	c0.n, c0.bytes, c0.secs = p.commitStats()
 	taken := func() uint64 { return p.svc.Stats().Messages - start.Messages }
 	t0 := time.Now()
 	_, lost, err := pool.publish(ctx, pub, t0.Add(slot), taken)
@@ -763,7 +765,7 @@ func (e *benchEnv) directPipeline(ctx context.Context, cfg *configs.Config, pool
 	if err != nil {
 		return err
 	}
-	out.fill(p, end.Applied-start.Applied, t0, tEnd, tCommit, io0)
+	out.fill(p, end.Applied-start.Applied, t0, tEnd, tCommit, io0, c0)
 	return p.stop()
 }
 
@@ -785,15 +787,24 @@ func commitString(cfg *configs.Config) string {
 	return fmt.Sprintf("every %s or %s readings", configs.FormatDuration(cfg.Store.CommitInterval), grouped(float64(cfg.Store.CommitReadings)))
 }
 
+// commitTotals are the pipeline's commit count, bytes put and seconds
+// spent when timing began, so untimed traffic before it is left out.
+type commitTotals struct {
+	n           int
+	bytes, secs float64
+}
+
 // fill computes the pipeline's rates: applied over the publishing time,
-// committed over the time until the file held them.
-func (t *benchThroughput) fill(p *benchPipeline, applied uint64, t0, tEnd, tCommit time.Time, io0 int64) {
+// committed over the time until the file held them; commits are counted
+// from c0.
+func (t *benchThroughput) fill(p *benchPipeline, applied uint64, t0, tEnd, tCommit time.Time, io0 int64, c0 commitTotals) {
 	t.Readings = applied
 	t.Seconds = tEnd.Sub(t0).Seconds()
 	t.AppliedPerSec = float64(applied) / t.Seconds
 	t.CommittedPerSec = float64(applied) / tCommit.Sub(t0).Seconds()
 	t.Ratio = t.AppliedPerSec / t.BaselinePerSec
 	n, bytes, secs := p.commitStats()
+	n, bytes, secs = n-c0.n, bytes-c0.bytes, secs-c0.secs
 	t.Commits = n
 	if n > 0 {
 		t.BytesPerCommit = bytes / float64(n)
@@ -893,7 +904,7 @@ func (e *benchEnv) streamCase(ctx context.Context, pool *benchPool, slot time.Du
 	if err != nil {
 		return out, err
 	}
-	out.fill(p, end.Applied, t0, tEnd, tCommit, io0)
+	out.fill(p, end.Applied, t0, tEnd, tCommit, io0, commitTotals{})
 	return out, p.stop()
 }
 
