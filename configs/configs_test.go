@@ -51,6 +51,9 @@ var badCases = []struct {
 		`classes[2].tolerance = "150 %span": value out of range: exceeds the span width 100 mm`,
 		`classes[2].min_readings = "3": value out of range: must be at least 4: a parabola has 3 coefficients`,
 	}},
+	{"min_readings.bad.yaml", []string{
+		`min_readings.bad.yaml:10:19: classes[0].min_readings = "3": value out of range: must be at least 4`,
+	}},
 	{"overlapping_classes.bad.yaml", []string{
 		`overlapping_classes.bad.yaml:8:13: classes[1].match[0] = "plantA.boiler?.*": patterns overlap: class "boiler-pressure" pattern "plantA.boiler*.pt-*" matches the same ids, e.g. "plantA.boilerx.pt-"`,
 		`overlapping_classes.bad.yaml:13:3: sensors[plantA.boiler1.pt-101] = "plantA.boiler1.pt-101": sensor matches more than one class: classes "boiler-pressure", "all-boiler-sensors"`,

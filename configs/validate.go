@@ -455,14 +455,11 @@ func (v *validator) class(cl *Class, s scope) {
 	if cl.TrendModel != TrendLine && cl.TrendModel != TrendParabola {
 		v.add(s.where("trend_model"), cl.TrendModel.String(), ErrRange, "must be line or parabola")
 	}
-	coef := 2
-	model := "a line"
-	if cl.TrendModel == TrendParabola || cl.Limits.Curvature.On() {
-		coef, model = 3, "a parabola"
-	}
-	if cl.MinReadings < coef+1 {
+	// Every window is fitted with a parabola too, whatever the trend
+	// model, and judged only when all its fits can carry an interval.
+	if cl.MinReadings < 4 {
 		v.add(s.where("min_readings"), strconv.Itoa(cl.MinReadings), ErrRange,
-			"must be at least %d: %s has %d coefficients and its confidence interval needs n - %d >= 1", coef+1, model, coef, coef)
+			"must be at least 4: a parabola has 3 coefficients and its confidence interval needs n - 3 >= 1")
 	}
 	if !(cl.MinCoverage >= 0 && cl.MinCoverage <= 1) {
 		v.add(s.where("min_coverage"), fmtFloat(cl.MinCoverage), ErrRange, "must be within 0..1 (a fraction of panes)")
