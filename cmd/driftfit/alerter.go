@@ -341,9 +341,10 @@ func (a *alerter) calibrate(id string, c alert.Calibration) error {
 // run stores queued results in batches, then publishes them, until ctx is
 // done and the queue is drained.
 func (a *alerter) run(ctx context.Context) {
+	// Results are written as soon as they come, with whatever else queued
+	// meanwhile: an alert waits only for the write before it, and a burst
+	// of pane closes still shares a few transactions.
 	const maxBatch = 512
-	tick := time.NewTicker(200 * time.Millisecond)
-	defer tick.Stop()
 	var batch []alertWrite
 	flush := func() {
 		if len(batch) == 0 {
@@ -369,27 +370,32 @@ func (a *alerter) run(ctx context.Context) {
 			}
 		}
 	}
+	// take adds what is queued now, up to maxBatch, without waiting.
+	take := func() {
+		for len(batch) < maxBatch {
+			select {
+			case w := <-a.writes:
+				batch = append(batch, w)
+				continue
+			default:
+			}
+			return
+		}
+	}
 	for {
 		select {
 		case w := <-a.writes:
 			batch = append(batch, w)
-			if len(batch) >= maxBatch {
-				flush()
-			}
-		case <-tick.C:
+			take()
 			flush()
 		case <-ctx.Done():
 			for {
-				select {
-				case w := <-a.writes:
-					batch = append(batch, w)
-					continue
-				default:
+				take()
+				if len(batch) == 0 {
+					return
 				}
-				break
+				flush()
 			}
-			flush()
-			return
 		}
 	}
 }
