@@ -1019,7 +1019,7 @@ const benchAlertClass = `classes:
 `
 
 // benchAlertNote says what the alert latency is, for the output.
-const benchAlertNote = "alert latency: probe sensors of a class judged on the slope of a 2m window of 1s panes (debounce 1, min_readings 4) publish a reading every 10 ms, stamped with the publish time, on a ramp 50 times the limit; the fourth reading crosses the limit and the alert is raised at the next pane close, which the probe's first reading in the next pane triggers; probes hold that reading 0-240 ms after the boundary, spread evenly, so it meets the alerter's 200 ms flush at every phase. close→alert runs from publishing that reading to receiving the raised event on <alert prefix>.<sensor>; cross→alert from publishing the crossing reading, so it also includes the wait for the pane to end (at most the evaluation interval) and the hold. The alerter stores a batch of results and then publishes it; the service runs as serve runs it, with no load besides the probes (idle) and with the publish-to-fit phase's offered load"
+const benchAlertNote = "alert latency: probe sensors of a class judged on the slope of a 2m window of 1s panes (debounce 1, min_readings 4) publish a reading every 10 ms, stamped with the publish time, on a ramp 50 times the limit; the fourth reading crosses the limit and the alert is raised at the next pane close, which the probe's first reading in the next pane triggers; probes hold that reading 0-240 ms after the boundary, spread evenly, as sensors of different cadences would. close→alert runs from publishing that reading to receiving the raised event on <alert prefix>.<sensor>; cross→alert from publishing the crossing reading, so it also includes the wait for the pane to end (at most the evaluation interval) and the hold. The alerter stores a batch of results and then publishes it; the service runs as serve runs it, with no load besides the probes (idle) and with the publish-to-fit phase's offered load"
 
 // alertProbe is one probe sensor of the alert phase.
 type alertProbe struct {
@@ -1185,11 +1185,9 @@ func runProbes(ctx context.Context, nc *nats.Conn, probes []*alertProbe, rng *ra
 }
 
 // probeHold is how long probe i stays silent after a pane boundary: 0 to
-// 240 ms in steps of 10 ms. It spreads the readings that close panes over
-// more than the alerter's 200 ms flush period, so they meet it at every
-// phase, as the readings of sensors with different cadences do; without
-// it they would all arrive within 10 ms of the boundary and meet the
-// flush at the one phase this run happens to have.
+// 240 ms in steps of 10 ms. It spreads the readings that close panes, as
+// the readings of sensors with different cadences are spread, so they do
+// not all reach the alerter within 10 ms of the boundary.
 func probeHold(i int) time.Duration { return time.Duration(i%25) * benchAlertGap }
 
 // steady publishes the pool's messages at perMs a millisecond until stop
