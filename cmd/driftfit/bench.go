@@ -545,7 +545,8 @@ func (e *benchEnv) startPipeline(ctx context.Context, cfg *configs.Config, path 
 	opened := time.Since(t0)
 	m := ingest.NewMetrics()
 	lg := e.log
-	alerts, err := newAlerter(cfg, e.bus.nc, db, lg, webhookFromConfig(cfg))
+	// The probes raise alerts on purpose: keep them out of the log.
+	alerts, err := newAlerter(cfg, e.bus.nc, db, lg.Level(zerolog.ErrorLevel), webhookFromConfig(cfg))
 	if err != nil {
 		db.Close()
 		return nil, err
