@@ -14,12 +14,12 @@ import (
 type opKind uint8
 
 const (
-	opPane    opKind = iota // put key/val into panes
-	opSpecs                 // put key/val into sensors unless equal
-	opHorizon               // delete panes under prefix key with index < val
-	opDelete                // delete pane key
-	opRecord                // put key/val into history, key2 into the time index
-	opDropPanes             // delete every pane key under prefix key
+	opPane      opKind = iota // put key/val into panes
+	opSpecs                   // put key/val into sensors unless equal
+	opHorizon                 // delete panes under prefix key with index < val
+	opDelete                  // delete pane key
+	opRecord                  // put key/val into history, key2 into the time index
+	opDropPanes               // delete every pane key under prefix key
 )
 
 // span locates bytes in the batch's buffer. Offsets, not slices, because
