@@ -65,8 +65,14 @@ func newRequest(sensor string, window rolling.WindowSpec, since, until time.Time
 	return q
 }
 
-// serveAPI answers history and sensor-list requests from db. The
-// returned function unsubscribes.
+// serveAPI answers history, sensor-list, event and ticket requests from
+// db. The returned function unsubscribes.
+//
+// Replies come in chunks of about apiChunk bytes, each but the last with
+// the header Driftfit-More; the last carries Driftfit-Error if the request
+// failed. Events and tickets travel as frames (uvarint length, bytes): an
+// event's frame is preceded by its time (varint Unix ns), a ticket's by
+// its id (a frame).
 func serveAPI(nc *nats.Conn, db *store.DB, log zerolog.Logger) (func(), error) {
 	log = log.With().Str("component", "api").Logger()
 	send := func(m *nats.Msg, data []byte, more bool, err error) {
@@ -82,17 +88,13 @@ func serveAPI(nc *nats.Conn, db *store.DB, log zerolog.Logger) (func(), error) {
 			log.Warn().Err(perr).Str("subject", m.Subject).Msg("reply not sent")
 		}
 	}
-	hist, err := nc.Subscribe(apiHistorySubject, func(m *nats.Msg) {
-		var q historyRequest
-		if err := json.Unmarshal(m.Data, &q); err != nil {
-			send(m, nil, false, fmt.Errorf("bad request: %w", err))
-			return
-		}
-		since, until := q.times()
+	// reply runs walk, which appends to the reply through add, and sends
+	// the reply in chunks.
+	reply := func(m *nats.Msg, walk func(add func(func([]byte) ([]byte, error)) error) error) {
 		var buf []byte
-		err := db.History(q.Sensor, rolling.WindowSpec{Span: time.Duration(q.SpanNs), Pane: time.Duration(q.PaneNs)}, since, until, func(r store.HistoryRecord) error {
+		err := walk(func(app func([]byte) ([]byte, error)) error {
 			var err error
-			if buf, err = store.AppendHistoryRecord(buf, &r); err != nil {
+			if buf, err = app(buf); err != nil {
 				return err
 			}
 			if len(buf) >= apiChunk {
@@ -102,77 +104,73 @@ func serveAPI(nc *nats.Conn, db *store.DB, log zerolog.Logger) (func(), error) {
 			return nil
 		})
 		send(m, buf, false, err)
-	})
-	if err != nil {
-		return nil, err
 	}
-	sensors, err := nc.Subscribe(apiSensorsSubject, func(m *nats.Msg) {
-		var buf []byte
-		err := db.HistorySensors(func(id string) error {
-			buf = append(append(buf, id...), '\n')
-			if len(buf) >= apiChunk {
-				send(m, buf, true, nil)
-				buf = buf[:0]
-			}
-			return nil
-		})
-		send(m, buf, false, err)
-	})
-	if err != nil {
-		_ = hist.Unsubscribe()
-		return nil, err
-	}
-	// Events and tickets travel as frames: uvarint length, bytes; an
-	// event's frame is preceded by its time (varint Unix ns), a ticket's
-	// by its id (a frame).
-	events, err := nc.Subscribe(apiEventsSubject, func(m *nats.Msg) {
+	request := func(m *nats.Msg) (historyRequest, bool) {
 		var q historyRequest
 		if err := json.Unmarshal(m.Data, &q); err != nil {
 			send(m, nil, false, fmt.Errorf("bad request: %w", err))
-			return
+			return q, false
 		}
-		since, until := q.times()
-		var buf []byte
-		err := db.Events(since, until, func(at time.Time, data []byte) error {
-			buf = binary.AppendVarint(buf, at.UnixNano())
-			buf = appendFrame(buf, data)
-			if len(buf) >= apiChunk {
-				send(m, buf, true, nil)
-				buf = buf[:0]
-			}
-			return nil
-		})
-		send(m, buf, false, err)
-	})
-	if err != nil {
-		_ = hist.Unsubscribe()
-		_ = sensors.Unsubscribe()
-		return nil, err
+		return q, true
 	}
-	tickets, err := nc.Subscribe(apiTicketsSubject, func(m *nats.Msg) {
-		var buf []byte
-		err := db.Tickets(func(id string, data []byte) error {
-			buf = appendFrame(appendFrame(buf, []byte(id)), data)
-			if len(buf) >= apiChunk {
-				send(m, buf, true, nil)
-				buf = buf[:0]
+	handlers := map[string]nats.MsgHandler{
+		apiHistorySubject: func(m *nats.Msg) {
+			q, ok := request(m)
+			if !ok {
+				return
 			}
-			return nil
-		})
-		send(m, buf, false, err)
-	})
-	if err != nil {
-		_ = hist.Unsubscribe()
-		_ = sensors.Unsubscribe()
-		_ = events.Unsubscribe()
-		return nil, err
+			since, until := q.times()
+			window := rolling.WindowSpec{Span: time.Duration(q.SpanNs), Pane: time.Duration(q.PaneNs)}
+			reply(m, func(add func(func([]byte) ([]byte, error)) error) error {
+				return db.History(q.Sensor, window, since, until, func(r store.HistoryRecord) error {
+					return add(func(b []byte) ([]byte, error) { return store.AppendHistoryRecord(b, &r) })
+				})
+			})
+		},
+		apiSensorsSubject: func(m *nats.Msg) {
+			reply(m, func(add func(func([]byte) ([]byte, error)) error) error {
+				return db.HistorySensors(func(id string) error {
+					return add(func(b []byte) ([]byte, error) { return append(append(b, id...), '\n'), nil })
+				})
+			})
+		},
+		apiEventsSubject: func(m *nats.Msg) {
+			q, ok := request(m)
+			if !ok {
+				return
+			}
+			since, until := q.times()
+			reply(m, func(add func(func([]byte) ([]byte, error)) error) error {
+				return db.Events(since, until, func(at time.Time, data []byte) error {
+					return add(func(b []byte) ([]byte, error) {
+						return appendFrame(binary.AppendVarint(b, at.UnixNano()), data), nil
+					})
+				})
+			})
+		},
+		apiTicketsSubject: func(m *nats.Msg) {
+			reply(m, func(add func(func([]byte) ([]byte, error)) error) error {
+				return db.Tickets(func(id string, data []byte) error {
+					return add(func(b []byte) ([]byte, error) { return appendFrame(appendFrame(b, []byte(id)), data), nil })
+				})
+			})
+		},
 	}
-	return func() {
-		_ = hist.Unsubscribe()
-		_ = sensors.Unsubscribe()
-		_ = events.Unsubscribe()
-		_ = tickets.Unsubscribe()
-	}, nil
+	var subs []*nats.Subscription
+	stop := func() {
+		for _, sub := range subs {
+			_ = sub.Unsubscribe()
+		}
+	}
+	for subject, h := range handlers {
+		sub, err := nc.Subscribe(subject, h)
+		if err != nil {
+			stop()
+			return nil, err
+		}
+		subs = append(subs, sub)
+	}
+	return stop, nil
 }
 
 func appendFrame(dst, b []byte) []byte {
