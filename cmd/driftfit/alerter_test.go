@@ -41,22 +41,7 @@ const alertTestConfig = `classes:
 // the receiver is back, and be on the bus and in the store. A calibration
 // event then closes it, and the closed ticket is delivered too.
 func TestAlerter_TicketSurvivesReceiverOutage(t *testing.T) {
-	dir := t.TempDir()
-	ns := startNATS(t, filepath.Join(dir, "nats"), 0)
-	nc, err := nats.Connect(ns.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
-	cfg, err := configs.Parse("test.yaml", []byte(alertTestConfig))
-	if err != nil {
-		t.Fatal(err)
-	}
-	db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{NoSync: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer db.Close()
+	nc, cfg, db := alertSetup(t, alertTestConfig)
 
 	var mu sync.Mutex
 	var got []alert.Ticket
@@ -154,6 +139,29 @@ func TestAlerter_TicketSurvivesReceiverOutage(t *testing.T) {
 	if stored != 1 || len(left) != 0 {
 		t.Errorf("stored tickets %d (want 1), outbox left %d (want 0)", stored, len(left))
 	}
+}
+
+// alertSetup starts a NATS server and opens a state file for an alerter
+// test, with the configuration in yaml; everything closes at cleanup.
+func alertSetup(t *testing.T, yaml string) (*nats.Conn, *configs.Config, *store.DB) {
+	t.Helper()
+	dir := t.TempDir()
+	ns := startNATS(t, filepath.Join(dir, "nats"), 0)
+	nc, err := nats.Connect(ns.ClientURL())
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	cfg, err := configs.Parse("test.yaml", []byte(yaml))
+	if err != nil {
+		t.Fatal(err)
+	}
+	db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{NoSync: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { db.Close() })
+	return nc, cfg, db
 }
 
 func pollUntil(t *testing.T, what string, cond func() bool) {

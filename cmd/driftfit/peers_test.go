@@ -5,7 +5,6 @@ import (
 	"encoding/json"
 	"fmt"
 	"math/rand/v2"
-	"path/filepath"
 	"strings"
 	"sync"
 	"testing"
@@ -45,22 +44,7 @@ groups:
 // 1 kPa/day from day 2 to that member alone.
 func peerRun(t *testing.T, withPeers bool, drifting string) map[string][]alert.Event {
 	t.Helper()
-	dir := t.TempDir()
-	ns := startNATS(t, filepath.Join(dir, "nats"), 0)
-	nc, err := nats.Connect(ns.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
-	cfg, err := configs.Parse("peers.yaml", []byte(peerTestConfig))
-	if err != nil {
-		t.Fatal(err)
-	}
-	db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{NoSync: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer db.Close()
+	nc, cfg, db := alertSetup(t, peerTestConfig)
 	a, err := newAlerter(cfg, nc, db, zerolog.Nop(), webhookOptions{})
 	if err != nil {
 		t.Fatal(err)
