@@ -131,6 +131,12 @@ func TestAlerter_TicketSurvivesReceiverOutage(t *testing.T) {
 	if closed.ID != onBus.ID || closed.Calibration == nil || closed.Calibration.AsFound != 511.9 {
 		t.Errorf("closed ticket %+v, want %s with the calibration", closed, onBus.ID)
 	}
+	// The receiver has both; the sender marks the second done once it
+	// has the answer. (Stopped before that, it would send it again.)
+	pollUntil(t, "the outbox emptied", func() bool {
+		left, err := db.Outbox(10)
+		return err == nil && len(left) == 0
+	})
 	cancel()
 	wg.Wait()
 	stored := 0

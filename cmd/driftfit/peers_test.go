@@ -14,9 +14,7 @@ import (
 	"github.com/rs/zerolog"
 
 	"driftfit/alert"
-	"driftfit/configs"
 	"driftfit/rolling"
-	"driftfit/store"
 )
 
 const peerTestConfig = `classes:
