@@ -222,6 +222,11 @@ func (db *DB) Commit(bs ...*Batch) (CommitStats, error) {
 
 func (b *Batch) apply(tx *bolt.Tx, st *CommitStats) error {
 	sensors, panes := tx.Bucket(bucketSensors), tx.Bucket(bucketPanes)
+	if panes != nil {
+		// A sensor's new panes land just after its older ones, so a
+		// split page rarely takes more keys on its left: fill it.
+		panes.FillPercent = 0.95
+	}
 	hist, htime := tx.Bucket(bucketHistory), tx.Bucket(bucketHistTime)
 	if sensors == nil || panes == nil || hist == nil || htime == nil {
 		return fmt.Errorf("%w: buckets missing", ErrCorrupt)
