@@ -551,23 +551,11 @@ func (e *benchEnv) startPipeline(ctx context.Context, cfg *configs.Config, path 
 		db.Close()
 		return nil, err
 	}
-	svc, err := ingest.New(ingest.Options{
-		Conn:             e.bus.nc,
-		DB:               db,
-		Sensor:           sensorConfig(cfg),
-		Mode:             mode,
-		SubjectPrefix:    prefix,
-		StreamName:       stream,
-		CommitInterval:   cfg.Store.CommitInterval,
-		CommitReadings:   cfg.Store.CommitReadings,
-		FutureSkew:       cfg.Bus.FutureSkew,
-		MaxPayload:       cfg.Bus.MaxPayloadBytes,
-		HistoryRetention: cfg.Store.HistoryRetention,
-		Logger:           &lg,
-		Metrics:          m,
-		OnPaneClose:      alerts.paneClosed,
-		OnApplied:        onApplied,
-	})
+	opts := ingestOptions(cfg, e.bus.nc, db, &lg, m)
+	opts.Mode, opts.SubjectPrefix, opts.StreamName = mode, prefix, stream
+	opts.RejectedSubject = "" // <prefix>.rejected
+	opts.OnPaneClose, opts.OnApplied = alerts.paneClosed, onApplied
+	svc, err := ingest.New(opts)
 	if err != nil {
 		db.Close()
 		return nil, err

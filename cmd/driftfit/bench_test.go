@@ -24,7 +24,9 @@ func TestBench_SmallRun(t *testing.T) {
 		t.Skip("runs NATS, bbolt and every phase for a few seconds")
 	}
 	var out, errs bytes.Buffer
-	err := runBench(t.Context(), []string{"--duration", "2s", "--sensors", "300", "--sensors-max", "2000", "--json"}, nil, &out, &errs)
+	// 4 s: each timed phase gets a few hundred ms even under -race on a
+	// loaded machine, so "no reading applied" means a fault, not a slow run.
+	err := runBench(t.Context(), []string{"--duration", "4s", "--sensors", "300", "--sensors-max", "2000", "--json"}, nil, &out, &errs)
 	if err != nil {
 		t.Fatalf("bench: %v\n%s", err, errs.String())
 	}

@@ -141,24 +141,9 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 			board.paneClosed(id, w, sol)
 		}
 	}
-	svc, err := ingest.New(ingest.Options{
-		Conn:             bus.nc,
-		DB:               db,
-		Sensor:           sensorConfig(cfg),
-		Mode:             ingestMode(cfg.Bus.Mode),
-		SubjectPrefix:    cfg.Bus.SubjectPrefix,
-		RejectedSubject:  cfg.Bus.RejectedSubject,
-		StreamName:       cfg.Bus.StreamName,
-		CommitInterval:   cfg.Store.CommitInterval,
-		CommitReadings:   cfg.Store.CommitReadings,
-		FutureSkew:       cfg.Bus.FutureSkew,
-		MaxPayload:       cfg.Bus.MaxPayloadBytes,
-		HistoryRetention: cfg.Store.HistoryRetention,
-		Logger:           &log,
-		Metrics:          metrics,
-		OnPaneClose:      onPaneClose,
-		OnApplied:        onApplied,
-	})
+	opts := ingestOptions(cfg, bus.nc, db, &log, metrics)
+	opts.OnPaneClose, opts.OnApplied = onPaneClose, onApplied
+	svc, err := ingest.New(opts)
 	if err != nil {
 		return err
 	}
@@ -216,6 +201,27 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		log.Error().Err(derr).Msg("demo feed")
 	}
 	return err
+}
+
+// ingestOptions maps the configuration onto the service's options; the
+// caller adds the hooks.
+func ingestOptions(cfg *configs.Config, nc *nats.Conn, db *store.DB, log *zerolog.Logger, m *ingest.Metrics) ingest.Options {
+	return ingest.Options{
+		Conn:             nc,
+		DB:               db,
+		Sensor:           sensorConfig(cfg),
+		Mode:             ingestMode(cfg.Bus.Mode),
+		SubjectPrefix:    cfg.Bus.SubjectPrefix,
+		RejectedSubject:  cfg.Bus.RejectedSubject,
+		StreamName:       cfg.Bus.StreamName,
+		CommitInterval:   cfg.Store.CommitInterval,
+		CommitReadings:   cfg.Store.CommitReadings,
+		FutureSkew:       cfg.Bus.FutureSkew,
+		MaxPayload:       cfg.Bus.MaxPayloadBytes,
+		HistoryRetention: cfg.Store.HistoryRetention,
+		Logger:           log,
+		Metrics:          m,
+	}
 }
 
 func ingestMode(m configs.Mode) ingest.Mode {
