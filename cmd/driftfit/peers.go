@@ -26,8 +26,11 @@ type peers struct {
 	alerts *alerter
 	log    zerolog.Logger
 
+	// memberOf maps id → *peerGroup (nil: not a member). It is read for
+	// every message on the workers, so reads take no lock; mu guards
+	// first sight of an id and groups.
+	memberOf sync.Map
 	mu       sync.Mutex
-	memberOf map[string]*peerGroup // id → group; nil: not a member
 	groups   map[string]*peerGroup
 }
 
@@ -58,15 +61,18 @@ type peerSum struct {
 
 func newPeers(cfg *configs.Config, alerts *alerter, log zerolog.Logger) *peers {
 	return &peers{cfg: cfg, alerts: alerts, log: log.With().Str("component", "peers").Logger(),
-		memberOf: map[string]*peerGroup{}, groups: map[string]*peerGroup{}}
+		groups: map[string]*peerGroup{}}
 }
 
 // group returns the peer group of id (joining it on first sight), or nil.
 func (p *peers) group(id string) *peerGroup {
+	if g, ok := p.memberOf.Load(id); ok {
+		return g.(*peerGroup)
+	}
 	p.mu.Lock()
 	defer p.mu.Unlock()
-	if g, ok := p.memberOf[id]; ok {
-		return g
+	if g, ok := p.memberOf.Load(id); ok {
+		return g.(*peerGroup)
 	}
 	var g *peerGroup
 	c, err := p.cfg.ClassFor(id)
@@ -97,7 +103,7 @@ func (p *peers) group(id string) *peerGroup {
 			g.mu.Unlock()
 		}
 	}
-	p.memberOf[id] = g
+	p.memberOf.Store(id, g)
 	return g
 }
 
