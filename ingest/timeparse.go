@@ -307,30 +307,8 @@ func parseUnixSeconds(b []byte) (int64, error) {
 // most 18 digits in all, which fit a uint64 as they stand. It reports false
 // for anything else, including every error, and the general parser decides.
 func parseUnixSecondsFast(b []byte) (int64, bool) {
-	i := 0
-	neg := len(b) > 0 && b[0] == '-'
-	if neg {
-		i++
-	}
-	var mant uint64
-	start := i
-	for ; i < len(b) && b[i] >= '0' && b[i] <= '9'; i++ {
-		mant = mant*10 + uint64(b[i]-'0')
-	}
-	nInt := i - start
-	nFrac := 0
-	if i < len(b) && b[i] == '.' {
-		i++
-		fs := i
-		for ; i < len(b) && b[i] >= '0' && b[i] <= '9'; i++ {
-			mant = mant*10 + uint64(b[i]-'0')
-		}
-		nFrac = i - fs
-		if nFrac == 0 || nFrac > 9 {
-			return 0, false
-		}
-	}
-	if i != len(b) || nInt == 0 || nInt+nFrac > 18 {
+	neg, mant, nFrac, ok := scanDecimal(b, 18)
+	if !ok || nFrac > 9 {
 		return 0, false
 	}
 	// mant < 10^18 and nFrac <= 9, so mant * 10^(9-nFrac) < 2^63 only
