@@ -10,9 +10,6 @@ import (
 	"syscall"
 	"testing"
 	"time"
-
-	"github.com/nats-io/nats.go"
-	"github.com/nats-io/nats.go/jetstream"
 )
 
 // TestServe_HistoryMatchesReplay publishes a known stream to a NATS
@@ -28,19 +25,8 @@ func TestServe_HistoryMatchesReplay(t *testing.T) {
 	dir := t.TempDir()
 	ns := startNATS(t, filepath.Join(dir, "nats"), 0)
 	cfg := testConfig(t, dir, ns.ClientURL(), "stream")
-	nc, err := nats.Connect(ns.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
-	js, err := jetstream.New(nc)
-	if err != nil {
-		t.Fatal(err)
-	}
+	js := readingStream(t, ns.ClientURL())
 	ctx := t.Context()
-	if _, err := js.CreateStream(ctx, jetstream.StreamConfig{Name: "DRIFTFIT", Subjects: []string{"driftfit.in.>"}, Storage: jetstream.FileStorage}); err != nil {
-		t.Fatal(err)
-	}
 
 	seed := uint64(11)
 	t.Logf("seed %d", seed)

@@ -127,20 +127,7 @@ func TestServe_CrashSafety(t *testing.T) {
 	logPath := filepath.Join(dir, "serve.log")
 	args := []string{"serve", "--config", cfg, "--http-addr", "off", "--log-level", "warn"}
 
-	nc, err := nats.Connect(ns.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
-	js, err := jetstream.New(nc)
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx := t.Context()
-	// Make the stream first so no publish is lost before serve makes it.
-	if _, err := js.CreateStream(ctx, jetstream.StreamConfig{Name: "DRIFTFIT", Subjects: []string{"driftfit.in.>"}, Storage: jetstream.FileStorage}); err != nil {
-		t.Fatal(err)
-	}
+	js := readingStream(t, ns.ClientURL())
 
 	ids, rs, owner := crashReadings(1000, 200)
 	published := make(chan error, 1)
@@ -258,6 +245,26 @@ func TestServe_CrashSafety(t *testing.T) {
 	if seen != len(ids) {
 		t.Errorf("%d sensors stored, want %d", seen, len(ids))
 	}
+}
+
+// readingStream connects to url and makes the readings stream before serve
+// starts, so no reading published before serve makes it is lost. The
+// connection closes at cleanup.
+func readingStream(t *testing.T, url string) jetstream.JetStream {
+	t.Helper()
+	nc, err := nats.Connect(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	js, err := jetstream.New(nc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := js.CreateStream(t.Context(), jetstream.StreamConfig{Name: "DRIFTFIT", Subjects: []string{"driftfit.in.>"}, Storage: jetstream.FileStorage}); err != nil {
+		t.Fatal(err)
+	}
+	return js
 }
 
 // waitCaughtUp waits until the consumer of a serve process started after
