@@ -287,16 +287,9 @@ func runCalibrated(ctx context.Context, args []string, _ io.Reader, stdout, stde
 		fmt.Fprintln(stderr, "Usage: driftfit calibrated SENSOR --as-found V --as-left V [flags]\n\nRecords a calibration of SENSOR with the running service: closes its open\nrecalibration ticket, takes the as-left value as the new centre of the\ntolerance band and restarts its alert evaluation from that moment (the fit\nhistory is kept).\n\nFlags:")
 		fs.PrintDefaults()
 	}
-	var pos []string
-	for {
-		if err := fs.Parse(args); err != nil {
-			return err
-		}
-		if fs.NArg() == 0 {
-			break
-		}
-		pos = append(pos, fs.Arg(0))
-		args = fs.Args()[1:]
+	pos, err := parseInterleaved(fs, args)
+	if err != nil {
+		return err
 	}
 	if len(pos) != 1 {
 		fs.Usage()

@@ -64,19 +64,12 @@ func runCheckConfig(ctx context.Context, args []string, stdin io.Reader, stdout,
 		fs.PrintDefaults()
 	}
 	// Flags may come before or after the file name.
-	var pos []string
-	for {
-		if err := fs.Parse(args); err != nil {
-			if errors.Is(err, flag.ErrHelp) {
-				return err
-			}
-			return usageError("%v", err)
+	pos, err := parseInterleaved(fs, args)
+	if err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return err
 		}
-		if fs.NArg() == 0 {
-			break
-		}
-		pos = append(pos, fs.Arg(0))
-		args = fs.Args()[1:]
+		return usageError("%v", err)
 	}
 	if len(pos) != 1 {
 		fs.Usage()

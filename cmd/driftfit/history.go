@@ -202,16 +202,9 @@ func parseHistoryArgs(now time.Time, args []string, stderr io.Writer) (historyQu
 		fmt.Fprintln(stderr, historyHelp)
 		fs.PrintDefaults()
 	}
-	var pos []string
-	for {
-		if err := fs.Parse(args); err != nil {
-			return q, err
-		}
-		if fs.NArg() == 0 {
-			break
-		}
-		pos = append(pos, fs.Arg(0))
-		args = fs.Args()[1:]
+	pos, err := parseInterleaved(fs, args)
+	if err != nil {
+		return q, err
 	}
 	if len(pos) != 1 {
 		fs.Usage()
@@ -247,7 +240,6 @@ func parseHistoryArgs(now time.Time, args []string, stderr io.Writer) (historyQu
 			q.models = append(q.models, m)
 		}
 	}
-	var err error
 	if *window != "" {
 		if q.span, q.spec, err = parseHistoryWindow(*window); err != nil {
 			return q, err

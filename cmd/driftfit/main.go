@@ -93,6 +93,23 @@ func usage(w io.Writer) {
 	fmt.Fprintln(w, "\nRun \"driftfit <command> -h\" for the flags of a command.")
 }
 
+// parseInterleaved parses fs from args where positional arguments may
+// stand before, between or after the flags, and returns the positional
+// ones in order.
+func parseInterleaved(fs *flag.FlagSet, args []string) ([]string, error) {
+	var pos []string
+	for {
+		if err := fs.Parse(args); err != nil {
+			return nil, err
+		}
+		if fs.NArg() == 0 {
+			return pos, nil
+		}
+		pos = append(pos, fs.Arg(0))
+		args = fs.Args()[1:]
+	}
+}
+
 // usageError wraps a message as a usage error.
 func usageError(format string, a ...any) error {
 	return fmt.Errorf("%w: %s", errUsage, fmt.Sprintf(format, a...))
