@@ -3,6 +3,7 @@ package ingest
 import (
 	"errors"
 	"math"
+	"math/bits"
 	"strconv"
 	"unsafe"
 )
@@ -67,19 +68,62 @@ func scanDecimal(b []byte, maxDigits int) (neg bool, mant uint64, nFrac int, ok 
 	return neg, mant, nFrac, true
 }
 
-// parseFloatFast converts [-]digits[.digits] with at most 15 digits in all
-// by Clinger's fast path (W. D. Clinger, "How to Read Floating Point
-// Numbers Accurately", PLDI 1990): the digits as an integer and 10^k are
-// both exact in float64, so one division rounds correctly, exactly as
-// strconv.ParseFloat would. It reports false for every other shape.
+// parseFloatFast converts [-]digits[.digits] with at most 19 digits in
+// all, correctly rounded as strconv.ParseFloat rounds, and reports false
+// for every other shape. Up to 2^53 it takes Clinger's fast path (W. D.
+// Clinger, "How to Read Floating Point Numbers Accurately", PLDI 1990):
+// the digits as an integer and 10^k are both exact in float64, so one
+// division rounds correctly. Longer mantissas, as producers print a
+// float64 in full (17 digits), go through divideRound.
 func parseFloatFast(b []byte) (float64, bool) {
-	neg, mant, nFrac, ok := scanDecimal(b, 15)
+	neg, mant, nFrac, ok := scanDecimal(b, 19)
 	if !ok {
 		return 0, false
 	}
-	f := float64(mant) / float64pow10[nFrac]
+	var f float64
+	if mant <= 1<<53 {
+		f = float64(mant) / float64pow10[nFrac]
+	} else {
+		f = divideRound(mant, pow10u64[nFrac])
+	}
 	if neg {
 		f = -f
 	}
 	return f, true
+}
+
+// pow10u64 holds 10^0 through 10^19, every power of ten below 2^64.
+var pow10u64 = func() (p [20]uint64) {
+	p[0] = 1
+	for i := 1; i < len(p); i++ {
+		p[i] = p[i-1] * 10
+	}
+	return p
+}()
+
+// divideRound returns n/d rounded to the nearest float64, ties to even,
+// for n > 0 and d > 0. The quotient is computed exactly in integers: n is
+// shifted left by s so that q = ⌊n·2^s/d⌋ has 63 or 64 bits (the shifted
+// n has at most 127 bits and its high word is below d, as bits.Div64
+// needs), q is cut to 53 bits and the cut bits and the remainder decide
+// the rounding. The value is then m·2^(cut−s) with m < 2^53, which
+// math.Ldexp scales exactly (n/d lies far inside the normal range).
+func divideRound(n, d uint64) float64 {
+	s := uint(63 - bits.Len64(n) + bits.Len64(d))
+	var hi, lo uint64
+	if s < 64 {
+		hi, lo = n>>(64-s), n<<s
+	} else {
+		hi = n << (s - 64)
+	}
+	q, r := bits.Div64(hi, lo, d)
+	cut := uint(bits.Len64(q) - 53)
+	m, rest, half := q>>cut, q&(1<<cut-1), uint64(1)<<(cut-1)
+	if rest > half || rest == half && (r != 0 || m&1 == 1) {
+		m++
+		if m == 1<<53 {
+			m, cut = m>>1, cut+1
+		}
+	}
+	return math.Ldexp(float64(m), int(cut)-int(s))
 }

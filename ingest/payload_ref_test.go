@@ -454,18 +454,29 @@ func BenchmarkDecodePayload(b *testing.B) {
 	for i := range rs {
 		rs[i] = rolling.Reading{UnixNano: t2026 + int64(i)*25e7, Value: 101.325 + float64(i%97)*0.00137}
 	}
-	data := ingest.AppendBatch(nil, "plantA.boiler2.pt-101", rs)
-	b.Run("columnar=100", func(b *testing.B) {
-		var d ingest.Decoder
-		b.ReportAllocs()
-		b.SetBytes(int64(len(data)))
-		for b.Loop() {
-			if p, err := d.Decode(data); err != nil || len(p.Readings) != len(rs) {
-				b.Fatal(err)
+	short := ingest.AppendBatch(nil, "plantA.boiler2.pt-101", rs)
+	// A float64 computed by the producer (scaled from raw counts, say) is
+	// printed in full: 16 or 17 digits.
+	for i := range rs {
+		rs[i].Value = 101.325 + float64(i%97)*0.00137*math.Pi
+	}
+	full := ingest.AppendBatch(nil, "plantA.boiler2.pt-101", rs)
+	for _, c := range []struct {
+		name string
+		data []byte
+	}{{"columnar=100", short}, {"columnar=100,full", full}} {
+		b.Run(c.name, func(b *testing.B) {
+			var d ingest.Decoder
+			b.ReportAllocs()
+			b.SetBytes(int64(len(c.data)))
+			for b.Loop() {
+				if p, err := d.Decode(c.data); err != nil || len(p.Readings) != len(rs) {
+					b.Fatal(err)
+				}
 			}
-		}
-		b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/float64(len(rs)), "ns/reading")
-	})
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/float64(len(rs)), "ns/reading")
+		})
+	}
 }
 
 // jsonReading is how the payload would be decoded with encoding/json; the
