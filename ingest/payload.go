@@ -99,7 +99,18 @@ type Decoder struct {
 
 	unitSpan span // memo of the last unit converted, for batches
 	unit     []byte
+
+	// The elements of the last t, v and ref arrays of the top-level
+	// object, listed while it is validated so a batch is scanned once.
+	cols [3][]span
 }
+
+// Indexes into Decoder.cols.
+const (
+	colT = iota
+	colV
+	colRef
+)
 
 // span is one JSON value found in the payload.
 type span struct {
@@ -221,35 +232,23 @@ func (d *Decoder) object(s *scanner, f *fields) []byte {
 		s.failShape(f.ref.start, "ref of a batch must be an array")
 		return nil
 	}
-	ts := scanner{data: s.data, pos: f.t.start + 1}
-	vs := scanner{data: s.data, pos: f.v.start + 1}
-	rs := scanner{data: s.data, pos: f.ref.start + 1}
-	for idx := 0; ; idx++ {
-		var g fields
-		var okT, okV, okR bool
-		g.t, okT = ts.elem()
-		g.v, okV = vs.elem()
-		okR = okT
+	ts, vs, rs := d.cols[colT], d.cols[colV], d.cols[colRef]
+	if len(ts) != len(vs) || hasRef && len(rs) != len(ts) {
+		msg := fmt.Errorf("%w: t has %d, v has %d", ErrLengthMismatch, len(ts), len(vs))
 		if hasRef {
-			g.ref, okR = rs.elem()
+			msg = fmt.Errorf("%w: t has %d, v has %d, ref has %d", ErrLengthMismatch, len(ts), len(vs), len(rs))
 		}
-		if okT && okV && okR {
-			g.unit = f.unit
-			d.reading(s.data, idx, &g)
-			continue
-		}
-		if okT || okV || okR {
-			nt, nv, nr := idx+ts.rest(okT), idx+vs.rest(okV), idx
-			msg := fmt.Errorf("%w: t has %d, v has %d", ErrLengthMismatch, nt, nv)
-			if hasRef {
-				nr += rs.rest(okR)
-				msg = fmt.Errorf("%w: t has %d, v has %d, ref has %d", ErrLengthMismatch, nt, nv, nr)
-			}
-			s.err, s.errPos, s.errReason = msg, f.t.start, ReasonLengthMismatch
-			return nil
-		}
-		return sensor
+		s.err, s.errPos, s.errReason = msg, f.t.start, ReasonLengthMismatch
+		return nil
 	}
+	for idx := range ts {
+		g := fields{t: ts[idx], v: vs[idx], unit: f.unit}
+		if hasRef {
+			g.ref = rs[idx]
+		}
+		d.reading(s.data, idx, &g)
+	}
+	return sensor
 }
 
 // reading checks the fields of reading idx and records it as decoded or
@@ -475,7 +474,7 @@ func (s *scanner) value(depth int) span {
 		s.object(nil, nil, depth+1)
 		return span{start, s.pos, '{', false}
 	case c == '[':
-		s.array(depth + 1)
+		s.array(depth+1, nil)
 		return span{start, s.pos, '[', false}
 	case c == 't':
 		s.literal("true")
@@ -620,30 +619,42 @@ func (s *scanner) object(f *fields, d *Decoder, depth int) {
 			return
 		}
 		s.pos++
-		v := s.value(depth)
-		if s.bad() {
-			return
-		}
-		if f != nil {
+		if f == nil {
+			s.value(depth)
+		} else {
 			key := s.data[kstart+1 : kend-1]
 			mark := len(d.scratch)
 			if kesc {
 				d.scratch = unescape(d.scratch, key)
 				key = d.scratch[mark:]
 			}
+			var dst *span
+			col := -1
 			switch string(key) {
 			case "t":
-				f.t = v
+				dst, col = &f.t, colT
 			case "v":
-				f.v = v
+				dst, col = &f.v, colV
 			case "ref":
-				f.ref = v
+				dst, col = &f.ref, colRef
 			case "unit":
-				f.unit = v
+				dst = &f.unit
 			case "sensor":
-				f.sensor = v
+				dst = &f.sensor
 			}
 			d.scratch = d.scratch[:mark]
+			var v span
+			if col >= 0 && depth == 1 {
+				v = s.listing(depth, &d.cols[col])
+			} else {
+				v = s.value(depth)
+			}
+			if dst != nil {
+				*dst = v
+			}
+		}
+		if s.bad() {
+			return
 		}
 		s.ws()
 		switch s.peek() {
@@ -659,8 +670,22 @@ func (s *scanner) object(f *fields, d *Decoder, depth int) {
 	}
 }
 
-// array scans an array at its '['.
-func (s *scanner) array(depth int) {
+// listing scans one value like value and, when it is an array, lists
+// its elements in *elems.
+func (s *scanner) listing(depth int, elems *[]span) span {
+	s.ws()
+	if s.peek() != '[' {
+		return s.value(depth)
+	}
+	start := s.pos
+	*elems = (*elems)[:0]
+	s.array(depth+1, elems)
+	return span{start, s.pos, '[', false}
+}
+
+// array scans an array at its '['; with elems non-nil it appends the
+// span of every element.
+func (s *scanner) array(depth int, elems *[]span) {
 	if depth > maxDepth {
 		s.failShape(s.pos, "nested too deep")
 		return
@@ -672,9 +697,12 @@ func (s *scanner) array(depth int) {
 		return
 	}
 	for {
-		s.value(depth)
+		v := s.value(depth)
 		if s.bad() {
 			return
+		}
+		if elems != nil {
+			*elems = append(*elems, v)
 		}
 		s.ws()
 		switch s.peek() {
@@ -688,31 +716,4 @@ func (s *scanner) array(depth int) {
 			return
 		}
 	}
-}
-
-// elem returns the next element of an array that has already been
-// validated, with s positioned after its '[' or after the previous
-// element; ok is false at the closing bracket.
-func (s *scanner) elem() (v span, ok bool) {
-	s.ws()
-	switch s.peek() {
-	case ']':
-		return span{}, false
-	case ',':
-		s.pos++
-	}
-	return s.value(1), true
-}
-
-// rest counts the elements left in a validated array, plus one if the
-// last elem call returned one.
-func (s *scanner) rest(had bool) int {
-	n := 0
-	if had {
-		n++
-	}
-	for _, ok := s.elem(); ok; _, ok = s.elem() {
-		n++
-	}
-	return n
 }
