@@ -46,7 +46,7 @@ func (s *Service) commit() {
 		req.pos, req.ack = s.lastSeq, s.lastMsg
 	}
 	s.commits <- req
-	s.sinceCommit, s.dirty = 0, false
+	s.commitBase, s.dirty = s.applied.Load(), false
 }
 
 // committerFree reports whether a commit can be queued without waiting.

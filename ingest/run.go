@@ -28,7 +28,8 @@ const (
 )
 
 // Sizes of the internal queues, chosen so a burst of 100-reading batches
-// keeps every worker busy without holding more than a few MB in flight.
+// keeps every worker busy; a worker holds at most workQueueLen ×
+// jobsPerBatch payloads in flight (about 50 MB of 3 KB batches).
 const (
 	inboxLen      = 4096 // messages between the bus callback and the dispatcher
 	drainMax      = 1024 // messages the dispatcher takes before flushing to workers
@@ -56,7 +57,10 @@ type sensorRef struct {
 }
 
 type sensorState struct {
+	// sensor is made by the worker from windows with the first reading
+	// it accepts; nil until then.
 	sensor  *rolling.Sensor
+	windows []rolling.WindowSpec
 	touched bool // listed in the worker's touched since the last commit
 	// since refuses readings older than the sensor's last restart (a
 	// calibration), Unix ns; 0: none. dropped asks the next commit to
@@ -75,15 +79,14 @@ type Service struct {
 	refs    map[string]*sensorRef // dispatcher only
 	workers []*worker
 	seed    maphash.Seed
-	dec     Decoder
 	prefix  string // SubjectPrefix + "."
 
 	// dispatcher state
-	pending     []*workBatch // per worker, being filled
-	lastMsg     jetstream.Msg
-	lastSeq     uint64
-	sinceCommit int
-	dirty       bool
+	pending    []*workBatch // per worker, being filled
+	lastMsg    jetstream.Msg
+	lastSeq    uint64
+	commitBase uint64 // applied at the last commit
+	dirty      bool
 
 	commits chan commitReq
 	control chan restartReq
@@ -108,7 +111,6 @@ func New(o Options) (*Service, error) {
 		log:     o.Logger.With().Str("component", "ingest").Logger(),
 		refs:    map[string]*sensorRef{},
 		seed:    maphash.MakeSeed(),
-		dec:     Decoder{MaxBytes: o.MaxPayload},
 		prefix:  o.SubjectPrefix + ".",
 		commits: make(chan commitReq, 1),
 		control: make(chan restartReq),
@@ -178,7 +180,7 @@ loop:
 		case m := <-in:
 			s.handle(m)
 			s.drain(in, drainMax-1)
-			if s.sinceCommit >= s.o.CommitReadings && s.committerFree() {
+			if s.applied.Load()-s.commitBase >= uint64(s.o.CommitReadings) && s.committerFree() {
 				s.commit()
 			}
 		case <-tick.C:
@@ -255,7 +257,7 @@ func (s *Service) restore() error {
 			s.log.Info().Str("sensor", r.ID).Msg("windows changed since the state was saved; panes of kept widths carried over")
 		}
 		dropped += r.Dropped
-		s.addRef(r.ID, units[r.ID], r.Sensor)
+		s.addRef(r.ID, units[r.ID], r.Sensor, nil)
 		return nil
 	})
 	if err != nil {
@@ -275,19 +277,41 @@ func (s *Service) restore() error {
 	return nil
 }
 
-func (s *Service) addRef(id, unit string, sensor *rolling.Sensor) *sensorRef {
+// addRef routes sensor id to its worker, with its state restored
+// (sensor) or to be made with its first reading (windows).
+func (s *Service) addRef(id, unit string, sensor *rolling.Sensor, windows []rolling.WindowSpec) *sensorRef {
 	ref := &sensorRef{
 		id:     id,
 		worker: int(maphash.String(s.seed, id) % uint64(len(s.workers))),
 		unit:   unit,
-		st:     &sensorState{sensor: sensor},
+		st:     &sensorState{sensor: sensor, windows: windows},
 	}
 	s.refs[id] = ref
-	s.sensors.Add(1)
-	if m := s.o.Metrics; m != nil {
-		m.Sensors.Set(float64(s.sensors.Load()))
+	if sensor != nil {
+		s.sensorMade()
 	}
 	return ref
+}
+
+// sensorMade counts one more sensor held; safe from any goroutine.
+func (s *Service) sensorMade() {
+	n := s.sensors.Add(1)
+	if m := s.o.Metrics; m != nil {
+		m.Sensors.Set(float64(n))
+	}
+}
+
+// ref returns the route of sensor id, adding one for a configured sensor
+// seen for the first time, or an error for one with no configuration.
+func (s *Service) ref(id string) (*sensorRef, error) {
+	if ref := s.refs[id]; ref != nil {
+		return ref, nil
+	}
+	cfg, err := s.o.Sensor(id)
+	if err != nil {
+		return nil, fmt.Errorf("sensor %q: %w", id, err)
+	}
+	return s.addRef(strings.Clone(id), cfg.Unit, nil, cfg.Windows), nil
 }
 
 // source is a running subscription.
@@ -390,7 +414,9 @@ func (s *Service) start(ctx context.Context, in chan message) (*source, error) {
 	}}, nil
 }
 
-// handle decodes, validates and routes one message.
+// handle routes one message to the worker of its sensor, which decodes
+// and validates it: decoding is most of the work per reading, and the
+// workers share it out over the cores.
 func (s *Service) handle(m message) {
 	if m.seq != 0 {
 		if m.seq <= s.lastSeq {
@@ -411,88 +437,27 @@ func (s *Service) handle(m message) {
 	}
 	id, ok := strings.CutPrefix(m.subject, s.prefix)
 	if !ok || id == "" {
-		s.deadLetter(m, ReasonMalformed, fmt.Errorf("subject %q has no sensor id after %q", m.subject, s.prefix), nil)
+		s.deadLetter(m.subject, m.data, ReasonMalformed, fmt.Errorf("subject %q has no sensor id after %q", m.subject, s.prefix), nil)
 		return
 	}
-	p, err := s.dec.Decode(m.data)
+	ref, err := s.ref(id)
 	if err != nil {
-		reason := ReasonMalformed
-		var pe *PayloadError
-		if errors.As(err, &pe) {
-			reason = pe.Reason
-		}
-		s.deadLetter(m, reason, err, nil)
+		s.deadLetter(m.subject, m.data, ReasonMalformed, err, nil)
 		return
 	}
-	if p.Sensor != nil && string(p.Sensor) != id {
-		s.deadLetter(m, ReasonMalformed, fmt.Errorf("payload sensor %q differs from subject sensor %q", p.Sensor, id), nil)
-		return
-	}
-	ref := s.refs[id]
-	if ref == nil {
-		cfg, err := s.o.Sensor(id)
-		if err != nil {
-			s.deadLetter(m, ReasonMalformed, fmt.Errorf("sensor %q: %w", id, err), nil)
-			return
-		}
-		sensor, err := rolling.NewSensor(cfg.Windows...)
-		if err != nil {
-			s.deadLetter(m, ReasonMalformed, fmt.Errorf("sensor %q windows: %w", id, err), nil)
-			return
-		}
-		ref = s.addRef(strings.Clone(id), cfg.Unit, sensor)
-	}
-	rejects := p.Rejects
-	limit := s.o.Now().Add(s.o.FutureSkew).UnixNano()
 	b := s.batchFor(ref.worker)
-	off := len(b.readings)
-	for i := range p.Readings {
-		d := &p.Readings[i]
-		switch {
-		case d.UnixNano > limit:
-			rejects = append(rejects, Reject{Index: s.index(p, i), Field: "t", Value: time.Unix(0, d.UnixNano).UTC().Format(time.RFC3339Nano),
-				Reason: ReasonFutureTime, Err: fmt.Errorf("time more than %v ahead of now", s.o.FutureSkew)})
-			continue
-		case d.Unit != nil && ref.unit != "" && string(d.Unit) != ref.unit:
-			rejects = append(rejects, Reject{Index: s.index(p, i), Field: "unit", Value: string(d.Unit),
-				Reason: ReasonUnitMismatch, Err: fmt.Errorf("sensor %s is configured in %s", id, ref.unit)})
-			continue
-		}
-		v := d.Value
-		if d.HasRef {
-			v -= d.Ref
-		}
-		b.readings = append(b.readings, rolling.Reading{UnixNano: d.UnixNano, Value: v})
+	b.jobs = append(b.jobs, job{ref: ref, data: m.data})
+	s.dirty = true
+	if len(b.jobs) >= jobsPerBatch {
+		s.flushWorker(ref.worker)
 	}
-	if n := len(b.readings) - off; n > 0 {
-		b.jobs = append(b.jobs, job{ref: ref, off: off, n: n})
-		s.sinceCommit += n
-		s.dirty = true
-		if len(b.jobs) >= jobsPerBatch {
-			s.flushWorker(ref.worker)
-		}
-	}
-	if len(rejects) > 0 {
-		s.deadLetter(m, rejects[0].Reason, rejects[0].Err, rejects)
-	}
-}
-
-// index returns the payload position of accepted reading i: the decoder
-// lists accepted readings in order, skipping the refused ones.
-func (s *Service) index(p Payload, i int) int {
-	idx := i
-	for _, r := range p.Rejects {
-		if r.Index <= idx {
-			idx++
-		}
-	}
-	return idx
 }
 
 // deadLetter counts refused input and republishes the message to the
 // rejected subject with the reasons in headers. rejects lists per-reading
 // problems of a payload whose other readings were kept.
-func (s *Service) deadLetter(m message, reason Reason, cause error, rejects []Reject) {
+// It is safe for concurrent use.
+func (s *Service) deadLetter(subject string, data []byte, reason Reason, cause error, rejects []Reject) {
 	n := max(1, len(rejects))
 	s.rejected.Add(uint64(n))
 	if mt := s.o.Metrics; mt != nil {
@@ -503,14 +468,14 @@ func (s *Service) deadLetter(m message, reason Reason, cause error, rejects []Re
 			mt.Rejected.WithLabelValues(r.Reason.String()).Inc()
 		}
 	}
-	s.badLog.Warn().Str("subject", m.subject).Str("reason", reason.String()).Int("n", n).Err(cause).Msg("input rejected")
+	s.badLog.Warn().Str("subject", subject).Str("reason", reason.String()).Int("n", n).Err(cause).Msg("input rejected")
 	msg := nats.NewMsg(s.o.RejectedSubject)
-	msg.Data = m.data
+	msg.Data = data
 	msg.Header.Set(HeaderReason, reason.String())
 	if cause != nil {
 		msg.Header.Set(HeaderError, cause.Error())
 	}
-	msg.Header.Set(HeaderSubject, m.subject)
+	msg.Header.Set(HeaderSubject, subject)
 	if len(rejects) > 0 {
 		var sb strings.Builder
 		for i, r := range rejects {
@@ -580,17 +545,9 @@ func (s *Service) Restart(ctx context.Context, id string, from time.Time) error 
 }
 
 func (s *Service) restart(id string, from time.Time) error {
-	ref := s.refs[id]
-	if ref == nil {
-		cfg, err := s.o.Sensor(id)
-		if err != nil {
-			return fmt.Errorf("ingest: restart %s: %w", id, err)
-		}
-		sensor, err := rolling.NewSensor(cfg.Windows...)
-		if err != nil {
-			return fmt.Errorf("ingest: restart %s: %w", id, err)
-		}
-		ref = s.addRef(strings.Clone(id), cfg.Unit, sensor)
+	ref, err := s.ref(id)
+	if err != nil {
+		return fmt.Errorf("ingest: restart: %w", err)
 	}
 	// Behind everything already routed to the sensor's worker.
 	s.flushWorker(ref.worker)

@@ -2,6 +2,7 @@ package ingest
 
 import (
 	"errors"
+	"fmt"
 	"time"
 
 	"github.com/nats-io/nats.go"
@@ -10,19 +11,18 @@ import (
 	"driftfit/store"
 )
 
-// job is the readings of one message for one sensor, within a workBatch.
+// job is one message for one sensor, within a workBatch.
 type job struct {
-	ref    *sensorRef
-	off, n int // range in workBatch.readings
+	ref  *sensorRef
+	data []byte // the payload, owned by the job
 }
 
 // workBatch is one hand-off from the dispatcher to a worker: jobs to
 // apply, or a commit token.
 type workBatch struct {
-	jobs     []job
-	readings []rolling.Reading
-	token    *commitToken
-	restart  *restartJob
+	jobs    []job
+	token   *commitToken
+	restart *restartJob
 }
 
 // worker owns a share of the sensors: it alone touches their state.
@@ -34,6 +34,8 @@ type worker struct {
 	pool  chan *store.Batch // two store batches: one filling, one committing
 	touch []*sensorRef      // sensors changed since the last commit token
 	hist  []histEntry       // pane-close solutions since the last token
+	dec   Decoder
+	rs    []rolling.Reading // the accepted readings of one message
 
 	applied uint64 // readings applied, ever; read at commit tokens
 }
@@ -50,6 +52,7 @@ func newWorker(s *Service, idx int) *worker {
 		in:   make(chan *workBatch, workQueueLen),
 		free: make(chan *workBatch, workQueueLen+2),
 		pool: make(chan *store.Batch, 2),
+		dec:  Decoder{MaxBytes: s.o.MaxPayload},
 	}
 	w.pool <- new(store.Batch)
 	w.pool <- new(store.Batch)
@@ -76,11 +79,12 @@ func (w *worker) run() {
 			w.restart(b.restart)
 			continue
 		}
+		limit := w.s.o.Now().Add(w.s.o.FutureSkew).UnixNano()
 		for i := range b.jobs {
-			w.apply(&b.jobs[i], b.readings)
+			w.apply(&b.jobs[i], limit)
 		}
-		clear(b.jobs) // drop the refs
-		b.jobs, b.readings = b.jobs[:0], b.readings[:0]
+		clear(b.jobs) // drop the refs and payloads
+		b.jobs = b.jobs[:0]
 		select {
 		case w.free <- b:
 		default:
@@ -88,14 +92,83 @@ func (w *worker) run() {
 	}
 }
 
-func (w *worker) apply(j *job, readings []rolling.Reading) {
-	ref, st := j.ref, j.ref.st
+// apply decodes and validates one message and folds its readings into
+// the sensor; readings later than limit (Unix ns) are refused as future.
+// Refused input goes to the dead letters; the rest is kept.
+func (w *worker) apply(j *job, limit int64) {
+	ref := j.ref
+	p, err := w.dec.Decode(j.data)
+	if err != nil {
+		reason := ReasonMalformed
+		var pe *PayloadError
+		if errors.As(err, &pe) {
+			reason = pe.Reason
+		}
+		w.s.deadLetter(w.s.prefix+ref.id, j.data, reason, err, nil)
+		return
+	}
+	if p.Sensor != nil && string(p.Sensor) != ref.id {
+		w.s.deadLetter(w.s.prefix+ref.id, j.data, ReasonMalformed, fmt.Errorf("payload sensor %q differs from subject sensor %q", p.Sensor, ref.id), nil)
+		return
+	}
+	rejects := p.Rejects
+	rs := w.rs[:0]
+	for i := range p.Readings {
+		d := &p.Readings[i]
+		switch {
+		case d.UnixNano > limit:
+			rejects = append(rejects, Reject{Index: payloadIndex(p, i), Field: "t", Value: time.Unix(0, d.UnixNano).UTC().Format(time.RFC3339Nano),
+				Reason: ReasonFutureTime, Err: fmt.Errorf("time more than %v ahead of now", w.s.o.FutureSkew)})
+			continue
+		case d.Unit != nil && ref.unit != "" && string(d.Unit) != ref.unit:
+			rejects = append(rejects, Reject{Index: payloadIndex(p, i), Field: "unit", Value: string(d.Unit),
+				Reason: ReasonUnitMismatch, Err: fmt.Errorf("sensor %s is configured in %s", ref.id, ref.unit)})
+			continue
+		}
+		v := d.Value
+		if d.HasRef {
+			v -= d.Ref
+		}
+		rs = append(rs, rolling.Reading{UnixNano: d.UnixNano, Value: v})
+	}
+	w.rs = rs
+	if len(rs) > 0 && ref.st.sensor == nil {
+		sensor, err := rolling.NewSensor(ref.st.windows...)
+		if err != nil {
+			w.s.deadLetter(w.s.prefix+ref.id, j.data, ReasonMalformed, fmt.Errorf("sensor %q windows: %w", ref.id, err), nil)
+			return
+		}
+		ref.st.sensor = sensor
+		w.s.sensorMade()
+	}
+	if len(rs) > 0 {
+		w.fold(ref, rs)
+	}
+	if len(rejects) > 0 {
+		w.s.deadLetter(w.s.prefix+ref.id, j.data, rejects[0].Reason, rejects[0].Err, rejects)
+	}
+}
+
+// payloadIndex returns the payload position of accepted reading i: the
+// decoder lists accepted readings in order, skipping the refused ones.
+func payloadIndex(p Payload, i int) int {
+	idx := i
+	for _, r := range p.Rejects {
+		if r.Index <= idx {
+			idx++
+		}
+	}
+	return idx
+}
+
+// fold adds accepted readings to the sensor.
+func (w *worker) fold(ref *sensorRef, rs []rolling.Reading) {
+	st := ref.st
 	if !st.touched {
 		st.touched = true
 		w.touch = append(w.touch, ref)
 	}
 	var ok uint64
-	rs := readings[j.off : j.off+j.n]
 	for _, r := range rs {
 		if r.UnixNano < st.since {
 			w.reject(ref, r, errBeforeRestart)
@@ -132,13 +205,20 @@ var errBeforeRestart = errors.New("ingest: reading older than the sensor's last 
 
 func (w *worker) restart(j *restartJob) {
 	st := j.ref.st
-	specs := make([]rolling.WindowSpec, st.sensor.Windows())
-	for i := range specs {
-		specs[i] = st.sensor.Spec(i)
+	specs := st.windows
+	if st.sensor != nil {
+		specs = make([]rolling.WindowSpec, st.sensor.Windows())
+		for i := range specs {
+			specs[i] = st.sensor.Spec(i)
+		}
 	}
 	fresh, err := rolling.NewSensor(specs...)
 	if err != nil {
-		return // the specs came from a working sensor
+		w.s.log.Warn().Str("sensor", j.ref.id).Err(err).Msg("fits not restarted: windows refused")
+		return
+	}
+	if st.sensor == nil {
+		w.s.sensorMade()
 	}
 	st.sensor, st.since, st.dropped = fresh, j.from, true
 	if !st.touched {
