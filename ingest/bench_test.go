@@ -3,12 +3,16 @@ package ingest_test
 import (
 	"context"
 	"fmt"
+	"math"
 	"path/filepath"
 	"strconv"
+	"sync/atomic"
+	"syscall"
 	"testing"
 	"time"
 
 	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
 
 	"driftfit/ingest"
 	"driftfit/rolling"
@@ -104,5 +108,118 @@ func BenchmarkService_Direct(b *testing.B) {
 			b.StopTimer()
 			b.ReportMetric(float64(msgs*per)/b.Elapsed().Seconds(), "readings/s")
 		})
+	}
+}
+
+// BenchmarkService_Stream measures draining a JetStream stream that
+// already holds the readings, in 100-reading batches for 10,000 sensors,
+// values printed in full as a producer prints a float64. ack-only is the
+// baseline: a consumer that acknowledges each message and does nothing
+// else. service is the consumer's delivery, decode, validate, the windows
+// (1d/1h and 30d/1d), commits (fsync off) and acknowledgements. One op is
+// one reading; "cores" is the CPU time of the process over the time
+// measured.
+func BenchmarkService_Stream(b *testing.B) {
+	for _, consumer := range []string{"ack-only", "service"} {
+		b.Run("consumer="+consumer, func(b *testing.B) { benchStream(b, consumer == "service") })
+	}
+}
+
+func benchStream(b *testing.B, service bool) {
+	const sensors, per = 10000, 100
+	dir := b.TempDir()
+	ns := natsServer(b, filepath.Join(dir, "nats"), 0)
+	defer ns.Shutdown()
+	nc, err := nats.Connect(ns.ClientURL())
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer nc.Close()
+	js, err := jetstream.New(nc, jetstream.WithPublishAsyncMaxPending(4096))
+	if err != nil {
+		b.Fatal(err)
+	}
+	ctx := context.Background()
+	if _, err := js.CreateStream(ctx, jetstream.StreamConfig{Name: "DRIFTFIT", Subjects: []string{"driftfit.in.>"}, Storage: jetstream.FileStorage}); err != nil {
+		b.Fatal(err)
+	}
+	end := time.Now().Add(-time.Minute).Truncate(time.Second)
+	rs := make([]rolling.Reading, per)
+	msgs := (b.N + per - 1) / per
+	rounds := msgs/sensors + 1
+	for k := range msgs {
+		i, round := k%sensors, k/sensors
+		for j := range rs {
+			// Each round of a sensor's batches lies after the last.
+			at := end.Add(-time.Duration((rounds-round)*per-j) * time.Second)
+			rs[j] = rolling.Reading{UnixNano: at.UnixNano(), Value: 100 + float64(i%7) + float64(j)*0.01*math.Pi}
+		}
+		id := fmt.Sprintf("bench.s%04d", i)
+		if _, err := js.PublishAsync("driftfit.in."+id, ingest.AppendBatch(nil, id, rs)); err != nil {
+			b.Fatal(err)
+		}
+	}
+	select {
+	case <-js.PublishAsyncComplete():
+	case <-time.After(time.Minute):
+		b.Fatal("stream fill not acknowledged")
+	}
+	var ru0, ru1 syscall.Rusage
+	measure := func(run func()) {
+		b.ReportAllocs()
+		_ = syscall.Getrusage(syscall.RUSAGE_SELF, &ru0)
+		b.ResetTimer()
+		run()
+		b.StopTimer()
+		_ = syscall.Getrusage(syscall.RUSAGE_SELF, &ru1)
+		cpu := time.Duration(ru1.Utime.Nano() + ru1.Stime.Nano() - ru0.Utime.Nano() - ru0.Stime.Nano())
+		b.ReportMetric(cpu.Seconds()/b.Elapsed().Seconds(), "cores")
+		b.ReportMetric(float64(msgs*per)/b.Elapsed().Seconds(), "readings/s")
+	}
+
+	if !service {
+		cons, err := js.CreateConsumer(ctx, "DRIFTFIT", jetstream.ConsumerConfig{Durable: "ack", AckPolicy: jetstream.AckExplicitPolicy, MaxAckPending: 1 << 16})
+		if err != nil {
+			b.Fatal(err)
+		}
+		var got atomic.Int64
+		measure(func() {
+			cc, err := cons.Consume(func(m jetstream.Msg) { _ = m.Ack(); got.Add(1) }, jetstream.PullMaxMessages(2048))
+			if err != nil {
+				b.Fatal(err)
+			}
+			defer cc.Stop()
+			waitFor(b, "messages acknowledged", func() bool { return got.Load() >= int64(msgs) })
+		})
+		return
+	}
+
+	db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{NoSync: true})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer db.Close()
+	svc, err := ingest.New(ingest.Options{
+		Conn: nc, DB: db, Mode: ingest.ModeStream,
+		Sensor: func(string) (ingest.SensorConfig, error) {
+			return ingest.SensorConfig{Windows: []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}, {Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}}}, nil
+		},
+	})
+	if err != nil {
+		b.Fatal(err)
+	}
+	runCtx, cancel := context.WithCancel(ctx)
+	done := make(chan error, 1)
+	measure(func() {
+		go func() { done <- svc.Run(runCtx) }()
+		want := uint64(msgs * per)
+		waitFor(b, "readings applied", func() bool { return svc.Stats().Applied >= want })
+	})
+	cancel()
+	if err := <-done; err != nil {
+		b.Fatal(err)
+	}
+	if st := svc.Stats(); st.Rejected != 0 {
+		b.Fatalf("%d readings rejected", st.Rejected)
 	}
 }
