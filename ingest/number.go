@@ -80,6 +80,11 @@ func parseFloatFast(b []byte) (float64, bool) {
 	if !ok {
 		return 0, false
 	}
+	return decimalFloat(neg, mant, nFrac), true
+}
+
+// decimalFloat returns ±mant/10^nFrac correctly rounded, for nFrac ≤ 19.
+func decimalFloat(neg bool, mant uint64, nFrac int) float64 {
 	var f float64
 	if mant <= 1<<53 {
 		f = float64(mant) / float64pow10[nFrac]
@@ -89,7 +94,7 @@ func parseFloatFast(b []byte) (float64, bool) {
 	if neg {
 		f = -f
 	}
-	return f, true
+	return f
 }
 
 // pow10u64 holds 10^0 through 10^19, every power of ten below 2^64.

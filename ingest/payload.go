@@ -102,7 +102,25 @@ type Decoder struct {
 
 	// The elements of the last t, v and ref arrays of the top-level
 	// object, listed while it is validated so a batch is scanned once.
-	cols [3][]span
+	cols [3]column
+}
+
+// column lists the elements of one array of a batch.
+type column struct {
+	spans []span
+	decs  []decimal // decs[i] is the number spans[i] holds, if ok
+}
+
+// decimal is a JSON number of the form [-]digits[.digits] with at most
+// 19 digits, read while the scanner validated it: its digits as one
+// integer and the count after the point. ok is false for a number of
+// any other form (and for every other value), which is then parsed from
+// its text.
+type decimal struct {
+	mant    uint64
+	nFrac   int8
+	nDigits int8
+	neg, ok bool
 }
 
 // Indexes into Decoder.cols.
@@ -232,7 +250,8 @@ func (d *Decoder) object(s *scanner, f *fields) []byte {
 		s.failShape(f.ref.start, "ref of a batch must be an array")
 		return nil
 	}
-	ts, vs, rs := d.cols[colT], d.cols[colV], d.cols[colRef]
+	tc, vc, rc := &d.cols[colT], &d.cols[colV], &d.cols[colRef]
+	ts, vs, rs := tc.spans, vc.spans, rc.spans
 	if len(ts) != len(vs) || hasRef && len(rs) != len(ts) {
 		msg := fmt.Errorf("%w: t has %d, v has %d", ErrLengthMismatch, len(ts), len(vs))
 		if hasRef {
@@ -241,7 +260,39 @@ func (d *Decoder) object(s *scanner, f *fields) []byte {
 		s.err, s.errPos, s.errReason = msg, f.t.start, ReasonLengthMismatch
 		return nil
 	}
+	// The common batch, numbers of a plain shape and a string unit or
+	// none, is converted from what the scan read; anything else goes
+	// through reading, which parses the text and reports problems.
+	var unit []byte
+	fast := true
+	switch f.unit.kind {
+	case 0, 'n':
+	case '"':
+		d.unitSpan, d.unit = f.unit, d.str(s.data, f.unit)
+		unit = d.unit
+	default:
+		fast = false
+	}
 	for idx := range ts {
+		if fast {
+			t, v := &tc.decs[idx], &vc.decs[idx]
+			var out Decoded
+			ok := t.ok && v.ok && t.nDigits <= 18
+			if ok {
+				out.UnixNano, ok = decimalUnixNano(t.neg, t.mant, int(t.nFrac))
+			}
+			if ok && hasRef && rs[idx].kind != 'n' {
+				r := &rc.decs[idx]
+				ok = r.ok
+				out.Ref, out.HasRef = decimalFloat(r.neg, r.mant, int(r.nFrac)), true
+			}
+			if ok {
+				out.Value = decimalFloat(v.neg, v.mant, int(v.nFrac))
+				out.Unit = unit
+				d.readings = append(d.readings, out)
+				continue
+			}
+		}
 		g := fields{t: ts[idx], v: vs[idx], unit: f.unit}
 		if hasRef {
 			g.ref = rs[idx]
@@ -404,6 +455,7 @@ type scanner struct {
 	err       error
 	errPos    int
 	errReason Reason
+	dec       decimal // the last number scanned
 }
 
 func (s *scanner) bad() bool { return s.err != nil }
@@ -540,37 +592,44 @@ func (s *scanner) str() (esc bool) {
 	return
 }
 
-// num scans -?(0|[1-9][0-9]*)(\.[0-9]+)?([eE][+-]?[0-9]+)?
+// num scans -?(0|[1-9][0-9]*)(\.[0-9]+)?([eE][+-]?[0-9]+)? and leaves
+// what it read in s.dec.
 func (s *scanner) num() {
 	data, i := s.data, s.pos
-	if data[i] == '-' {
+	var mant uint64
+	neg := data[i] == '-'
+	if neg {
 		i++
 	}
+	start := i
 	switch {
 	case i < len(data) && data[i] == '0':
 		i++
 	case i < len(data) && data[i] >= '1' && data[i] <= '9':
-		for i < len(data) && data[i] >= '0' && data[i] <= '9' {
-			i++
+		for ; i < len(data) && data[i] >= '0' && data[i] <= '9'; i++ {
+			mant = mant*10 + uint64(data[i]-'0')
 		}
 	default:
 		s.pos = i
 		s.fail("malformed number")
 		return
 	}
+	nInt, nFrac := i-start, 0
 	if i < len(data) && data[i] == '.' {
 		i++
-		start := i
-		for i < len(data) && data[i] >= '0' && data[i] <= '9' {
-			i++
+		fs := i
+		for ; i < len(data) && data[i] >= '0' && data[i] <= '9'; i++ {
+			mant = mant*10 + uint64(data[i]-'0')
 		}
-		if i == start {
+		if nFrac = i - fs; nFrac == 0 {
 			s.pos = i
 			s.fail("malformed number")
 			return
 		}
 	}
+	plain := true
 	if i < len(data) && (data[i] == 'e' || data[i] == 'E') {
+		plain = false
 		i++
 		if i < len(data) && (data[i] == '+' || data[i] == '-') {
 			i++
@@ -586,6 +645,10 @@ func (s *scanner) num() {
 		}
 	}
 	s.pos = i
+	// Past 19 digits mant wrapped: such numbers are parsed from the text.
+	if n := nInt + nFrac; plain && n <= 19 {
+		s.dec = decimal{mant: mant, nFrac: int8(nFrac), nDigits: int8(n), neg: neg, ok: true}
+	}
 }
 
 // object scans an object at its '{'. With f non-nil it records the values
@@ -671,21 +734,21 @@ func (s *scanner) object(f *fields, d *Decoder, depth int) {
 }
 
 // listing scans one value like value and, when it is an array, lists
-// its elements in *elems.
-func (s *scanner) listing(depth int, elems *[]span) span {
+// its elements in col.
+func (s *scanner) listing(depth int, col *column) span {
 	s.ws()
 	if s.peek() != '[' {
 		return s.value(depth)
 	}
 	start := s.pos
-	*elems = (*elems)[:0]
-	s.array(depth+1, elems)
+	col.spans, col.decs = col.spans[:0], col.decs[:0]
+	s.array(depth+1, col)
 	return span{start, s.pos, '[', false}
 }
 
-// array scans an array at its '['; with elems non-nil it appends the
-// span of every element.
-func (s *scanner) array(depth int, elems *[]span) {
+// array scans an array at its '['; with col non-nil it lists every
+// element in col.
+func (s *scanner) array(depth int, col *column) {
 	if depth > maxDepth {
 		s.failShape(s.pos, "nested too deep")
 		return
@@ -697,12 +760,14 @@ func (s *scanner) array(depth int, elems *[]span) {
 		return
 	}
 	for {
+		s.dec = decimal{}
 		v := s.value(depth)
 		if s.bad() {
 			return
 		}
-		if elems != nil {
-			*elems = append(*elems, v)
+		if col != nil {
+			col.spans = append(col.spans, v)
+			col.decs = append(col.decs, s.dec)
 		}
 		s.ws()
 		switch s.peek() {

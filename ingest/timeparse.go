@@ -308,7 +308,16 @@ func parseUnixSeconds(b []byte) (int64, error) {
 // for anything else, including every error, and the general parser decides.
 func parseUnixSecondsFast(b []byte) (int64, bool) {
 	neg, mant, nFrac, ok := scanDecimal(b, 18)
-	if !ok || nFrac > 9 {
+	if !ok {
+		return 0, false
+	}
+	return decimalUnixNano(neg, mant, nFrac)
+}
+
+// decimalUnixNano returns ±mant/10^nFrac seconds in ns, for mant < 10^18;
+// false when nFrac > 9 or the result leaves the int64 range.
+func decimalUnixNano(neg bool, mant uint64, nFrac int) (int64, bool) {
+	if nFrac > 9 {
 		return 0, false
 	}
 	// mant < 10^18 and nFrac <= 9, so mant * 10^(9-nFrac) < 2^63 only
