@@ -242,6 +242,7 @@ func (s *Service) drain(in chan message, max int) {
 // restore rebuilds the stored sensors and hands them to their workers.
 func (s *Service) restore() error {
 	units := map[string]string{}
+	var mu sync.Mutex // Restore makes sensors on several goroutines
 	t0 := time.Now()
 	var dropped int
 	err := s.o.DB.Restore(func(id string) (*rolling.Sensor, error) {
@@ -250,7 +251,9 @@ func (s *Service) restore() error {
 			s.log.Warn().Str("sensor", id).Err(err).Msg("stored sensor has no configuration; left out")
 			return nil, nil
 		}
+		mu.Lock()
 		units[id] = cfg.Unit
+		mu.Unlock()
 		return rolling.NewSensor(cfg.Windows...)
 	}, func(r store.Restored) error {
 		if r.Changed {

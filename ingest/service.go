@@ -51,7 +51,9 @@ type Options struct {
 	// position. Required.
 	DB *store.DB
 	// Sensor returns the configuration of a sensor id, or an error for an
-	// id that has none (its readings are then rejected). Required.
+	// id that has none (its readings are then rejected). Required. The
+	// restore calls it from several goroutines at once: it must be safe
+	// for concurrent use.
 	Sensor func(id string) (SensorConfig, error)
 
 	// Mode defaults to ModeStream.

@@ -4,6 +4,8 @@ import (
 	"bytes"
 	"errors"
 	"fmt"
+	"runtime"
+	"sync"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -37,86 +39,165 @@ type Restored struct {
 // panes are deleted in one transaction, and the sensors are handed to fn
 // only after that succeeded; fn may use the DB.
 //
+// Large files are read by several goroutines at once, each a range of
+// sensors in its own read transaction: a restart is mostly the first
+// touch of the memory of every window and of the mapped file, which two
+// cores do in less time than one. newSensor must therefore be safe for
+// concurrent use; fn is called from the caller's goroutine.
+//
 // An error from newSensor or fn stops the restore and is returned
 // wrapped with the sensor id; so is a pane that does not decode
 // (wrapping rolling.ErrBadPane): a restore never skips stored state it
 // cannot read.
 func (db *DB) Restore(newSensor func(id string) (*rolling.Sensor, error), fn func(Restored) error) error {
-	var out []Restored
-	var cleanup Batch
-	err := db.bolt.View(func(tx *bolt.Tx) error {
-		sensors, panes := tx.Bucket(bucketSensors), tx.Bucket(bucketPanes)
-		if sensors == nil || panes == nil {
-			return nil
-		}
-		pc := panes.Cursor()
-		var loaded []rolling.PaneKey
-		return sensors.ForEach(func(k, v []byte) error {
-			id := string(k)
-			saved, err := decodeSpecs(v)
-			if err != nil {
-				return fmt.Errorf("sensor %s: %w", id, err)
-			}
-			s, err := newSensor(id)
-			if err != nil {
-				return fmt.Errorf("sensor %s: %w", id, err)
-			}
-			if s == nil {
-				return nil
-			}
-			r := Restored{ID: id, Sensor: s, Saved: saved, Changed: s.Windows() != len(saved)}
-			for i := 0; i < s.Windows() && !r.Changed; i++ {
-				r.Changed = s.Spec(i) != saved[i]
-			}
-			prefix := appendIDPrefix(nil, id)
-			loaded = loaded[:0]
-			for pk, pv := pc.Seek(prefix); pk != nil && bytes.HasPrefix(pk, prefix); pk, pv = pc.Next() {
-				_, key, err := splitPaneKey(pk)
-				if err != nil {
-					return fmt.Errorf("sensor %s: %w", id, err)
-				}
-				switch err := s.LoadPane(key, pv); {
-				case err == nil:
-					loaded = append(loaded, key)
-				case errors.Is(err, rolling.ErrTooOld) || errors.Is(err, rolling.ErrBadSpec):
-					r.Dropped++
-					cleanup.addDelete(pk)
-				default:
-					return fmt.Errorf("sensor %s pane %v/%d: %w", id, key.Width, key.Index, err)
-				}
-			}
-			// Loading a newer pane slides the older ones out of the ring, so
-			// panes loaded in key order may since have left every window.
-			r.Panes = len(loaded)
-			s.Horizon(func(width time.Duration, oldest int64) {
-				stale := 0
-				for _, key := range loaded {
-					if key.Width == width && key.Index < oldest {
-						stale++
-					}
-				}
-				if stale > 0 {
-					r.Panes -= stale
-					r.Dropped += stale
-					cleanup.addHorizon(id, width, oldest)
-				}
-			})
-			out = append(out, r)
-			return nil
-		})
-	})
+	bounds, err := db.restoreBounds(runtime.GOMAXPROCS(0))
 	if err != nil {
 		return fmt.Errorf("store: restore: %w", err)
 	}
-	if cleanup.Len() > 0 && !db.bolt.IsReadOnly() {
-		if _, err := db.Commit(&cleanup); err != nil {
+	shards := make([]restoreShard, len(bounds)+1)
+	var wg sync.WaitGroup
+	for i := range shards {
+		var lo, hi []byte
+		if i > 0 {
+			lo = bounds[i-1]
+		}
+		if i < len(bounds) {
+			hi = bounds[i]
+		}
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			sh := &shards[i]
+			sh.err = db.bolt.View(func(tx *bolt.Tx) error { return sh.load(tx, lo, hi, newSensor) })
+		}()
+	}
+	wg.Wait()
+	cleanup := make([]*Batch, 0, len(shards))
+	for i := range shards {
+		if err := shards[i].err; err != nil {
+			return fmt.Errorf("store: restore: %w", err)
+		}
+		if shards[i].cleanup.Len() > 0 {
+			cleanup = append(cleanup, &shards[i].cleanup)
+		}
+	}
+	if len(cleanup) > 0 && !db.bolt.IsReadOnly() {
+		if _, err := db.Commit(cleanup...); err != nil {
 			return fmt.Errorf("store: restore: delete dropped panes: %w", err)
 		}
 	}
-	for _, r := range out {
-		if err := fn(r); err != nil {
-			return fmt.Errorf("store: restore sensor %s: %w", r.ID, err)
+	for i := range shards {
+		for _, r := range shards[i].out {
+			if err := fn(r); err != nil {
+				return fmt.Errorf("store: restore sensor %s: %w", r.ID, err)
+			}
 		}
+	}
+	return nil
+}
+
+// restoreShardMin is the fewest sensors worth a goroutine of their own.
+const restoreShardMin = 5000
+
+// restoreBounds splits the stored sensors into at most n ranges of about
+// equal count and returns the first id of each range after the first.
+func (db *DB) restoreBounds(n int) (bounds [][]byte, err error) {
+	err = db.bolt.View(func(tx *bolt.Tx) error {
+		sensors := tx.Bucket(bucketSensors)
+		if sensors == nil {
+			return nil
+		}
+		c := sensors.Cursor()
+		count := 0
+		for k, _ := c.First(); k != nil; k, _ = c.Next() {
+			count++
+		}
+		n = min(n, count/restoreShardMin)
+		if n < 2 {
+			return nil
+		}
+		i, per := 0, count/n
+		for k, _ := c.First(); k != nil && len(bounds) < n-1; k, _ = c.Next() {
+			if i > 0 && i%per == 0 {
+				bounds = append(bounds, bytes.Clone(k))
+			}
+			i++
+		}
+		return nil
+	})
+	return bounds, err
+}
+
+// restoreShard is one range of sensors rebuilt by one goroutine.
+type restoreShard struct {
+	out     []Restored
+	cleanup Batch
+	err     error
+}
+
+// load rebuilds the sensors with ids in [lo, hi); nil bounds are open.
+func (sh *restoreShard) load(tx *bolt.Tx, lo, hi []byte, newSensor func(id string) (*rolling.Sensor, error)) error {
+	sensors, panes := tx.Bucket(bucketSensors), tx.Bucket(bucketPanes)
+	if sensors == nil || panes == nil {
+		return nil
+	}
+	sc, pc := sensors.Cursor(), panes.Cursor()
+	var loaded []rolling.PaneKey
+	k, v := sc.First()
+	if lo != nil {
+		k, v = sc.Seek(lo)
+	}
+	for ; k != nil && (hi == nil || bytes.Compare(k, hi) < 0); k, v = sc.Next() {
+		id := string(k)
+		saved, err := decodeSpecs(v)
+		if err != nil {
+			return fmt.Errorf("sensor %s: %w", id, err)
+		}
+		s, err := newSensor(id)
+		if err != nil {
+			return fmt.Errorf("sensor %s: %w", id, err)
+		}
+		if s == nil {
+			continue
+		}
+		r := Restored{ID: id, Sensor: s, Saved: saved, Changed: s.Windows() != len(saved)}
+		for i := 0; i < s.Windows() && !r.Changed; i++ {
+			r.Changed = s.Spec(i) != saved[i]
+		}
+		prefix := appendIDPrefix(nil, id)
+		loaded = loaded[:0]
+		for pk, pv := pc.Seek(prefix); pk != nil && bytes.HasPrefix(pk, prefix); pk, pv = pc.Next() {
+			_, key, err := splitPaneKey(pk)
+			if err != nil {
+				return fmt.Errorf("sensor %s: %w", id, err)
+			}
+			switch err := s.LoadPane(key, pv); {
+			case err == nil:
+				loaded = append(loaded, key)
+			case errors.Is(err, rolling.ErrTooOld) || errors.Is(err, rolling.ErrBadSpec):
+				r.Dropped++
+				sh.cleanup.addDelete(pk)
+			default:
+				return fmt.Errorf("sensor %s pane %v/%d: %w", id, key.Width, key.Index, err)
+			}
+		}
+		// Loading a newer pane slides the older ones out of the ring, so
+		// panes loaded in key order may since have left every window.
+		r.Panes = len(loaded)
+		s.Horizon(func(width time.Duration, oldest int64) {
+			stale := 0
+			for _, key := range loaded {
+				if key.Width == width && key.Index < oldest {
+					stale++
+				}
+			}
+			if stale > 0 {
+				r.Panes -= stale
+				r.Dropped += stale
+				sh.cleanup.addHorizon(id, width, oldest)
+			}
+		})
+		sh.out = append(sh.out, r)
 	}
 	return nil
 }

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"slices"
 	"testing"
 	"time"
@@ -396,5 +397,68 @@ func TestRestore_SkipAndErrors(t *testing.T) {
 		func(store.Restored) error { return boom })
 	if !errors.Is(err, boom) {
 		t.Errorf("Restore with failing fn: %v, want it to wrap boom", err)
+	}
+}
+
+// TestRestore_Shards restores a file large enough to be read by several
+// goroutines, with fewer windows than it was written with: every sensor
+// comes back in id order with the fits of the live sensor, and the panes
+// of the dropped width are deleted from every range.
+func TestRestore_Shards(t *testing.T) {
+	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(max(4, runtime.GOMAXPROCS(0))))
+	const n = 12000
+	db := openDB(t, tempPath(t))
+	clock := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC).UnixNano()
+	live := map[string]*rolling.Sensor{}
+	var batch store.Batch
+	for i := range n {
+		id := fmt.Sprintf("plant-east.%05d", (i*7919)%n) // written out of id order
+		s, err := rolling.NewSensor(defaultSpecs...)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for h := range 30 {
+			if err := s.Add(rolling.Reading{UnixNano: clock + int64(h)*int64(hour), Value: float64(i%97) + 0.1*float64(h)}); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if err := batch.Sensor(id, s); err != nil {
+			t.Fatal(err)
+		}
+		live[id] = s
+		if i%2000 == 1999 {
+			if _, err := db.Commit(&batch); err != nil {
+				t.Fatal(err)
+			}
+		}
+	}
+	hourly := defaultSpecs[:1]
+	var order []string
+	dropped := 0
+	err := db.Restore(func(string) (*rolling.Sensor, error) { return rolling.NewSensor(hourly...) },
+		func(r store.Restored) error {
+			order = append(order, r.ID)
+			dropped += r.Dropped
+			a, b := live[r.ID].Solve(0), r.Sensor.Solve(0)
+			if d := diffSolution(&a, &b); d != "" {
+				t.Errorf("%s: restored fit differs: %s", r.ID, d)
+			}
+			return nil
+		})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(order) != n || !slices.IsSorted(order) {
+		t.Fatalf("restored %d sensors, sorted %v; want %d in id order", len(order), slices.IsSorted(order), n)
+	}
+	// 30 hourly readings from midnight touch two daily panes.
+	if dropped != 2*n {
+		t.Errorf("dropped %d panes, want %d (two daily panes a sensor)", dropped, 2*n)
+	}
+	got := restoreAll(t, db, hourly)
+	for id, r := range got {
+		if r.Dropped != 0 {
+			t.Fatalf("%s: %d panes dropped again: the first restore did not delete them", id, r.Dropped)
+		}
 	}
 }
