@@ -10,9 +10,13 @@ type ring struct {
 	invW   float64 // 1/w
 	newest int64   // index of the newest pane seen; valid when started
 	start  bool
-	panes  []pane
-	side   []posMoments // nil until a pane becomes mixed
-	dirty  []uint64     // bit per slot: changed since the last MarkSaved
+	// savedStart and savedNewest are start and newest at the last
+	// MarkSaved: the horizon has moved since when they differ.
+	savedStart  bool
+	savedNewest int64
+	panes       []pane
+	side        []posMoments // nil until a pane becomes mixed
+	dirty       []uint64     // bit per slot: changed since the last MarkSaved
 	// minPanes is the pane count of the ring's shortest window: a reading
 	// at least that many panes behind the newest is late for some window.
 	minPanes int64

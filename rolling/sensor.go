@@ -41,6 +41,7 @@ type window struct {
 type Sensor struct {
 	rings []ring
 	wins  []window
+	saved bool // MarkSaved was called
 }
 
 // NewSensor returns a sensor with the given windows, in that order; the

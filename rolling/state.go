@@ -53,22 +53,42 @@ func (s *Sensor) Changed(fn func(PaneKey)) {
 	}
 }
 
-// MarkSaved clears the record of changed panes.
+// MarkSaved clears the record of changed panes and notes the horizons
+// and that the sensor, with its window specs, was saved.
 func (s *Sensor) MarkSaved() {
 	for j := range s.rings {
-		clear(s.rings[j].dirty)
+		rg := &s.rings[j]
+		clear(rg.dirty)
+		rg.savedStart, rg.savedNewest = rg.start, rg.newest
 	}
+	s.saved = true
 }
+
+// Saved reports whether MarkSaved was called since the sensor was made:
+// a store need not write its window specs again.
+func (s *Sensor) Saved() bool { return s.saved }
 
 // Horizon calls fn with each pane width of the sensor and the index of
 // the oldest pane still held: stored panes of that width with a lower
 // index are gone from every window and may be deleted.
 func (s *Sensor) Horizon(fn func(width time.Duration, oldest int64)) {
+	s.horizon(false, fn)
+}
+
+// HorizonMoved is Horizon for the widths whose oldest pane index moved
+// since the last MarkSaved (all of them before the first): only there
+// can stored panes have fallen out of every window since.
+func (s *Sensor) HorizonMoved(fn func(width time.Duration, oldest int64)) {
+	s.horizon(true, fn)
+}
+
+func (s *Sensor) horizon(moved bool, fn func(width time.Duration, oldest int64)) {
 	for j := range s.rings {
 		rg := &s.rings[j]
-		if rg.start {
-			fn(time.Duration(rg.width), rg.newest-int64(len(rg.panes))+1)
+		if !rg.start || moved && rg.savedStart && rg.savedNewest == rg.newest {
+			continue
 		}
+		fn(time.Duration(rg.width), rg.newest-int64(len(rg.panes))+1)
 	}
 }
 

@@ -2,6 +2,7 @@ package rolling_test
 
 import (
 	"errors"
+	"maps"
 	"math"
 	"math/rand/v2"
 	"slices"
@@ -189,5 +190,56 @@ func TestSensor_Closes(t *testing.T) {
 		if got := s.Closes(tc.at); got != tc.want {
 			t.Errorf("Closes(+%v) = %b, want %b", time.Duration(tc.at-t2026), got, tc.want)
 		}
+	}
+}
+
+// TestSensor_HorizonMoved checks what a store needs to skip work on a
+// commit: Saved only after MarkSaved, and HorizonMoved reports a width
+// (with Horizon's index) only while its newest pane differs from the
+// one at the last MarkSaved.
+func TestSensor_HorizonMoved(t *testing.T) {
+	s := newSensor(t, defaultSpecs...)
+	moved := func() map[time.Duration]int64 {
+		got := map[time.Duration]int64{}
+		s.HorizonMoved(func(w time.Duration, oldest int64) { got[w] = oldest })
+		return got
+	}
+	all := func() map[time.Duration]int64 {
+		got := map[time.Duration]int64{}
+		s.Horizon(func(w time.Duration, oldest int64) { got[w] = oldest })
+		return got
+	}
+	add := func(at int64) {
+		t.Helper()
+		if err := s.Add(rolling.Reading{UnixNano: at, Value: 1}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if s.Saved() || len(moved()) != 0 {
+		t.Fatalf("new sensor: Saved %v, HorizonMoved %v; want false, none (no pane yet)", s.Saved(), moved())
+	}
+	h := int64(time.Hour)
+	base := t2026 - t2026%(24*h) // midnight
+	add(base)
+	if got, want := moved(), all(); len(want) != 2 || !maps.Equal(got, want) {
+		t.Fatalf("before the first MarkSaved: HorizonMoved %v, Horizon %v; want both widths", got, want)
+	}
+	s.MarkSaved()
+	if !s.Saved() || len(moved()) != 0 {
+		t.Fatalf("after MarkSaved: Saved %v, HorizonMoved %v; want true, none", s.Saved(), moved())
+	}
+	add(base + h/2) // same hourly and daily pane
+	if len(moved()) != 0 {
+		t.Fatalf("a reading in the newest panes moved %v", moved())
+	}
+	add(base + h) // next hour, same day
+	got := moved()
+	if len(got) != 1 || got[time.Hour] != all()[time.Hour] {
+		t.Fatalf("next hour: HorizonMoved %v, Horizon %v; want the hourly width alone", got, all())
+	}
+	s.MarkSaved()
+	add(base + 24*h) // next day: both move
+	if got, want := moved(), all(); !maps.Equal(got, want) || len(got) != 2 {
+		t.Fatalf("next day: HorizonMoved %v, want %v", got, want)
 	}
 }

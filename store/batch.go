@@ -52,9 +52,10 @@ type Batch struct {
 }
 
 // Sensor snapshots the panes of s changed since the last snapshot, the
-// window specs of s and the horizon of each pane width (stored panes
-// older than every window get deleted on commit), then calls
-// s.MarkSaved.
+// window specs of s unless it was saved before (s.Saved), and the
+// horizon of each pane width that moved since (stored panes older than
+// every window get deleted on commit), then calls s.MarkSaved. A commit
+// thus writes what changed, whatever the size of the fleet.
 //
 // The snapshot, not the sensor, is what a commit writes, and marking the
 // sensor saved at the snapshot is what keeps readings from being lost: a
@@ -68,16 +69,22 @@ func (b *Batch) Sensor(id string, s *rolling.Sensor) error {
 	if err := checkID(id); err != nil {
 		return err
 	}
-	o := op{kind: opSpecs, key: b.appendKey(func(dst []byte) []byte { return append(dst, id...) })}
-	o.val = b.appendKey(func(dst []byte) []byte { return appendSpecs(dst, s.Windows(), s.Spec) })
-	b.ops = append(b.ops, o)
+	// A sensor saved before has its specs in the file (or in the batch
+	// of a commit still to come), and stored panes can have left its
+	// windows only where its horizon moved: the rest would be a lookup
+	// per sensor and commit that changes nothing.
+	if !s.Saved() {
+		o := op{kind: opSpecs, key: b.appendKey(func(dst []byte) []byte { return append(dst, id...) })}
+		o.val = b.appendKey(func(dst []byte) []byte { return appendSpecs(dst, s.Windows(), s.Spec) })
+		b.ops = append(b.ops, o)
+	}
 	s.Changed(func(k rolling.PaneKey) {
 		key := b.appendKey(func(dst []byte) []byte { return appendPaneKey(dst, id, k) })
 		start := len(b.buf)
 		b.buf = s.AppendPane(b.buf, k)
 		b.ops = append(b.ops, op{kind: opPane, key: key, val: span{start, len(b.buf) - start}})
 	})
-	s.Horizon(func(width time.Duration, oldest int64) {
+	s.HorizonMoved(func(width time.Duration, oldest int64) {
 		b.addHorizon(id, width, oldest)
 	})
 	s.MarkSaved()

@@ -37,7 +37,8 @@ type Restored struct {
 // sensor out: its data stays in the file), Restore loads the stored panes
 // into it with LoadPane, then calls fn. After the last sensor, dropped
 // panes are deleted in one transaction, and the sensors are handed to fn
-// only after that succeeded; fn may use the DB.
+// only after that succeeded; fn may use the DB. A sensor whose windows
+// are unchanged comes back marked saved (rolling.Sensor.MarkSaved).
 //
 // Large files are read by several goroutines at once, each a range of
 // sensors in its own read transaction: a restart is mostly the first
@@ -197,6 +198,9 @@ func (sh *restoreShard) load(tx *bolt.Tx, lo, hi []byte, newSensor func(id strin
 				sh.cleanup.addHorizon(id, width, oldest)
 			}
 		})
+		if !r.Changed {
+			s.MarkSaved() // the file holds its specs and, after cleanup, its horizon
+		}
 		sh.out = append(sh.out, r)
 	}
 	return nil
