@@ -121,10 +121,10 @@ type TLS struct {
 type Store struct {
 	// Dir is the data directory. Default "./data".
 	Dir string
-	// CommitInterval is the longest time between commits. Default 200ms.
+	// CommitInterval is the longest time between commits. Default 1s.
 	CommitInterval time.Duration
 	// CommitReadings commits early after this many applied readings.
-	// Default 10000.
+	// Default 100000.
 	CommitReadings int
 	// HistoryRetention is how long fit history is kept. Default 400d
 	// (more than a year, so a yearly calibration cycle can be compared with

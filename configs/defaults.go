@@ -14,8 +14,8 @@ const (
 	maxMaxPayloadBytes              = 64 << 20
 	defaultFutureSkew               = 5 * time.Minute
 	defaultStoreDir                 = "./data"
-	defaultCommitInterval           = 200 * time.Millisecond
-	defaultCommitReadings           = 10000
+	defaultCommitInterval           = time.Second
+	defaultCommitReadings           = 100000
 	defaultHistoryRetention         = 400 * Day
 	defaultHTTPAddr                 = "127.0.0.1:9464"
 	defaultMinReadings              = 30

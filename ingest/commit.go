@@ -46,7 +46,7 @@ func (s *Service) commit() {
 		req.pos, req.ack = s.lastSeq, s.lastMsg
 	}
 	s.commits <- req
-	s.commitBase, s.dirty = s.applied.Load(), false
+	s.commitBase, s.sinceAck, s.dirty = s.applied.Load(), 0, false
 }
 
 // committerFree reports whether a commit can be queued without waiting.

@@ -31,10 +31,14 @@ const (
 // keeps every worker busy; a worker holds at most workQueueLen ×
 // jobsPerBatch payloads in flight (about 50 MB of 3 KB batches).
 const (
-	inboxLen      = 4096 // messages between the bus callback and the dispatcher
-	drainMax      = 1024 // messages the dispatcher takes before flushing to workers
-	jobsPerBatch  = 256  // jobs in one hand-off to a worker
-	workQueueLen  = 64   // hand-offs queued per worker
+	inboxLen     = 4096 // messages between the bus callback and the dispatcher
+	drainMax     = 1024 // messages the dispatcher takes before flushing to workers
+	jobsPerBatch = 256  // jobs in one hand-off to a worker
+	workQueueLen = 64   // hand-offs queued per worker
+	// maxAckPending is the consumer's limit of messages delivered and
+	// not acknowledged; acknowledgements follow commits, and a commit
+	// starts early once half of it is taken (see Run). Far larger limits
+	// made the server's bookkeeping of pending messages slow restarts.
 	maxAckPending = 1 << 16
 )
 
@@ -86,6 +90,7 @@ type Service struct {
 	lastMsg    jetstream.Msg
 	lastSeq    uint64
 	commitBase uint64 // applied at the last commit
+	sinceAck   int    // stream messages taken since the last commit
 	dirty      bool
 
 	commits chan commitReq
@@ -180,7 +185,8 @@ loop:
 		case m := <-in:
 			s.handle(m)
 			s.drain(in, drainMax-1)
-			if s.applied.Load()-s.commitBase >= uint64(s.o.CommitReadings) && s.committerFree() {
+			early := s.applied.Load()-s.commitBase >= uint64(s.o.CommitReadings) || s.sinceAck >= maxAckPending/2
+			if early && s.committerFree() {
 				s.commit()
 			}
 		case <-tick.C:
@@ -426,6 +432,7 @@ func (s *Service) handle(m message) {
 			return // a redelivery of a message already applied
 		}
 		s.lastSeq, s.lastMsg = m.seq, m.js
+		s.sinceAck++
 		s.dirty = true
 		if mt := s.o.Metrics; mt != nil {
 			mt.StreamLag.Set(float64(m.pending))

@@ -55,15 +55,15 @@ func TestBench_SmallRun(t *testing.T) {
 			t.Errorf("%s: %d readings is not a whole count of %d-reading messages", c.Case, c.Readings, c.PerMessage)
 		}
 	}
-	for _, want := range []string{"direct 1/msg", "direct 1/msg tuned", "direct 100/msg", "stream 100/msg"} {
+	for _, want := range []string{"direct 1/msg", "direct 1/msg frequent", "direct 100/msg", "stream 100/msg"} {
 		if !cases[want] {
 			t.Errorf("case %q missing from %v", want, cases)
 		}
 	}
-	// The tuned case repeats direct 1/msg with other commit settings
+	// The frequent case repeats direct 1/msg with other commit settings
 	// against the same baseline.
-	if d, tu := rep.Throughput[0], rep.Throughput[1]; tu.BaselinePerSec != d.BaselinePerSec || tu.Commit == d.Commit {
-		t.Errorf("tuned case %+v against %+v: want the same baseline and other commit settings", tu, d)
+	if d, fr := rep.Throughput[0], rep.Throughput[1]; fr.BaselinePerSec != d.BaselinePerSec || fr.Commit == d.Commit {
+		t.Errorf("frequent case %+v against %+v: want the same baseline and other commit settings", fr, d)
 	}
 	if l := rep.Latency; l.Samples == 0 || !(l.P50Ms <= l.P99Ms && l.P99Ms <= l.MaxMs) || l.P50Ms <= 0 {
 		t.Errorf("latency %+v: want samples and 0 < p50 <= p99 <= max", l)
