@@ -265,3 +265,67 @@ func TestOpen_EmptyBoltFile(t *testing.T) {
 		t.Errorf("Position() = %d, %v", pos, err)
 	}
 }
+
+// TestCommit_KeyOrderKeepsLastWrite commits, across two batches, a pane
+// and a fit record each written twice with different contents, in an
+// order unlike key order: what the file holds afterwards is the last
+// write of each, as in batch order.
+func TestCommit_KeyOrderKeepsLastWrite(t *testing.T) {
+	db := openDB(t, tempPath(t))
+	t0 := time.Date(2031, 5, 1, 0, 0, 0, 0, time.UTC).UnixNano()
+	specs := []rolling.WindowSpec{{Span: day, Pane: hour}}
+	var a, b store.Batch
+	sensors := map[string]*rolling.Sensor{}
+	var want []rolling.Solution
+	for i, id := range []string{"zz.9", "aa.1", "mm.5"} {
+		s, err := rolling.NewSensor(specs...)
+		if err != nil {
+			t.Fatal(err)
+		}
+		sensors[id] = s
+		batch := &a
+		if i == 1 {
+			batch = &b
+		}
+		for round := range 2 {
+			for j := range 3 {
+				// Round 1 lands before round 0's readings in the same pane:
+				// the record's key (its newest time) stays, its n grows.
+				at := t0 + int64((1-round)*4+j)*int64(time.Minute)
+				if err := s.Add(rolling.Reading{UnixNano: at, Value: float64(i*10 + round*3 + j)}); err != nil {
+					t.Fatal(err)
+				}
+			}
+			if err := batch.Sensor(id, s); err != nil { // the same pane key again in round 1
+				t.Fatal(err)
+			}
+			sol := s.Solve(0)
+			if err := batch.Record(id, &sol); err != nil { // the same key in round 1
+				t.Fatal(err)
+			}
+			if round == 1 && id == "mm.5" {
+				want = append(want, sol)
+			}
+		}
+	}
+	if _, err := db.Commit(&a, &b); err != nil {
+		t.Fatal(err)
+	}
+	got := restoreAll(t, db, specs)
+	for id, s := range sensors {
+		x, y := s.Solve(0), got[id].Sensor.Solve(0)
+		if d := diffSolution(&x, &y); d != "" {
+			t.Errorf("%s: restored pane is not the last written: %s", id, d)
+		}
+	}
+	var read []rolling.Solution
+	if err := db.History("mm.5", rolling.WindowSpec{}, time.Time{}, time.Time{}, func(r store.HistoryRecord) error {
+		read = append(read, r.Solution)
+		return nil
+	}); err != nil {
+		t.Fatal(err)
+	}
+	if len(read) != 1 || diffSolution(&read[0], &want[0]) != "" {
+		t.Fatalf("history of mm.5: %d records, want the last of two writes of one key", len(read))
+	}
+}
