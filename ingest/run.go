@@ -51,8 +51,8 @@ type message struct {
 	js      jetstream.Msg // for the acknowledgement; nil in direct mode
 }
 
-// sensorRef routes one sensor. The dispatcher owns the map of refs and
-// reads id, worker and unit; st belongs to the worker alone.
+// sensorRef routes one sensor. The dispatcher owns the map of refs; id,
+// worker and unit never change once made; st belongs to the worker alone.
 type sensorRef struct {
 	id     string
 	worker int

@@ -36,6 +36,7 @@ type worker struct {
 	hist  []histEntry       // pane-close solutions since the last token
 	dec   Decoder
 	rs    []rolling.Reading // the accepted readings of one message
+	warm  uint64            // keeps Sensor.Warm's loads
 
 	applied uint64 // readings applied, ever; read at commit tokens
 }
@@ -78,6 +79,11 @@ func (w *worker) run() {
 		if b.restart != nil {
 			w.restart(b.restart)
 			continue
+		}
+		for i := range b.jobs {
+			if s := b.jobs[i].ref.st.sensor; s != nil {
+				w.warm += s.Warm()
+			}
 		}
 		limit := w.s.o.Now().Add(w.s.o.FutureSkew).UnixNano()
 		for i := range b.jobs {

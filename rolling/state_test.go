@@ -243,3 +243,26 @@ func TestSensor_HorizonMoved(t *testing.T) {
 		t.Fatalf("next day: HorizonMoved %v, want %v", got, want)
 	}
 }
+
+// TestSensor_WarmChangesNothing checks that Warm, a read for the caches'
+// sake, leaves a sensor as it was, fresh or holding panes.
+func TestSensor_WarmChangesNothing(t *testing.T) {
+	fresh, live := newSensor(t, defaultSpecs...), newSensor(t, defaultSpecs...)
+	fresh.Warm()
+	n := 0
+	fresh.Changed(func(rolling.PaneKey) { n++ })
+	if n != 0 || fresh.Saved() {
+		t.Fatalf("Warm on a fresh sensor: %d panes changed, saved %v", n, fresh.Saved())
+	}
+	twin := newSensor(t, defaultSpecs...)
+	for i := range 100 {
+		r := rolling.Reading{UnixNano: t2026 + int64(i)*int64(17*time.Minute), Value: 1 + float64(i%7)}
+		live.Warm()
+		for _, s := range []*rolling.Sensor{live, twin} {
+			if err := s.Add(r); err != nil {
+				t.Fatal(err)
+			}
+		}
+	}
+	sameSolutions(t, live, twin)
+}
