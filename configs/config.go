@@ -124,7 +124,7 @@ type Store struct {
 	// CommitInterval is the longest time between commits. Default 1s.
 	CommitInterval time.Duration
 	// CommitReadings commits early after this many applied readings.
-	// Default 100000.
+	// Default 1000000.
 	CommitReadings int
 	// HistoryRetention is how long fit history is kept. Default 400d
 	// (more than a year, so a yearly calibration cycle can be compared with

@@ -255,8 +255,8 @@ func TestParse_Defaults(t *testing.T) {
 			t.Errorf("default %s = %v, want %v", tc.name, tc.got, tc.want)
 		}
 	}
-	if c.Store.CommitReadings != 100000 || b.MaxPayloadBytes != 1<<20 || len(b.Servers) != 0 {
-		t.Errorf("commit_readings %d, max_payload_bytes %d, servers %v; want 100000, 1048576, none",
+	if c.Store.CommitReadings != 1000000 || b.MaxPayloadBytes != 1<<20 || len(b.Servers) != 0 {
+		t.Errorf("commit_readings %d, max_payload_bytes %d, servers %v; want 1000000, 1048576, none",
 			c.Store.CommitReadings, b.MaxPayloadBytes, b.Servers)
 	}
 	wantW := []configs.Window{{Span: 24 * time.Hour, Pane: time.Hour}, {Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}}

@@ -15,7 +15,7 @@ const (
 	defaultFutureSkew               = 5 * time.Minute
 	defaultStoreDir                 = "./data"
 	defaultCommitInterval           = time.Second
-	defaultCommitReadings           = 100000
+	defaultCommitReadings           = 1000000
 	defaultHistoryRetention         = 400 * Day
 	defaultHTTPAddr                 = "127.0.0.1:9464"
 	defaultMinReadings              = 30

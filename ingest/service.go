@@ -81,10 +81,13 @@ type Options struct {
 	// than the sensors report cost CPU for nothing. Default 1s.
 	CommitInterval time.Duration
 	// CommitReadings starts a commit early once this many readings were
-	// applied since the last one. Default 100,000. While the previous
-	// commit is still writing, readings keep being applied and go into
-	// the next commit, so a slow disk makes commits larger rather than
-	// stalling ingest.
+	// applied since the last one: it bounds the work a restart repeats
+	// when readings come faster than a million a second. Each commit
+	// ends with fsync; in stream mode with 100 readings a message, a
+	// commit every 100,000 readings cost a third of the throughput.
+	// Default 1,000,000. While the previous commit is still writing,
+	// readings keep being applied and go into the next commit, so a slow
+	// disk makes commits larger rather than stalling ingest.
 	CommitReadings int
 	// FutureSkew is how far a reading's time may lie ahead of Now.
 	// Default 5m.
@@ -141,7 +144,7 @@ func (o *Options) fill() error {
 		o.CommitInterval = time.Second
 	}
 	if o.CommitReadings <= 0 {
-		o.CommitReadings = 100000
+		o.CommitReadings = 1000000
 	}
 	if o.FutureSkew <= 0 {
 		o.FutureSkew = 5 * time.Minute
