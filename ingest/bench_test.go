@@ -11,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
@@ -28,33 +29,13 @@ import (
 func BenchmarkService_Direct(b *testing.B) {
 	for _, per := range []int{1, 100} {
 		b.Run("per_msg="+strconv.Itoa(per), func(b *testing.B) {
-			dir := b.TempDir()
-			ns := natsServer(b, filepath.Join(dir, "nats"), 0)
-			defer ns.Shutdown()
-			nc, err := nats.Connect(ns.ClientURL())
-			if err != nil {
-				b.Fatal(err)
-			}
-			defer nc.Close()
+			dir, ns, nc := benchBus(b)
 			pub, err := nats.Connect(ns.ClientURL())
 			if err != nil {
 				b.Fatal(err)
 			}
 			defer pub.Close()
-			db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{NoSync: true})
-			if err != nil {
-				b.Fatal(err)
-			}
-			defer db.Close()
-			svc, err := ingest.New(ingest.Options{
-				Conn: nc, DB: db, Mode: ingest.ModeDirect,
-				Sensor: func(string) (ingest.SensorConfig, error) {
-					return ingest.SensorConfig{Windows: []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}, {Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}}}, nil
-				},
-			})
-			if err != nil {
-				b.Fatal(err)
-			}
+			svc := benchService(b, nc, dir, ingest.ModeDirect)
 			ctx, cancel := context.WithCancel(context.Background())
 			done := make(chan error, 1)
 			go func() { done <- svc.Run(ctx) }()
@@ -111,6 +92,43 @@ func BenchmarkService_Direct(b *testing.B) {
 	}
 }
 
+// benchBus starts a NATS server with JetStream in a new temporary
+// directory and connects to it; both close with the benchmark.
+func benchBus(b *testing.B) (dir string, ns *server.Server, nc *nats.Conn) {
+	b.Helper()
+	dir = b.TempDir()
+	ns = natsServer(b, filepath.Join(dir, "nats"), 0)
+	b.Cleanup(ns.Shutdown)
+	nc, err := nats.Connect(ns.ClientURL())
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(nc.Close)
+	return dir, ns, nc
+}
+
+// benchService makes a service on nc in mode with a state file in dir
+// (fsync off, so the disk does not set the pace), for sensors with the
+// default windows (1d/1h and 30d/1d). The file closes with the benchmark.
+func benchService(b *testing.B, nc *nats.Conn, dir string, mode ingest.Mode) *ingest.Service {
+	b.Helper()
+	db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{NoSync: true})
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(func() { db.Close() })
+	svc, err := ingest.New(ingest.Options{
+		Conn: nc, DB: db, Mode: mode,
+		Sensor: func(string) (ingest.SensorConfig, error) {
+			return ingest.SensorConfig{Windows: []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}, {Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}}}, nil
+		},
+	})
+	if err != nil {
+		b.Fatal(err)
+	}
+	return svc
+}
+
 // BenchmarkService_Stream measures draining a JetStream stream that
 // already holds the readings, in 100-reading batches for 10,000 sensors,
 // values printed in full as a producer prints a float64. ack-only is the
@@ -127,14 +145,7 @@ func BenchmarkService_Stream(b *testing.B) {
 
 func benchStream(b *testing.B, service bool) {
 	const sensors, per = 10000, 100
-	dir := b.TempDir()
-	ns := natsServer(b, filepath.Join(dir, "nats"), 0)
-	defer ns.Shutdown()
-	nc, err := nats.Connect(ns.ClientURL())
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer nc.Close()
+	dir, _, nc := benchBus(b)
 	js, err := jetstream.New(nc, jetstream.WithPublishAsyncMaxPending(4096))
 	if err != nil {
 		b.Fatal(err)
@@ -194,20 +205,7 @@ func benchStream(b *testing.B, service bool) {
 		return
 	}
 
-	db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{NoSync: true})
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer db.Close()
-	svc, err := ingest.New(ingest.Options{
-		Conn: nc, DB: db, Mode: ingest.ModeStream,
-		Sensor: func(string) (ingest.SensorConfig, error) {
-			return ingest.SensorConfig{Windows: []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}, {Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}}}, nil
-		},
-	})
-	if err != nil {
-		b.Fatal(err)
-	}
+	svc := benchService(b, nc, dir, ingest.ModeStream)
 	runCtx, cancel := context.WithCancel(ctx)
 	done := make(chan error, 1)
 	measure(func() {
