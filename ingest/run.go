@@ -37,8 +37,9 @@ const (
 	workQueueLen = 64   // hand-offs queued per worker
 	// maxAckPending is the consumer's limit of messages delivered and
 	// not acknowledged; acknowledgements follow commits, and a commit
-	// starts early once half of it is taken (see Run). Far larger limits
-	// made the server's bookkeeping of pending messages slow restarts.
+	// starts early once half of it is taken (see Run). A limit of 2^18
+	// made the crash test (ten restarts under load) take 98 s instead of
+	// 55 s; not profiled.
 	maxAckPending = 1 << 16
 )
 
