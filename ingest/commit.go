@@ -72,6 +72,9 @@ func (w *worker) snapshot(tok *commitToken) {
 			if e := b.DropPanes(ref.id); e != nil && err == nil {
 				err = fmt.Errorf("sensor %s: %w", ref.id, e)
 			}
+			if e := b.SetRestart(ref.id, ref.st.since); e != nil && err == nil {
+				err = fmt.Errorf("sensor %s: %w", ref.id, e)
+			}
 		}
 		if e := b.Sensor(ref.id, ref.st.sensor); e != nil && err == nil {
 			err = fmt.Errorf("sensor %s: %w", ref.id, e)

@@ -68,8 +68,9 @@ type sensorState struct {
 	windows []rolling.WindowSpec
 	touched bool // listed in the worker's touched since the last commit
 	// since refuses readings older than the sensor's last restart (a
-	// calibration), Unix ns; 0: none. dropped asks the next commit to
-	// delete the stored panes of before the restart.
+	// calibration), Unix ns; 0: none. It is stored, so it holds across
+	// restarts of the service. dropped asks the next commit to delete the
+	// stored panes of before the restart and store since.
 	since   int64
 	dropped bool
 }
@@ -267,7 +268,7 @@ func (s *Service) restore() error {
 			s.log.Info().Str("sensor", r.ID).Msg("windows changed since the state was saved; panes of kept widths carried over")
 		}
 		dropped += r.Dropped
-		s.addRef(r.ID, units[r.ID], r.Sensor, nil)
+		s.addRef(r.ID, units[r.ID], r.Sensor, nil).st.since = r.Restart
 		return nil
 	})
 	if err != nil {
@@ -536,8 +537,9 @@ type restartReq struct {
 // Restart starts a sensor's fits afresh from the time from, as after a
 // calibration: the sensor's windows are emptied, its stored panes are
 // deleted with the next commit (its fit history is kept), and readings
-// older than from are refused from then on (as too old) while the service
-// runs. Readings received before the call are applied first. It is safe
+// older than from are refused from then on (as too old), also after the
+// service restarts: the time is stored with the next commit. Readings
+// received before the call are applied first. It is safe
 // for concurrent use and returns once the dispatcher has taken the
 // request, or ctx is done.
 func (s *Service) Restart(ctx context.Context, id string, from time.Time) error {

@@ -359,4 +359,18 @@ func TestService_Restart(t *testing.T) {
 	if err != nil || n != 16 {
 		t.Errorf("stored sensor holds %d readings (%v), want the 16 since the restart", n, err)
 	}
+	db.Close()
+
+	// A service started anew on the file still refuses readings from
+	// before the restart: the cutoff was stored.
+	h = startService(t, ns.ClientURL(), dir, ingest.ModeStream)
+	if js, err = h.nc.JetStream(); err != nil {
+		t.Fatal(err)
+	}
+	waitFor(t, "sensor restored", func() bool { return h.svc.Stats().Sensors == 1 })
+	publish(230, 260) // 3 readings: 1 before the cut, 2 after
+	waitFor(t, "readings after the service restart", func() bool {
+		st := h.svc.Stats()
+		return st.Applied == 2 && st.Rejected == 1
+	})
 }

@@ -21,6 +21,7 @@ const (
 	opDelete                  // delete pane key
 	opRecord                  // put key/val into history, key2 into the time index
 	opDropPanes               // delete every pane key under prefix key
+	opRestart                 // put key/val into restarts
 )
 
 // span locates bytes in the batch's buffer. Offsets, not slices, because
@@ -156,6 +157,20 @@ func (b *Batch) DropPanes(id string) error {
 		return err
 	}
 	b.ops = append(b.ops, op{kind: opDropPanes, key: b.appendKey(func(dst []byte) []byte { return appendIDPrefix(dst, id) })})
+	return nil
+}
+
+// SetRestart records, when the batch commits, that the fits of sensor
+// id restarted at unixNano (as after a calibration): Restore returns it
+// as Restored.Restart, so a restarted service can go on refusing older
+// readings.
+func (b *Batch) SetRestart(id string, unixNano int64) error {
+	if err := checkID(id); err != nil {
+		return err
+	}
+	o := op{kind: opRestart, key: b.appendKey(func(dst []byte) []byte { return append(dst, id...) })}
+	o.val = b.appendKey(func(dst []byte) []byte { return appendInt(dst, unixNano) })
+	b.ops = append(b.ops, o)
 	return nil
 }
 
@@ -363,6 +378,11 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats, putsDone bool) error {
 		case opDelete:
 			st.Deletes++
 			err = panes.Delete(key)
+		case opRestart:
+			var bk *bolt.Bucket
+			if bk, err = tx.CreateBucketIfNotExists(bucketRestarts); err == nil {
+				err = put(bk, key, val)
+			}
 		case opRecord:
 			if putsDone {
 				break

@@ -27,6 +27,10 @@ var (
 	bucketHistory  = []byte("history")
 	bucketHistTime = []byte("history-by-time")
 	bucketStream   = []byte("stream")
+	// bucketRestarts holds, per sensor id, the time its fits last
+	// restarted (Batch.SetRestart). Made with its first key, so files
+	// written before it existed open as they are.
+	bucketRestarts = []byte("restarts")
 )
 
 var (

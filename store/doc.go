@@ -44,6 +44,8 @@
 //	history          id 0x00 span(u64) pane(u64) time(i64) → fit record
 //	history-by-time  time(i64) id 0x00 span(u64) pane(u64) → empty
 //	stream           "position" → uint64 stream sequence
+//	restarts         id → time(i64) the sensor's fits last restarted
+//	                 (made with its first key)
 //
 // Panes of one sensor and width come in increasing index, the order
 // rolling.Sensor.LoadPane requires. Panes that left every window are

@@ -25,6 +25,10 @@ type Restored struct {
 	Saved   []rolling.WindowSpec
 	Changed bool
 
+	// Restart is the time, in Unix ns, the sensor's fits last restarted
+	// (Batch.SetRestart); 0 when they never did.
+	Restart int64
+
 	// Panes counts the stored panes the sensor holds after the restore.
 	// Dropped counts the stored panes it cannot hold: older than every
 	// window, or of a width no window has any more. Restore deletes them
@@ -143,6 +147,7 @@ func (sh *restoreShard) load(tx *bolt.Tx, lo, hi []byte, newSensor func(id strin
 		return nil
 	}
 	sc, pc := sensors.Cursor(), panes.Cursor()
+	restarts := tx.Bucket(bucketRestarts) // nil in files that never had one
 	var loaded []rolling.PaneKey
 	k, v := sc.First()
 	if lo != nil {
@@ -162,6 +167,14 @@ func (sh *restoreShard) load(tx *bolt.Tx, lo, hi []byte, newSensor func(id strin
 			continue
 		}
 		r := Restored{ID: id, Sensor: s, Saved: saved, Changed: s.Windows() != len(saved)}
+		if restarts != nil {
+			if v := restarts.Get(k); v != nil {
+				if len(v) != 8 {
+					return fmt.Errorf("sensor %s: %w: restart time of %d bytes", id, ErrCorrupt, len(v))
+				}
+				r.Restart = readInt(v)
+			}
+		}
 		for i := 0; i < s.Windows() && !r.Changed; i++ {
 			r.Changed = s.Spec(i) != saved[i]
 		}

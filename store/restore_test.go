@@ -462,3 +462,37 @@ func TestRestore_Shards(t *testing.T) {
 		}
 	}
 }
+
+// TestRestore_RestartTime checks that the restart time set for a sensor
+// comes back with it, and that other sensors carry none.
+func TestRestore_RestartTime(t *testing.T) {
+	db := openDB(t, tempPath(t))
+	at := time.Date(2031, 6, 1, 8, 30, 0, 0, time.UTC).UnixNano()
+	var b store.Batch
+	for _, id := range []string{"plant-west.pt-1", "plant-west.pt-2"} {
+		s, err := rolling.NewSensor(defaultSpecs...)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := s.Add(rolling.Reading{UnixNano: at + int64(time.Hour), Value: 1}); err != nil {
+			t.Fatal(err)
+		}
+		if err := b.Sensor(id, s); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := b.SetRestart("plant-west.pt-2", at); err != nil {
+		t.Fatal(err)
+	}
+	if err := b.SetRestart("", at); !errors.Is(err, store.ErrSensorID) {
+		t.Errorf("SetRestart with an empty id: %v, want ErrSensorID", err)
+	}
+	if _, err := db.Commit(&b); err != nil {
+		t.Fatal(err)
+	}
+	db = reopen(t, db)
+	got := restoreAll(t, db, defaultSpecs)
+	if r1, r2 := got["plant-west.pt-1"].Restart, got["plant-west.pt-2"].Restart; r1 != 0 || r2 != at {
+		t.Errorf("restart times %d and %d, want 0 and %d", r1, r2, at)
+	}
+}
