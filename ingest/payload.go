@@ -628,6 +628,7 @@ func (s *scanner) num() {
 		}
 	}
 	plain := true
+	s.dec = decimal{}
 	if i < len(data) && (data[i] == 'e' || data[i] == 'E') {
 		plain = false
 		i++
@@ -760,14 +761,19 @@ func (s *scanner) array(depth int, col *column) {
 		return
 	}
 	for {
-		s.dec = decimal{}
 		v := s.value(depth)
 		if s.bad() {
 			return
 		}
 		if col != nil {
+			// s.dec is this element's only when the element is a number:
+			// a nested array leaves its own last number there.
+			d := s.dec
+			if v.kind != '0' {
+				d = decimal{}
+			}
 			col.spans = append(col.spans, v)
-			col.decs = append(col.decs, s.dec)
+			col.decs = append(col.decs, d)
 		}
 		s.ws()
 		switch s.peek() {

@@ -131,6 +131,16 @@ func TestDecoder_Decode(t *testing.T) {
 				{0, "unit", `["x"]`, ingest.ReasonWrongType, ingest.ErrWrongType},
 				{1, "unit", `["x"]`, ingest.ReasonWrongType, ingest.ErrWrongType},
 			}},
+		// Elements that hold numbers without being plain ones: a nested
+		// array, an object, exponent and long forms after a plain number.
+		{"batch with nested and long elements",
+			`{"t":[[1772366400],1772366400,{"a":1},1772366401,1.772366402e9],"v":[1,[2],3,12345678901234567890.5,5]}`, "",
+			[]wantReading{{ns: t2026 + 1e9, v: 12345678901234567890.5}, {ns: t2026 + 2e9, v: 5}},
+			[]wantReject{
+				{0, "t", "[1772366400]", ingest.ReasonWrongType, ingest.ErrWrongType},
+				{1, "v", "[2]", ingest.ReasonWrongType, ingest.ErrWrongType},
+				{2, "t", `{"a":1}`, ingest.ReasonWrongType, ingest.ErrWrongType},
+			}},
 		{"empty batch", `{"sensor":"s","t":[],"v":[]}`, "s", nil, nil},
 		{"long bad value cut", `{"t":"` + strings.Repeat("x", 100) + `","v":1}`, "", nil,
 			[]wantReject{{0, "t", `"` + strings.Repeat("x", 63) + "...", ingest.ReasonBadTime, ingest.ErrTimeSyntax}}},
