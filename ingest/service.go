@@ -84,7 +84,8 @@ type Options struct {
 	// applied since the last one: it bounds the work a restart repeats
 	// when readings come faster than a million a second. Each commit
 	// ends with fsync; in stream mode with 100 readings a message, a
-	// commit every 100,000 readings cost a third of the throughput.
+	// commit every 100,000 readings cost a third of the throughput in
+	// one measurement (none in a later one, the disk busier).
 	// Default 1,000,000. While the previous commit is still writing,
 	// readings keep being applied and go into the next commit, so a slow
 	// disk makes commits larger rather than stalling ingest.

@@ -293,11 +293,7 @@ func applySorted(tx *bolt.Tx, bs []*Batch, panes, records []opRef, st *CommitSta
 		return fmt.Errorf("%w: buckets missing", ErrCorrupt)
 	}
 	pb.FillPercent = paneFill
-	put := func(bk *bolt.Bucket, k, v []byte) error {
-		st.Puts++
-		st.Bytes += len(k) + len(v)
-		return bk.Put(k, v)
-	}
+	put := st.put
 	for _, r := range panes {
 		if err := put(pb, keyOf(bs, r), bs[r.b].bytes(bs[r.b].ops[r.i].val)); err != nil {
 			return err
@@ -323,6 +319,13 @@ func applySorted(tx *bolt.Tx, bs []*Batch, panes, records []opRef, st *CommitSta
 	return nil
 }
 
+// put puts k and v into bk and counts them.
+func (st *CommitStats) put(bk *bolt.Bucket, k, v []byte) error {
+	st.Puts++
+	st.Bytes += len(k) + len(v)
+	return bk.Put(k, v)
+}
+
 // paneFill is the panes bucket's fill of split pages: a sensor's new
 // panes land just after its older ones, so a split page rarely takes
 // more keys on its left.
@@ -340,11 +343,7 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats, putsDone bool) error {
 		return fmt.Errorf("%w: buckets missing", ErrCorrupt)
 	}
 	var cur *bolt.Cursor
-	put := func(bk *bolt.Bucket, k, v []byte) error {
-		st.Puts++
-		st.Bytes += len(k) + len(v)
-		return bk.Put(k, v)
-	}
+	put := st.put
 	for i := range b.ops {
 		o := &b.ops[i]
 		key, val := b.bytes(o.key), b.bytes(o.val)
