@@ -881,7 +881,9 @@ func (e *benchEnv) streamCase(ctx context.Context, pool *benchPool, slot time.Du
 	if err != nil {
 		return out, err
 	}
-	waitUntil(ctx, slot, func() bool { return got.Load() >= warm })
+	if !waitUntil(ctx, time.Minute, func() bool { return got.Load() >= warm }) {
+		return out, fmt.Errorf("bench: the ack-only consumer did not take the %d warm-up messages within a minute", warm)
+	}
 	waitUntil(ctx, slot, func() bool { return got.Load() >= sent })
 	if n := got.Load(); n > warm {
 		out.BaselinePerSec = float64(n-warm) * float64(pool.per) / time.Since(time.Unix(0, tWarm.Load())).Seconds()
