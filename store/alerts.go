@@ -13,7 +13,9 @@ import (
 //	alerts   sensor id → the caller's alert state for the sensor (opaque)
 //	events   time(i64) seq(u64) → one event (opaque, JSON in practice)
 //	tickets  ticket id → the ticket's latest version (opaque)
-//	outbox   seq(u64) → a delivery still to make (opaque)
+//	outbox   lane(u8) seq(u64) → a delivery still to make (opaque); keys
+//	         of 8 bytes (no lane), written by earlier versions, are read
+//	         as lane 0
 var (
 	bucketAlerts  = []byte("alerts")
 	bucketEvents  = []byte("events")
@@ -29,8 +31,9 @@ type AlertWrite struct {
 	Events []TimedValue
 	// Tickets maps ticket id to the ticket's latest version.
 	Tickets map[string][]byte
-	// Outbox holds deliveries to make (e.g. webhook posts).
-	Outbox [][]byte
+	// Outbox holds deliveries to make (e.g. bus publications, webhook
+	// posts); their Seq is assigned when they are stored.
+	Outbox []OutboxItem
 }
 
 // TimedValue is a value filed under a time.
@@ -39,8 +42,11 @@ type TimedValue struct {
 	Data []byte
 }
 
-// OutboxItem is a delivery still to make; Seq identifies it to OutboxDone.
+// OutboxItem is a delivery still to make. Lane says which deliverer takes
+// it (the store does not interpret it); Seq identifies it within its lane
+// to OutboxDone and grows with every item stored.
 type OutboxItem struct {
+	Lane byte
 	Seq  uint64
 	Data []byte
 }
@@ -48,65 +54,86 @@ type OutboxItem struct {
 // WriteAlerts stores the writes in one transaction (with fsync unless
 // Options.NoSync), so a sensor's alert state never gets ahead of the
 // events and tickets it produced, and a ticket is in the outbox exactly
-// when it is stored.
+// when it is stored. A running service puts its alert writes into its
+// commit batches instead (Batch.Alerts), so they land with the state
+// they derive from; WriteAlerts is for tools working on a file alone.
 func (db *DB) WriteAlerts(ws []AlertWrite) error {
 	if len(ws) == 0 {
 		return nil
 	}
 	err := db.bolt.Update(func(tx *bolt.Tx) error {
-		var bks [4]*bolt.Bucket
-		for i, name := range [][]byte{bucketAlerts, bucketEvents, bucketTickets, bucketOutbox} {
-			b, err := tx.CreateBucketIfNotExists(name)
-			if err != nil {
-				return err
-			}
-			bks[i] = b
-		}
-		alerts, events, tickets, outbox := bks[0], bks[1], bks[2], bks[3]
-		for _, w := range ws {
-			if err := checkID(w.Sensor); err != nil {
-				return err
-			}
-			if w.State != nil {
-				if err := alerts.Put([]byte(w.Sensor), w.State); err != nil {
-					return err
-				}
-			}
-			for _, e := range w.Events {
-				seq, err := events.NextSequence()
-				if err != nil {
-					return err
-				}
-				key := appendInt(nil, unixNano(e.At))
-				key = binary.BigEndian.AppendUint64(key, seq)
-				if err := events.Put(key, e.Data); err != nil {
-					return err
-				}
-			}
-			for id, data := range w.Tickets {
-				if id == "" {
-					return fmt.Errorf("%w: empty ticket id", ErrRecord)
-				}
-				if err := tickets.Put([]byte(id), data); err != nil {
-					return err
-				}
-			}
-			for _, data := range w.Outbox {
-				seq, err := outbox.NextSequence()
-				if err != nil {
-					return err
-				}
-				if err := outbox.Put(binary.BigEndian.AppendUint64(nil, seq), data); err != nil {
-					return err
-				}
-			}
-		}
-		return nil
+		var st CommitStats
+		return writeAlerts(tx, ws, &st)
 	})
 	if err != nil {
 		return fmt.Errorf("store: write alerts: %w", err)
 	}
 	return nil
+}
+
+// writeAlerts puts the writes into tx, listing the outbox items it
+// stored (with their Seq, data copied) in st.Outbox.
+func writeAlerts(tx *bolt.Tx, ws []AlertWrite, st *CommitStats) error {
+	var bks [4]*bolt.Bucket
+	for i, name := range [][]byte{bucketAlerts, bucketEvents, bucketTickets, bucketOutbox} {
+		b, err := tx.CreateBucketIfNotExists(name)
+		if err != nil {
+			return err
+		}
+		bks[i] = b
+	}
+	alerts, events, tickets, outbox := bks[0], bks[1], bks[2], bks[3]
+	for _, w := range ws {
+		if err := checkID(w.Sensor); err != nil {
+			return err
+		}
+		if w.State != nil {
+			if err := st.put(alerts, []byte(w.Sensor), w.State); err != nil {
+				return err
+			}
+		}
+		for _, e := range w.Events {
+			seq, err := events.NextSequence()
+			if err != nil {
+				return err
+			}
+			key := appendInt(nil, unixNano(e.At))
+			key = binary.BigEndian.AppendUint64(key, seq)
+			if err := st.put(events, key, e.Data); err != nil {
+				return err
+			}
+		}
+		for id, data := range w.Tickets {
+			if id == "" {
+				return fmt.Errorf("%w: empty ticket id", ErrRecord)
+			}
+			if err := st.put(tickets, []byte(id), data); err != nil {
+				return err
+			}
+		}
+		for _, it := range w.Outbox {
+			if it.Lane == 0 {
+				return fmt.Errorf("%w: outbox lane 0 is for items of earlier versions", ErrRecord)
+			}
+			seq, err := outbox.NextSequence()
+			if err != nil {
+				return err
+			}
+			if err := st.put(outbox, outboxKey(it.Lane, seq), it.Data); err != nil {
+				return err
+			}
+			st.Outbox = append(st.Outbox, OutboxItem{Lane: it.Lane, Seq: seq, Data: append([]byte(nil), it.Data...)})
+		}
+	}
+	return nil
+}
+
+// outboxKey is lane(u8) seq(u64), or seq(u64) alone for lane 0.
+func outboxKey(lane byte, seq uint64) []byte {
+	if lane == 0 {
+		return binary.BigEndian.AppendUint64(nil, seq)
+	}
+	return binary.BigEndian.AppendUint64([]byte{lane}, seq)
 }
 
 // AlertStates calls fn with every sensor's stored alert state, in id order.
@@ -164,8 +191,11 @@ func (db *DB) Tickets(fn func(id string, data []byte) error) error {
 	})
 }
 
-// Outbox returns up to n pending deliveries, oldest first, copied out.
-func (db *DB) Outbox(n int) ([]OutboxItem, error) {
+// Outbox returns up to n pending deliveries of lane with Seq > after,
+// oldest first, copied out. Lane 0 holds the items of earlier versions,
+// which stored no lane (keys of 8 bytes: seq); lanes written now are 1
+// to 255.
+func (db *DB) Outbox(lane byte, after uint64, n int) ([]OutboxItem, error) {
 	var out []OutboxItem
 	err := db.bolt.View(func(tx *bolt.Tx) error {
 		b := tx.Bucket(bucketOutbox)
@@ -173,24 +203,36 @@ func (db *DB) Outbox(n int) ([]OutboxItem, error) {
 			return nil
 		}
 		c := b.Cursor()
-		for k, v := c.First(); k != nil && len(out) < n; k, v = c.Next() {
-			if len(k) != 8 {
+		for k, v := c.Seek(outboxKey(lane, after+1)); k != nil && len(out) < n; k, v = c.Next() {
+			if len(k) != 8 && len(k) != 9 {
 				return fmt.Errorf("%w: outbox key %x", ErrCorrupt, k)
 			}
-			out = append(out, OutboxItem{Seq: binary.BigEndian.Uint64(k), Data: append([]byte(nil), v...)})
+			kl, seq := byte(0), k
+			if len(k) == 9 {
+				kl, seq = k[0], k[1:]
+			}
+			if kl != lane {
+				break
+			}
+			out = append(out, OutboxItem{Lane: lane, Seq: binary.BigEndian.Uint64(seq), Data: append([]byte(nil), v...)})
 		}
 		return nil
 	})
 	return out, err
 }
 
-// OutboxDone deletes a delivered item.
-func (db *DB) OutboxDone(seq uint64) error {
+// OutboxDone deletes a delivered item. A running service deletes through
+// its commits instead (Batch.OutboxDone).
+func (db *DB) OutboxDone(lane byte, seq uint64) error {
 	return db.bolt.Update(func(tx *bolt.Tx) error {
-		b := tx.Bucket(bucketOutbox)
-		if b == nil {
-			return nil
-		}
-		return b.Delete(binary.BigEndian.AppendUint64(nil, seq))
+		return deleteOutbox(tx, lane, seq)
 	})
+}
+
+func deleteOutbox(tx *bolt.Tx, lane byte, seq uint64) error {
+	b := tx.Bucket(bucketOutbox)
+	if b == nil {
+		return nil
+	}
+	return b.Delete(outboxKey(lane, seq))
 }

@@ -51,6 +51,9 @@ type Batch struct {
 
 	applied    uint64
 	hasApplied bool
+
+	alerts     []AlertWrite
+	outboxDone []OutboxItem // Lane and Seq of delivered items
 }
 
 // Sensor snapshots the panes of s changed since the last snapshot, the
@@ -183,15 +186,43 @@ func (b *Batch) SetPosition(seq uint64) { b.pos, b.hasPos = seq, true }
 // commit holds, so that a count survives crashes exactly as the state does.
 func (b *Batch) SetApplied(n uint64) { b.applied, b.hasApplied = n, true }
 
-// Len returns the count of writes queued: panes, window specs, horizons
-// and records (the position not counted).
-func (b *Batch) Len() int { return len(b.ops) }
+// Alerts adds one sensor's alert writes: its alert state, events, tickets
+// and outbox items land in the same transaction as the panes and the
+// position they derive from, so a crash keeps or loses them together.
+// The batch keeps w's slices until the commit: do not change them. The
+// outbox items the commit stores are listed, with their Seq, in
+// CommitStats.Outbox.
+func (b *Batch) Alerts(w AlertWrite) error {
+	if err := checkID(w.Sensor); err != nil {
+		return err
+	}
+	for _, it := range w.Outbox {
+		if it.Lane == 0 {
+			return fmt.Errorf("%w: outbox lane 0 is for items of earlier versions", ErrRecord)
+		}
+	}
+	b.alerts = append(b.alerts, w)
+	return nil
+}
+
+// OutboxDone deletes, when the batch commits, the delivered outbox item
+// seq of lane.
+func (b *Batch) OutboxDone(lane byte, seq uint64) {
+	b.outboxDone = append(b.outboxDone, OutboxItem{Lane: lane, Seq: seq})
+}
+
+// Len returns the count of writes queued: panes, window specs, horizons,
+// records, alert writes and outbox deletes (the position not counted).
+func (b *Batch) Len() int { return len(b.ops) + len(b.alerts) + len(b.outboxDone) }
 
 // Reset empties the batch, keeping its memory.
 func (b *Batch) Reset() {
 	b.buf, b.ops = b.buf[:0], b.ops[:0]
 	b.pos, b.hasPos = 0, false
 	b.applied, b.hasApplied = 0, false
+	clear(b.alerts)
+	b.alerts = b.alerts[:0]
+	b.outboxDone = b.outboxDone[:0]
 }
 
 func (b *Batch) bytes(s span) []byte { return b.buf[s.off : s.off+s.n : s.off+s.n] }
@@ -203,6 +234,9 @@ type CommitStats struct {
 	Bytes int
 	// Puts and Deletes count the key/value pairs put and deleted.
 	Puts, Deletes int
+	// Outbox lists the outbox items the commit stored, with their Seq;
+	// the data are copies, valid after the commit.
+	Outbox []OutboxItem
 }
 
 // Commit writes the batches in one bbolt transaction (with fsync unless
@@ -217,7 +251,7 @@ type CommitStats struct {
 func (db *DB) Commit(bs ...*Batch) (CommitStats, error) {
 	empty := true
 	for _, b := range bs {
-		if len(b.ops) > 0 || b.hasPos || b.hasApplied {
+		if b.Len() > 0 || b.hasPos || b.hasApplied {
 			empty = false
 		}
 	}
@@ -393,6 +427,17 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats, putsDone bool) error {
 		if err != nil {
 			return err
 		}
+	}
+	if len(b.alerts) > 0 {
+		if err := writeAlerts(tx, b.alerts, st); err != nil {
+			return err
+		}
+	}
+	for _, it := range b.outboxDone {
+		if err := deleteOutbox(tx, it.Lane, it.Seq); err != nil {
+			return err
+		}
+		st.Deletes++
 	}
 	if b.hasPos {
 		var v [8]byte

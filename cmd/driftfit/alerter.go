@@ -288,7 +288,7 @@ func (a *alerter) submit(key string, e *trackerEntry, d alert.Decision) {
 		}
 		w.w.Tickets[tk.ID] = data
 		if a.webhook.url != "" {
-			w.w.Outbox = append(w.w.Outbox, data)
+			w.w.Outbox = append(w.w.Outbox, store.OutboxItem{Lane: 1, Data: data})
 		}
 		w.ticket = append(w.ticket, tk)
 	}
@@ -435,7 +435,7 @@ func (a *alerter) deliver(ctx context.Context) {
 	client := &http.Client{Timeout: a.webhook.timeout}
 	backoff := a.webhook.firstRetry
 	for {
-		items, err := a.db.Outbox(32)
+		items, err := a.db.Outbox(1, 0, 32)
 		if err != nil {
 			a.log.Error().Err(err).Msg("outbox read")
 		}
@@ -446,7 +446,7 @@ func (a *alerter) deliver(ctx context.Context) {
 				failed = true
 				break
 			}
-			if err := a.db.OutboxDone(it.Seq); err != nil {
+			if err := a.db.OutboxDone(1, it.Seq); err != nil {
 				a.log.Error().Err(err).Msg("outbox update")
 			}
 		}

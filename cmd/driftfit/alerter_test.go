@@ -134,14 +134,14 @@ func TestAlerter_TicketSurvivesReceiverOutage(t *testing.T) {
 	// The receiver has both; the sender marks the second done once it
 	// has the answer. (Stopped before that, it would send it again.)
 	pollUntil(t, "the outbox emptied", func() bool {
-		left, err := db.Outbox(10)
+		left, err := db.Outbox(1, 0, 10)
 		return err == nil && len(left) == 0
 	})
 	cancel()
 	wg.Wait()
 	stored := 0
 	_ = db.Tickets(func(string, []byte) error { stored++; return nil })
-	left, _ := db.Outbox(10)
+	left, _ := db.Outbox(1, 0, 10)
 	if stored != 1 || len(left) != 0 {
 		t.Errorf("stored tickets %d (want 1), outbox left %d (want 0)", stored, len(left))
 	}
