@@ -19,14 +19,16 @@ type part struct {
 	w       *worker
 	batch   *store.Batch
 	applied uint64
+	acks    []func(error) // told the commit's outcome
 	err     error
 }
 
 type commitReq struct {
-	tok    *commitToken
-	pos    uint64 // stream position the state corresponds to; 0 in direct mode
-	ack    jetstream.Msg
-	issued time.Time
+	tok      *commitToken
+	pos      uint64 // stream position the state corresponds to; 0 in direct mode
+	ack      jetstream.Msg
+	issued   time.Time
+	finished chan struct{} // closed once the commit is written (or failed)
 }
 
 // commit cuts the stream at the last message handled: every worker
@@ -35,18 +37,19 @@ type commitReq struct {
 // transaction. It blocks while a commit is queued behind the one
 // writing, which is what bounds the work in flight; Run asks
 // committerFree first, except for the last commit.
-func (s *Service) commit() {
+func (s *Service) commit() *commitReq {
 	s.flush()
 	tok := &commitToken{parts: make(chan part, len(s.workers))}
 	for _, w := range s.workers {
 		w.in <- &workBatch{token: tok}
 	}
-	req := commitReq{tok: tok, issued: time.Now()}
+	req := commitReq{tok: tok, issued: time.Now(), finished: make(chan struct{})}
 	if s.o.Mode == ModeStream {
 		req.pos, req.ack = s.lastSeq, s.lastMsg
 	}
 	s.commits <- req
-	s.commitBase, s.sinceAck, s.dirty = s.applied.Load(), 0, false
+	s.commitBase, s.sinceAck, s.dirty, s.urgent = s.applied.Load(), 0, false, false
+	return &req
 }
 
 // committerFree reports whether a commit can be queued without waiting.
@@ -90,7 +93,16 @@ func (w *worker) snapshot(tok *commitToken) {
 	}
 	clear(w.hist)
 	w.hist = w.hist[:0]
-	tok.parts <- part{w: w, batch: b, applied: w.applied, err: err}
+	for _, out := range w.outs {
+		if e := b.Alerts(out); e != nil && err == nil {
+			err = fmt.Errorf("alert state of %s: %w", out.Sensor, e)
+		}
+	}
+	clear(w.outs)
+	w.outs = w.outs[:0]
+	acks := w.acks
+	w.acks = nil
+	tok.parts <- part{w: w, batch: b, applied: w.applied, acks: acks, err: err}
 }
 
 // committer writes commits in order, then acknowledges them on the bus.
@@ -118,6 +130,9 @@ func (s *Service) committer() {
 			batches[0].SetPosition(req.pos)
 		}
 		batches[0].SetApplied(applied)
+		for _, it := range s.outbox.takeDone() {
+			batches[0].OutboxDone(it.Lane, it.Seq)
+		}
 		var st store.CommitStats
 		t0 := time.Now()
 		if err == nil {
@@ -127,10 +142,24 @@ func (s *Service) committer() {
 			p.w.pool <- p.batch
 		}
 		if err != nil {
+			err = fmt.Errorf("ingest: commit at position %d: %w", req.pos, err)
+			for _, p := range parts {
+				for _, a := range p.acks {
+					a(err)
+				}
+			}
 			// The file keeps the last good commit; Run stops, and a
 			// restart resumes from that commit's position.
-			s.fail(fmt.Errorf("ingest: commit at position %d: %w", req.pos, err))
+			s.fail(err)
+			close(req.finished)
+			wake(s.freed)
 			continue
+		}
+		s.outbox.committed(st.Outbox)
+		for _, p := range parts {
+			for _, a := range p.acks {
+				a(nil)
+			}
 		}
 		took := time.Since(t0)
 		if req.pos != 0 {
@@ -162,6 +191,8 @@ func (s *Service) committer() {
 				s.log.Debug().Int("n", n).Msg("old fit history deleted")
 			}
 		}
+		close(req.finished)
+		wake(s.freed)
 	}
 }
 

@@ -1,6 +1,7 @@
 package ingest
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"fmt"
@@ -58,6 +59,7 @@ type sensorRef struct {
 	id     string
 	worker int
 	unit   string
+	group  string // peer group; "" for none
 	st     *sensorState
 }
 
@@ -73,6 +75,10 @@ type sensorState struct {
 	// stored panes of before the restart and store since.
 	since   int64
 	dropped bool
+
+	alerts alertState
+	member *peerMember // nil: not (yet) in a peer group
+	joined bool        // the worker looked at the sensor's group
 }
 
 // Service reads readings from NATS into per-sensor fits and commits them
@@ -96,8 +102,17 @@ type Service struct {
 	dirty      bool
 
 	commits chan commitReq
-	control chan restartReq
+	control chan controlReq
 	fatal   chan error
+
+	// Alert side. savedAlerts holds the stored alert states, read-only
+	// once restored (workers make trackers from them on first use).
+	savedAlerts map[string][]byte
+	alertPrefix string // AlertSubjectPrefix + "."
+	outbox      *outbox
+	urgent      bool          // dispatcher: commit as soon as the committer is free
+	wakeCommit  chan struct{} // workers: a decision waits to be committed
+	freed       chan struct{} // committer: a commit is done
 
 	// appliedBase is the applied count of the restored state; the
 	// workers count from zero on top of it.
@@ -120,9 +135,15 @@ func New(o Options) (*Service, error) {
 		seed:    maphash.MakeSeed(),
 		prefix:  o.SubjectPrefix + ".",
 		commits: make(chan commitReq, 1),
-		control: make(chan restartReq),
+		control: make(chan controlReq),
 		fatal:   make(chan error, 1),
+
+		savedAlerts: map[string][]byte{},
+		alertPrefix: o.AlertSubjectPrefix + ".",
+		wakeCommit:  make(chan struct{}, 1),
+		freed:       make(chan struct{}, 1),
 	}
+	s.outbox = newOutbox(s)
 	s.badLog = s.log.Sample(&zerolog.BurstSampler{Burst: 10, Period: 10 * time.Second})
 	for i := range o.Workers {
 		s.workers = append(s.workers, newWorker(s, i))
@@ -151,6 +172,9 @@ func (s *Service) Run(ctx context.Context) error {
 	if err := s.restore(); err != nil {
 		return err
 	}
+	if err := s.outbox.loadLeft(); err != nil {
+		return err
+	}
 	var wg sync.WaitGroup
 	for _, w := range s.workers {
 		wg.Add(1)
@@ -158,7 +182,16 @@ func (s *Service) Run(ctx context.Context) error {
 	}
 	committerDone := make(chan struct{})
 	go func() { defer close(committerDone); s.committer() }()
+	// The outbox senders outlive ingest: they send what the last commit
+	// stored (bounded by StopTimeout).
+	sendCtx, stopSend := context.WithCancel(context.WithoutCancel(ctx))
+	var senders sync.WaitGroup
+	senders.Add(2)
+	go func() { defer senders.Done(); s.outbox.runBus(sendCtx) }()
+	go func() { defer senders.Done(); s.outbox.runWebhook(sendCtx) }()
 	stopAll := func() {
+		stopSend()
+		senders.Wait()
 		close(s.commits)
 		<-committerDone
 		for _, w := range s.workers {
@@ -166,10 +199,19 @@ func (s *Service) Run(ctx context.Context) error {
 		}
 		wg.Wait()
 	}
+	stopping := make(chan struct{})
+	stopCal, err := s.subscribeCalibrations(stopping)
+	if err != nil {
+		close(stopping)
+		stopAll()
+		return err
+	}
 
 	in := make(chan message, inboxLen)
 	src, err := s.start(ctx, in)
 	if err != nil {
+		stopCal()
+		close(stopping)
 		stopAll()
 		if ctx.Err() != nil {
 			return nil // stopped while starting: nothing taken, nothing to commit
@@ -192,19 +234,31 @@ loop:
 				s.commit()
 			}
 		case <-tick.C:
-			if s.dirty && s.committerFree() {
+			if (s.dirty || s.outbox.pendingDone()) && s.committerFree() {
 				s.commit()
 			}
+		case <-s.wakeCommit:
+			s.urgent = true
+		case <-s.freed:
 		case req := <-s.control:
-			req.done <- s.restart(req.id, req.from)
+			s.controlled(req)
 		case runErr = <-s.fatal:
 			break loop
 		case <-ctx.Done():
 			break loop
 		}
+		// A decision (an alert, a ticket, a calibration) is committed as
+		// soon as the committer is free, so it goes out without waiting
+		// for the interval.
+		if s.urgent && s.committerFree() {
+			s.commit()
+		}
 	}
 
-	// Stop taking messages, apply what was received, commit, stop.
+	// Stop taking calibrations and messages, apply what was received,
+	// commit, send what it stored, delete what was sent, stop.
+	stopCal()
+	close(stopping)
 	stopped := make(chan struct{})
 	go func() { defer close(stopped); src.stop() }()
 	for waiting := true; waiting; {
@@ -217,8 +271,19 @@ loop:
 		}
 	}
 	s.drain(in, len(in))
+	for drained := false; !drained; {
+		select {
+		case req := <-s.control:
+			req.done(errors.New("ingest: service stopping"))
+		default:
+			drained = true
+		}
+	}
 	if runErr == nil {
-		s.commit()
+		<-s.commit().finished
+		if s.outbox.flushed(s.o.StopTimeout) && s.outbox.pendingDone() {
+			<-s.commit().finished
+		}
 	}
 	stopAll()
 	select {
@@ -249,7 +314,7 @@ func (s *Service) drain(in chan message, max int) {
 
 // restore rebuilds the stored sensors and hands them to their workers.
 func (s *Service) restore() error {
-	units := map[string]string{}
+	cfgs := map[string]SensorConfig{}
 	var mu sync.Mutex // Restore makes sensors on several goroutines
 	t0 := time.Now()
 	var dropped int
@@ -260,7 +325,7 @@ func (s *Service) restore() error {
 			return nil, nil
 		}
 		mu.Lock()
-		units[id] = cfg.Unit
+		cfgs[id] = cfg
 		mu.Unlock()
 		return rolling.NewSensor(cfg.Windows...)
 	}, func(r store.Restored) error {
@@ -268,7 +333,7 @@ func (s *Service) restore() error {
 			s.log.Info().Str("sensor", r.ID).Msg("windows changed since the state was saved; panes of kept widths carried over")
 		}
 		dropped += r.Dropped
-		s.addRef(r.ID, units[r.ID], r.Sensor, nil).st.since = r.Restart
+		s.addRef(r.ID, cfgs[r.ID], r.Sensor).st.since = r.Restart
 		return nil
 	})
 	if err != nil {
@@ -283,19 +348,31 @@ func (s *Service) restore() error {
 	if s.appliedBase, err = s.o.DB.Applied(); err != nil {
 		return err
 	}
+	if err := s.o.DB.AlertStates(func(id string, st []byte) error {
+		s.savedAlerts[id] = bytes.Clone(st)
+		return nil
+	}); err != nil {
+		return fmt.Errorf("ingest: restore alert states: %w", err)
+	}
 	s.log.Info().Int("sensors", len(s.refs)).Int("dropped_panes", dropped).Uint64("position", pos).
 		Dur("took", time.Since(t0)).Msg("state restored")
 	return nil
 }
 
 // addRef routes sensor id to its worker, with its state restored
-// (sensor) or to be made with its first reading (windows).
-func (s *Service) addRef(id, unit string, sensor *rolling.Sensor, windows []rolling.WindowSpec) *sensorRef {
+// (sensor) or to be made with its first reading (from cfg.Windows). The
+// members of a peer group share the group's worker.
+func (s *Service) addRef(id string, cfg SensorConfig, sensor *rolling.Sensor) *sensorRef {
+	route := id
+	if cfg.Group != "" {
+		route = "\x00group\x00" + cfg.Group
+	}
 	ref := &sensorRef{
 		id:     id,
-		worker: int(maphash.String(s.seed, id) % uint64(len(s.workers))),
-		unit:   unit,
-		st:     &sensorState{sensor: sensor, windows: windows},
+		worker: int(maphash.String(s.seed, route) % uint64(len(s.workers))),
+		unit:   cfg.Unit,
+		group:  cfg.Group,
+		st:     &sensorState{sensor: sensor, windows: cfg.Windows},
 	}
 	s.refs[id] = ref
 	if sensor != nil {
@@ -322,7 +399,7 @@ func (s *Service) ref(id string) (*sensorRef, error) {
 	if err != nil {
 		return nil, fmt.Errorf("sensor %q: %w", id, err)
 	}
-	return s.addRef(strings.Clone(id), cfg.Unit, nil, cfg.Windows), nil
+	return s.addRef(strings.Clone(id), cfg, nil), nil
 }
 
 // source is a running subscription.
@@ -525,46 +602,4 @@ func (s *Service) flush() {
 	for w := range s.pending {
 		s.flushWorker(w)
 	}
-}
-
-// restartReq asks the dispatcher to restart a sensor's fits.
-type restartReq struct {
-	id   string
-	from time.Time
-	done chan error
-}
-
-// Restart starts a sensor's fits afresh from the time from, as after a
-// calibration: the sensor's windows are emptied, its stored panes are
-// deleted with the next commit (its fit history is kept), and readings
-// older than from are refused from then on (as too old), also after the
-// service restarts: the time is stored with the next commit. Readings
-// received before the call are applied first. It is safe
-// for concurrent use and returns once the dispatcher has taken the
-// request, or ctx is done.
-func (s *Service) Restart(ctx context.Context, id string, from time.Time) error {
-	req := restartReq{id: id, from: from, done: make(chan error, 1)}
-	select {
-	case s.control <- req:
-	case <-ctx.Done():
-		return ctx.Err()
-	}
-	select {
-	case err := <-req.done:
-		return err
-	case <-ctx.Done():
-		return ctx.Err()
-	}
-}
-
-func (s *Service) restart(id string, from time.Time) error {
-	ref, err := s.ref(id)
-	if err != nil {
-		return fmt.Errorf("ingest: restart: %w", err)
-	}
-	// Behind everything already routed to the sensor's worker.
-	s.flushWorker(ref.worker)
-	s.workers[ref.worker].in <- &workBatch{restart: &restartJob{ref: ref, from: from.UnixNano()}}
-	s.dirty = true
-	return nil
 }

@@ -8,6 +8,7 @@ import (
 	"github.com/nats-io/nats.go"
 	"github.com/rs/zerolog"
 
+	"driftfit/alert"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -41,6 +42,9 @@ type SensorConfig struct {
 	// Unit is the sensor's engineering unit; readings that carry another
 	// unit are rejected. Empty: any unit is accepted.
 	Unit string
+	// Group names the sensor's peer group; empty: none. All members of a
+	// group are routed to one worker, which compares them.
+	Group string
 }
 
 // Options configure a Service. Zero fields take the documented defaults.
@@ -99,6 +103,27 @@ type Options struct {
 	// HistoryRetention deletes fit history older than this, a little at
 	// a time between commits. Zero keeps history forever.
 	HistoryRetention time.Duration
+	// Rule returns the alert rule of a sensor, ok false when it has none.
+	// Nil: no sensor is judged. It is called by the workers, concurrently:
+	// it must be safe for concurrent use.
+	Rule func(id string) (r alert.Rule, ok bool)
+	// AlertSubjectPrefix: alert events go out on <AlertSubjectPrefix>.<sensor
+	// id>. Default "driftfit.alerts".
+	AlertSubjectPrefix string
+	// TicketSubject receives recalibration tickets (opening and closing).
+	// Default "driftfit.tickets".
+	TicketSubject string
+	// CalibrationSubjectPrefix: calibrations arrive on
+	// <CalibrationSubjectPrefix>.<sensor id> (see CalibrationMsg).
+	// Default "driftfit.calibrations".
+	CalibrationSubjectPrefix string
+	// Webhook, if its URL is set, also receives every ticket revision.
+	Webhook Webhook
+	// StopTimeout bounds, at shutdown, the wait for the alert events and
+	// tickets of the last commit to be published; what is not published
+	// by then is sent at the next start. Default 5s.
+	StopTimeout time.Duration
+
 	// Now returns the current time. Default time.Now.
 	Now func() time.Time
 	// Logger receives the service's events. Default: a disabled logger.
@@ -107,8 +132,8 @@ type Options struct {
 	Metrics *Metrics
 	// OnPaneClose, if not nil, is called by a sensor's worker with the
 	// window solution each time one of its panes closes (after that
-	// solution went into the fit history). It runs on the worker: keep
-	// it short, and do not keep sol past the call.
+	// solution went into the fit history, before it is judged). It runs
+	// on the worker: keep it short, and do not keep sol past the call.
 	OnPaneClose func(id string, window int, sol *rolling.Solution)
 	// OnApplied, if not nil, is called by a sensor's worker after it
 	// folded the readings of one message into the sensor (readings the
@@ -155,6 +180,29 @@ func (o *Options) fill() error {
 	}
 	if o.Now == nil {
 		o.Now = time.Now
+	}
+	if o.AlertSubjectPrefix == "" {
+		o.AlertSubjectPrefix = "driftfit.alerts"
+	}
+	if o.TicketSubject == "" {
+		o.TicketSubject = "driftfit.tickets"
+	}
+	if o.CalibrationSubjectPrefix == "" {
+		o.CalibrationSubjectPrefix = "driftfit.calibrations"
+	}
+	if o.StopTimeout <= 0 {
+		o.StopTimeout = 5 * time.Second
+	}
+	if w := &o.Webhook; w.URL != "" {
+		if w.Timeout <= 0 {
+			w.Timeout = 10 * time.Second
+		}
+		if w.FirstRetry <= 0 {
+			w.FirstRetry = time.Second
+		}
+		if w.MaxBackoff <= 0 {
+			w.MaxBackoff = 5 * time.Minute
+		}
 	}
 	if o.Logger == nil {
 		l := zerolog.Nop()

@@ -7,6 +7,7 @@ import (
 
 	"github.com/nats-io/nats.go"
 
+	"driftfit/alert"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -38,6 +39,10 @@ type worker struct {
 	rs    []rolling.Reading // the accepted readings of one message
 	warm  uint64            // keeps Sensor.Warm's loads
 
+	outs   []store.AlertWrite    // alert decisions since the last token
+	acks   []func(error)         // calibrations waiting for their commit
+	groups map[string]*peerGroup // the peer groups routed here
+
 	applied uint64 // readings applied, ever; read at commit tokens
 }
 
@@ -48,12 +53,13 @@ type histEntry struct {
 
 func newWorker(s *Service, idx int) *worker {
 	w := &worker{
-		s:    s,
-		idx:  idx,
-		in:   make(chan *workBatch, workQueueLen),
-		free: make(chan *workBatch, workQueueLen+2),
-		pool: make(chan *store.Batch, 2),
-		dec:  Decoder{MaxBytes: s.o.MaxPayload},
+		s:      s,
+		idx:    idx,
+		in:     make(chan *workBatch, workQueueLen),
+		free:   make(chan *workBatch, workQueueLen+2),
+		pool:   make(chan *store.Batch, 2),
+		dec:    Decoder{MaxBytes: s.o.MaxPayload},
+		groups: map[string]*peerGroup{},
 	}
 	w.pool <- new(store.Batch)
 	w.pool <- new(store.Batch)
@@ -147,6 +153,12 @@ func (w *worker) apply(j *job, limit int64) {
 		ref.st.sensor = sensor
 		w.s.sensorMade()
 	}
+	if len(rs) > 0 && !ref.st.joined {
+		ref.st.joined = true
+		if ref.group != "" {
+			w.join(ref, ref.group, specsOf(ref.st.sensor))
+		}
+	}
 	if len(rs) > 0 {
 		w.fold(ref, rs)
 	}
@@ -194,15 +206,32 @@ func (w *worker) fold(ref *sensorRef, rs []rolling.Reading) {
 	if m := w.s.o.Metrics; m != nil {
 		m.Applied.Add(float64(ok))
 	}
+	if st.member != nil {
+		w.peerApplied(st.member, rs)
+	}
 	if f := w.s.o.OnApplied; f != nil {
 		f(ref.id, rs)
 	}
 }
 
-// restartJob empties a sensor's windows; see Service.Restart.
+// specsOf returns the window specs of s.
+func specsOf(s *rolling.Sensor) []rolling.WindowSpec {
+	specs := make([]rolling.WindowSpec, s.Windows())
+	for i := range specs {
+		specs[i] = s.Spec(i)
+	}
+	return specs
+}
+
+// restartJob empties a sensor's windows, after applying a calibration
+// to its alert trackers when cal is set; see Service.Restart and
+// Service.Calibrate. done, if set, learns the outcome: an error at once,
+// or that of the commit storing it.
 type restartJob struct {
 	ref  *sensorRef
 	from int64
+	cal  *alert.Calibration
+	done func(error)
 }
 
 // errBeforeRestart is the cause of a reading refused because it is older
@@ -211,18 +240,29 @@ var errBeforeRestart = errors.New("ingest: reading older than the sensor's last 
 
 func (w *worker) restart(j *restartJob) {
 	st := j.ref.st
+	done := j.done
+	if done == nil {
+		done = func(error) {}
+	}
 	specs := st.windows
 	if st.sensor != nil {
-		specs = make([]rolling.WindowSpec, st.sensor.Windows())
-		for i := range specs {
-			specs[i] = st.sensor.Spec(i)
-		}
+		specs = specsOf(st.sensor)
 	}
 	fresh, err := rolling.NewSensor(specs...)
 	if err != nil {
 		w.s.log.Warn().Str("sensor", j.ref.id).Err(err).Msg("fits not restarted: windows refused")
+		done(fmt.Errorf("sensor %s: windows: %w", j.ref.id, err))
 		return
 	}
+	if j.cal != nil {
+		if err := w.calibrate(j.ref, *j.cal); err != nil {
+			done(err)
+			return
+		}
+		w.s.log.Info().Str("sensor", j.ref.id).Float64("as_found", j.cal.AsFound).Float64("as_left", j.cal.AsLeft).
+			Time("at", j.cal.Time).Bool("alert_rule", j.ref.st.alerts.entry[0] != nil).Msg("calibration recorded")
+	}
+	w.acks = append(w.acks, done)
 	if st.sensor == nil {
 		w.s.sensorMade()
 	}
@@ -242,8 +282,12 @@ func (w *worker) closePanes(ref *sensorRef, mask uint64) {
 			continue
 		}
 		w.hist = append(w.hist, histEntry{ref: ref, sol: ref.st.sensor.Solve(i)})
+		sol := &w.hist[len(w.hist)-1].sol
 		if f := w.s.o.OnPaneClose; f != nil {
-			f(ref.id, i, &w.hist[len(w.hist)-1].sol)
+			f(ref.id, i, sol)
+		}
+		if !ref.st.comparing() {
+			w.judge(ref, false, sol) // else judged on its deviation from the group
 		}
 	}
 }

@@ -283,6 +283,7 @@ func runCalibrated(ctx context.Context, args []string, _ io.Reader, stdout, stde
 	at := fs.String("at", "", "when the calibration was done: RFC 3339 or Unix seconds (default: now)")
 	servers := fs.String("servers", defaultAPIURL, "NATS `URL` of the running service")
 	prefix := fs.String("prefix", "driftfit.calibrations", "calibration subject prefix (bus.calibration_subject_prefix)")
+	force := fs.Bool("force", false, "record it even if the service has never seen SENSOR (a mistyped id is refused without it)")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "Usage: driftfit calibrated SENSOR --as-found V --as-left V [flags]\n\nRecords a calibration of SENSOR with the running service: closes its open\nrecalibration ticket, takes the as-left value as the new centre of the\ntolerance band and restarts its alert evaluation from that moment (the fit\nhistory is kept).\n\nFlags:")
 		fs.PrintDefaults()
@@ -313,7 +314,7 @@ func runCalibrated(ctx context.Context, args []string, _ io.Reader, stdout, stde
 		return fmt.Errorf("connect to the service at %s: %w", *servers, err)
 	}
 	defer nc.Close()
-	payload, err := json.Marshal(calibrationMsg{T: *at, AsFound: found, AsLeft: left})
+	payload, err := json.Marshal(ingest.CalibrationMsg{T: *at, AsFound: found, AsLeft: left, Force: *force})
 	if err != nil {
 		return err
 	}

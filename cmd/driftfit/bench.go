@@ -526,9 +526,6 @@ type benchPipeline struct {
 	cancel context.CancelFunc
 	done   chan error
 
-	stopAlerts context.CancelFunc
-	alertsDone chan struct{}
-
 	stopOnce sync.Once
 	stopErr  error
 }
@@ -548,27 +545,18 @@ func (e *benchEnv) startPipeline(ctx context.Context, cfg *configs.Config, path 
 	m := ingest.NewMetrics()
 	lg := e.log
 	// The probes raise alerts on purpose: keep them out of the log.
-	alerts, err := newAlerter(cfg, e.bus.nc, db, lg.Level(zerolog.ErrorLevel), webhookFromConfig(cfg))
-	if err != nil {
-		db.Close()
-		return nil, err
-	}
-	opts := ingestOptions(cfg, e.bus.nc, db, &lg, m)
+	quiet := lg.Level(zerolog.ErrorLevel)
+	opts := serviceOptions(cfg, e.bus.nc, db, &quiet, m)
 	opts.Mode, opts.SubjectPrefix, opts.StreamName = mode, prefix, stream
 	opts.RejectedSubject = "" // <prefix>.rejected
-	opts.OnPaneClose, opts.OnApplied = alerts.paneClosed, onApplied
+	opts.OnApplied = onApplied
 	svc, err := ingest.New(opts)
 	if err != nil {
 		db.Close()
 		return nil, err
 	}
 	runCtx, cancel := context.WithCancel(ctx)
-	// As in serve, the alerter outlives ingest.
-	alertCtx, stopAlerts := context.WithCancel(context.WithoutCancel(ctx))
-	p := &benchPipeline{svc: svc, db: db, m: m, opened: opened, cancel: cancel, done: make(chan error, 1),
-		stopAlerts: stopAlerts, alertsDone: make(chan struct{})}
-	go func() { defer close(p.alertsDone); alerts.run(alertCtx) }()
-	go alerts.deliver(runCtx)
+	p := &benchPipeline{svc: svc, db: db, m: m, opened: opened, cancel: cancel, done: make(chan error, 1)}
 	go func() { p.done <- svc.Run(runCtx) }()
 	return p, nil
 }
@@ -580,8 +568,6 @@ func (p *benchPipeline) stop() error {
 	p.stopOnce.Do(func() {
 		p.cancel()
 		err := <-p.done
-		p.stopAlerts()
-		<-p.alertsDone
 		p.stopErr = errors.Join(err, p.db.Close())
 	})
 	return p.stopErr

@@ -23,6 +23,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 	"github.com/rs/zerolog"
 
+	"driftfit/alert"
 	"driftfit/configs"
 	"driftfit/ingest"
 	"driftfit/rolling"
@@ -122,38 +123,16 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	}
 	defer stopAPI()
 
-	alerts, err := newAlerter(cfg, bus.nc, db, log, webhookFromConfig(cfg))
-	if err != nil {
-		return err
-	}
-	// Peer groups: members are judged on their deviation from the group.
-	var onApplied func(string, []rolling.Reading)
-	if len(cfg.Groups) > 0 {
-		alerts.peers = newPeers(cfg, alerts, log)
-		onApplied = alerts.peers.applied
-	}
+	opts := serviceOptions(cfg, bus.nc, db, &log, metrics)
 	var board *driftBoard
-	onPaneClose := alerts.paneClosed
 	if *demo {
 		board = newDriftBoard()
-		onPaneClose = func(id string, w int, sol *rolling.Solution) {
-			alerts.paneClosed(id, w, sol)
-			board.paneClosed(id, w, sol)
-		}
+		opts.OnPaneClose = board.paneClosed
 	}
-	opts := ingestOptions(cfg, bus.nc, db, &log, metrics)
-	opts.OnPaneClose, opts.OnApplied = onPaneClose, onApplied
 	svc, err := ingest.New(opts)
 	if err != nil {
 		return err
 	}
-	// A calibration restarts the sensor's fits from its time.
-	alerts.restart = svc.Restart
-	stopCal, err := alerts.subscribeCalibrations(cfg.Bus.CalibrationSubjectPrefix)
-	if err != nil {
-		return err
-	}
-	defer stopCal()
 
 	if cfg.HTTP.Addr != "off" {
 		stop, err := serveHTTP(cfg.HTTP.Addr, promhttp.HandlerFor(reg, promhttp.HandlerOpts{}), log, "metrics")
@@ -179,48 +158,54 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 
 	runCtx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	// The alerter outlives ingest: it stores what the last pane closes
-	// produced after ingest has stopped.
-	alertCtx, stopAlerts := context.WithCancel(context.Background())
-	alertsDone := make(chan struct{})
-	go func() { defer close(alertsDone); alerts.run(alertCtx) }()
-	go alerts.deliver(runCtx)
-	defer func() { stopAlerts(); <-alertsDone }()
 	demoDone := make(chan error, 1)
+	boardDone := make(chan struct{})
 	if *demo {
 		go func() {
 			demoDone <- publishDemo(runCtx, bus.nc, demoOptions{prefix: cfg.Bus.SubjectPrefix, live: true, bad: true}, log)
 		}()
-		go board.run(runCtx, 10*time.Second, 3, log.With().Str("component", "demo").Logger())
+		go func() {
+			defer close(boardDone)
+			board.run(runCtx, 10*time.Second, 3, log.With().Str("component", "demo").Logger())
+		}()
 	} else {
 		demoDone <- nil
+		close(boardDone)
 	}
+	// The caution travels in every event and ticket; the log says it once.
+	log.Info().Str("caution", alert.Caution).Msg("alert rules active")
 	err = svc.Run(runCtx)
 	cancel()
 	if derr := <-demoDone; derr != nil && !errors.Is(derr, context.Canceled) {
 		log.Error().Err(derr).Msg("demo feed")
 	}
+	<-boardDone
 	return err
 }
 
-// ingestOptions maps the configuration onto the service's options; the
-// caller adds the hooks.
-func ingestOptions(cfg *configs.Config, nc *nats.Conn, db *store.DB, log *zerolog.Logger, m *ingest.Metrics) ingest.Options {
+// serviceOptions maps the configuration onto the service's options:
+// serve and bench build their service from it alike.
+func serviceOptions(cfg *configs.Config, nc *nats.Conn, db *store.DB, log *zerolog.Logger, m *ingest.Metrics) ingest.Options {
 	return ingest.Options{
-		Conn:             nc,
-		DB:               db,
-		Sensor:           sensorConfig(cfg),
-		Mode:             ingestMode(cfg.Bus.Mode),
-		SubjectPrefix:    cfg.Bus.SubjectPrefix,
-		RejectedSubject:  cfg.Bus.RejectedSubject,
-		StreamName:       cfg.Bus.StreamName,
-		CommitInterval:   cfg.Store.CommitInterval,
-		CommitReadings:   cfg.Store.CommitReadings,
-		FutureSkew:       cfg.Bus.FutureSkew,
-		MaxPayload:       cfg.Bus.MaxPayloadBytes,
-		HistoryRetention: cfg.Store.HistoryRetention,
-		Logger:           log,
-		Metrics:          m,
+		Conn:                     nc,
+		DB:                       db,
+		Sensor:                   sensorConfig(cfg),
+		Rule:                     rules(cfg, log),
+		Mode:                     ingestMode(cfg.Bus.Mode),
+		SubjectPrefix:            cfg.Bus.SubjectPrefix,
+		RejectedSubject:          cfg.Bus.RejectedSubject,
+		StreamName:               cfg.Bus.StreamName,
+		AlertSubjectPrefix:       cfg.Bus.AlertSubjectPrefix,
+		TicketSubject:            cfg.Bus.TicketSubject,
+		CalibrationSubjectPrefix: cfg.Bus.CalibrationSubjectPrefix,
+		Webhook:                  webhookFromConfig(cfg),
+		CommitInterval:           cfg.Store.CommitInterval,
+		CommitReadings:           cfg.Store.CommitReadings,
+		FutureSkew:               cfg.Bus.FutureSkew,
+		MaxPayload:               cfg.Bus.MaxPayloadBytes,
+		HistoryRetention:         cfg.Store.HistoryRetention,
+		Logger:                   log,
+		Metrics:                  m,
 	}
 }
 
@@ -250,7 +235,7 @@ func sensorConfig(cfg *configs.Config) func(id string) (ingest.SensorConfig, err
 		if err != nil {
 			return ingest.SensorConfig{}, err
 		}
-		return ingest.SensorConfig{Windows: toSpecs(c.Windows), Unit: c.Unit}, nil
+		return ingest.SensorConfig{Windows: toSpecs(c.Windows), Unit: c.Unit, Group: c.Group}, nil
 	}
 }
 

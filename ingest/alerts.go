@@ -1,0 +1,242 @@
+package ingest
+
+import (
+	"encoding/binary"
+	"encoding/json"
+	"errors"
+	"strconv"
+	"time"
+
+	"driftfit/alert"
+	"driftfit/rolling"
+	"driftfit/store"
+)
+
+// peerKey is the suffix of the stored alert state of a member's peer
+// rule, judged on its deviation from its group.
+const peerKey = "~peers"
+
+// alertEntry is one alert tracker of a sensor: its own rule's, or its
+// peer rule's. The sensor's worker owns it.
+type alertEntry struct {
+	key      string // store key of its state: the id, or id + peerKey
+	tr       *alert.Tracker
+	lastEval map[rolling.WindowSpec]int64 // newest fit time evaluated, Unix ns
+}
+
+// alertState is the alert side of a sensor's state; the sensor's worker
+// owns it. made[i] says entry[i] was looked up (it may still be nil: no
+// rule); index 0 is the own rule, 1 the peer rule.
+type alertState struct {
+	made  [2]bool
+	entry [2]*alertEntry
+}
+
+// entry returns the sensor's tracker (peer: its peer rule's), making it
+// from the rule and any stored state on first use; nil when the sensor
+// has no rule.
+func (w *worker) entry(ref *sensorRef, peer bool) *alertEntry {
+	i := 0
+	if peer {
+		i = 1
+	}
+	as := &ref.st.alerts
+	if as.made[i] {
+		return as.entry[i]
+	}
+	as.made[i] = true
+	rule := w.s.o.Rule
+	if rule == nil {
+		return nil
+	}
+	r, ok := rule(ref.id)
+	if !ok {
+		return nil
+	}
+	key := ref.id
+	if peer {
+		key += peerKey
+		if ref.st.member != nil {
+			r.Class += " vs peer group " + ref.st.member.g.name
+		}
+		// The deviation from the peers starts at zero by construction:
+		// the tolerance band is centred there, whatever the as-left.
+		r.AsLeft, r.HasAsLeft = 0, true
+	}
+	tr, err := alert.NewTracker(ref.id, r)
+	if err != nil {
+		w.s.log.Warn().Str("sensor", ref.id).Err(err).Msg("alert rule refused")
+		return nil
+	}
+	e := &alertEntry{key: key, tr: tr, lastEval: map[rolling.WindowSpec]int64{}}
+	if st, ok := w.s.savedAlerts[key]; ok {
+		if err := e.decode(st); err != nil {
+			w.s.log.Warn().Str("sensor", ref.id).Err(err).Msg("stored alert state unreadable; starting afresh")
+			tr, _ = alert.NewTracker(ref.id, r)
+			e = &alertEntry{key: key, tr: tr, lastEval: map[rolling.WindowSpec]int64{}}
+		}
+	}
+	as.entry[i] = e
+	return e
+}
+
+// judge evaluates a window's new solution against the sensor's rule (or,
+// peer, its peer rule). The fit's newest reading time is the evaluation
+// time, so a replay judges the data as it happened, and a restart from
+// the stored position makes the same decisions again.
+func (w *worker) judge(ref *sensorRef, peer bool, sol *rolling.Solution) {
+	e := w.entry(ref, peer)
+	if e == nil || sol.N == 0 {
+		return
+	}
+	last := sol.Last.UnixNano()
+	if last <= e.lastEval[sol.Window] {
+		return // judged before a restart
+	}
+	d, err := e.tr.Evaluate(sol.Last, sol)
+	if errors.Is(err, alert.ErrUnknownWindow) || errors.Is(err, alert.ErrStale) {
+		return
+	}
+	if err != nil {
+		w.s.badLog.Warn().Str("sensor", ref.id).Err(err).Msg("alert evaluation")
+		return
+	}
+	e.lastEval[sol.Window] = last
+	w.decided(e, d)
+}
+
+// decided queues the entry's new state and the decision's events,
+// tickets and deliveries for the next commit.
+func (w *worker) decided(e *alertEntry, d alert.Decision) {
+	st, err := e.encode()
+	if err != nil {
+		w.s.log.Error().Str("sensor", e.key).Err(err).Msg("alert state not encoded")
+		return
+	}
+	out := store.AlertWrite{Sensor: e.key, State: st}
+	for _, ev := range d.Events {
+		data, err := json.Marshal(ev)
+		if err != nil {
+			w.s.log.Error().Str("sensor", e.key).Err(err).Msg("event not encoded")
+			continue
+		}
+		out.Events = append(out.Events, store.TimedValue{At: ev.At, Data: data})
+		out.Outbox = append(out.Outbox, store.OutboxItem{Lane: laneBus, Data: appendEnvelope(nil, envelope{
+			subject: w.s.alertPrefix + ev.Sensor, id: eventID(&ev), data: data,
+		})})
+	}
+	for _, tk := range []*alert.Ticket{d.Opened, d.Closed} {
+		if tk == nil {
+			continue
+		}
+		data, err := json.Marshal(tk)
+		if err != nil {
+			w.s.log.Error().Str("sensor", e.key).Err(err).Msg("ticket not encoded")
+			continue
+		}
+		if out.Tickets == nil {
+			out.Tickets = map[string][]byte{}
+		}
+		out.Tickets[tk.ID] = data
+		id := ticketRevisionID(tk)
+		out.Outbox = append(out.Outbox, store.OutboxItem{Lane: laneBus, Data: appendEnvelope(nil, envelope{
+			subject: w.s.o.TicketSubject, id: id, data: data,
+		})})
+		if w.s.o.Webhook.URL != "" {
+			out.Outbox = append(out.Outbox, store.OutboxItem{Lane: laneWebhook, Data: appendEnvelope(nil, envelope{id: id, data: data})})
+		}
+	}
+	w.outs = append(w.outs, out)
+	if len(out.Outbox) > 0 {
+		w.s.urge()
+	}
+}
+
+// eventID names an event for deduplication (Nats-Msg-Id): one
+// evaluation of a sensor's window yields at most one event of a kind.
+func eventID(ev *alert.Event) string {
+	return "ev|" + ev.Sensor + "|" + ev.Class + "|" + ev.Window + "|" + ev.Kind.String() + "|" + ev.Type.String() + "|" +
+		strconv.FormatInt(ev.At.UnixNano(), 10)
+}
+
+// ticketRevisionID names one revision of a ticket (its opening or its
+// closing) for deduplication: Nats-Msg-Id on the bus, Idempotency-Key for
+// the webhook.
+func ticketRevisionID(tk *alert.Ticket) string {
+	if tk.Calibration != nil {
+		return "tk|" + tk.ID + "|closed"
+	}
+	return "tk|" + tk.ID + "|opened"
+}
+
+// calibrate applies a calibration to the sensor's trackers (its own
+// rule's and, for a peer-group member, its peer rule's), which closes its
+// open ticket. A sensor without a rule has nothing to apply.
+func (w *worker) calibrate(ref *sensorRef, c alert.Calibration) error {
+	for i, peer := range []bool{false, true} {
+		if peer && ref.st.member == nil {
+			if _, stored := w.s.savedAlerts[ref.id+peerKey]; !stored {
+				continue
+			}
+		}
+		e := w.entry(ref, peer)
+		if e == nil {
+			continue
+		}
+		cc := c
+		if i == 1 {
+			cc.AsLeft = 0 // the peer deviation restarts from zero
+		}
+		d, err := e.tr.Calibrate(cc)
+		if err != nil {
+			return err
+		}
+		w.decided(e, d)
+	}
+	return nil
+}
+
+// encode stores the evaluation marks with the tracker's state, so that a
+// pane close replayed after a restart is not judged twice.
+func (e *alertEntry) encode() ([]byte, error) {
+	st, err := e.tr.MarshalBinary()
+	if err != nil {
+		return nil, err
+	}
+	b := binary.AppendUvarint(nil, uint64(len(e.lastEval)))
+	for w, t := range e.lastEval {
+		b = binary.AppendUvarint(b, uint64(w.Span))
+		b = binary.AppendUvarint(b, uint64(w.Pane))
+		b = binary.AppendVarint(b, t)
+	}
+	return append(b, st...), nil
+}
+
+func (e *alertEntry) decode(b []byte) error {
+	n, k := binary.Uvarint(b)
+	if k <= 0 || n > 64 {
+		return errors.New("bad evaluation marks")
+	}
+	b = b[k:]
+	for range n {
+		span, k1 := binary.Uvarint(b)
+		if k1 <= 0 {
+			return errors.New("bad evaluation mark")
+		}
+		pane, k2 := binary.Uvarint(b[k1:])
+		if k2 <= 0 {
+			return errors.New("bad evaluation mark")
+		}
+		t, k3 := binary.Varint(b[k1+k2:])
+		if k3 <= 0 {
+			return errors.New("bad evaluation mark")
+		}
+		e.lastEval[rolling.WindowSpec{Span: time.Duration(span), Pane: time.Duration(pane)}] = t
+		b = b[k1+k2+k3:]
+	}
+	return e.tr.UnmarshalBinary(b)
+}
+
+// urge asks the dispatcher to commit as soon as the committer is free: a
+// decision waits in a worker. Safe from any goroutine.
+func (s *Service) urge() { wake(s.wakeCommit) }
