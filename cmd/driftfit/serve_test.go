@@ -2,14 +2,19 @@ package main
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"math"
 	"math/rand/v2"
+	"net/http"
+	"net/http/httptest"
 	"os"
 	"os/exec"
 	"path/filepath"
 	"strings"
+	"sync"
 	"syscall"
 	"testing"
 	"time"
@@ -18,6 +23,7 @@ import (
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
+	"driftfit/alert"
 	"driftfit/ingest"
 	"driftfit/rolling"
 	"driftfit/store"
@@ -43,8 +49,8 @@ func startNATS(t *testing.T, dir string, port int) *server.Server {
 }
 
 // testConfig writes a configuration for sensors "crash.*" reading from
-// the server at url.
-func testConfig(t *testing.T, dir, url, mode string) string {
+// the server at url; extra is appended (YAML at the top level).
+func testConfig(t *testing.T, dir, url, mode string, extra ...string) string {
 	t.Helper()
 	cfg := fmt.Sprintf(`bus:
   servers: [%q]
@@ -57,8 +63,14 @@ classes:
     match: ["crash.*"]
     unit: kPa
     span: {lower: 0, upper: 1000}
-    tolerance: "1 kPa"
-`, url, mode, filepath.Join(dir, "data"))
+    tolerance: "5 kPa"
+    min_readings: 20
+    min_coverage: 0
+    debounce: 1
+    limits:
+      slope: {warning: "1 kPa/day", critical: "3 kPa/day"}
+      lead_time: {warning: 2d, critical: 12h}
+`, url, mode, filepath.Join(dir, "data")) + strings.Join(extra, "")
 	path := filepath.Join(dir, "driftfit.yaml")
 	if err := os.WriteFile(path, []byte(cfg), 0o600); err != nil {
 		t.Fatal(err)
@@ -90,7 +102,10 @@ func startChild(t *testing.T, logPath string, args ...string) *child {
 }
 
 // crashReadings are the test's readings in publish order: n sensors, each
-// with per readings an hour apart, interleaved, ending an hour ago.
+// with per readings an hour apart, interleaved, ending an hour ago. One
+// sensor in seven drifts at 4.8 kPa/day in 1 kPa of noise: past the
+// critical slope limit and out of tolerance within the run, so it raises
+// alerts and opens a ticket.
 func crashReadings(n, per int) (ids []string, rs []rolling.Reading, owner []int) {
 	end := time.Now().Add(-time.Hour).Truncate(time.Hour)
 	start := end.Add(-time.Duration(per) * time.Hour)
@@ -101,7 +116,10 @@ func crashReadings(n, per int) (ids []string, rs []rolling.Reading, owner []int)
 	for j := range per {
 		for i := range n {
 			at := start.Add(time.Duration(j)*time.Hour + time.Duration(rng.Int64N(int64(time.Hour))))
-			v := 500 + float64(i%7)*0.01*float64(j) + rng.NormFloat64()
+			v := 500 + float64(i%7)*0.001*float64(j) + rng.NormFloat64()
+			if i%7 == 0 {
+				v += 0.2 * float64(j)
+			}
 			rs = append(rs, rolling.Reading{UnixNano: at.UnixNano(), Value: v})
 			owner = append(owner, i)
 		}
@@ -111,9 +129,14 @@ func crashReadings(n, per int) (ids []string, rs []rolling.Reading, owner []int)
 
 // TestServe_CrashSafety kills a serving driftfit process with SIGKILL at
 // random moments while 200,000 readings for 1,000 sensors are published
-// to the stream, restarting it each time. After the last run the stored
-// fits must be bit-identical to feeding the same readings in order
-// through the engine, and the applied count must equal the published one.
+// to the stream, restarting it each time; drifting sensors raise alerts
+// and open tickets meanwhile, and the ticket webhook refuses everything
+// for its first seconds. After the last run the stored fits must be
+// bit-identical to feeding the same readings in order through the
+// engine, the applied count must equal the published one, every stored
+// event and ticket must have been published on the bus under one stable
+// Nats-Msg-Id, and every ticket must have reached the webhook, each
+// revision under one Idempotency-Key.
 func TestServe_CrashSafety(t *testing.T) {
 	if testing.Short() {
 		t.Skip("starts and kills driftfit processes")
@@ -123,7 +146,10 @@ func TestServe_CrashSafety(t *testing.T) {
 	rng := rand.New(rand.NewPCG(seed, 1))
 	dir := t.TempDir()
 	ns := startNATS(t, filepath.Join(dir, "nats"), 0)
-	cfg := testConfig(t, dir, ns.ClientURL(), "stream")
+	hook := newHookRecorder(3 * time.Second)
+	defer hook.Close()
+	cfg := testConfig(t, dir, ns.ClientURL(), "stream", fmt.Sprintf("tickets:\n  webhook:\n    url: %q\n    max_backoff: 200ms\n", hook.URL))
+	bus := newBusRecorder(t, ns.ClientURL(), "driftfit.alerts.>", "driftfit.tickets")
 	logPath := filepath.Join(dir, "serve.log")
 	args := []string{"serve", "--config", cfg, "--http-addr", "off", "--log-level", "warn"}
 
@@ -215,6 +241,7 @@ func TestServe_CrashSafety(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer db.Close()
+	checkPublished(t, db, bus, hook)
 	applied, err := db.Applied()
 	if err != nil || applied != uint64(len(rs)) {
 		t.Errorf("applied = %d (%v), published %d", applied, err, len(rs))
@@ -304,3 +331,250 @@ func readTail(path string) string {
 }
 
 var _ = context.Background
+
+// busRecorder keeps every message seen on some subjects, by payload.
+type busRecorder struct {
+	mu  sync.Mutex
+	ids map[string][]string // payload → the Nats-Msg-Id of each delivery
+}
+
+func newBusRecorder(t *testing.T, url string, subjects ...string) *busRecorder {
+	t.Helper()
+	nc, err := nats.Connect(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	r := &busRecorder{ids: map[string][]string{}}
+	for _, subj := range subjects {
+		if _, err := nc.Subscribe(subj, func(m *nats.Msg) {
+			r.mu.Lock()
+			r.ids[string(m.Data)] = append(r.ids[string(m.Data)], m.Header.Get(nats.MsgIdHdr))
+			r.mu.Unlock()
+		}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := nc.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	return r
+}
+
+// hookRecorder is a ticket webhook that refuses everything for outage
+// from its first request on, then keeps each body by Idempotency-Key.
+type hookRecorder struct {
+	*httptest.Server
+	mu      sync.Mutex
+	byKey   map[string][]string // key → bodies
+	refused int
+}
+
+func newHookRecorder(outage time.Duration) *hookRecorder {
+	h := &hookRecorder{byKey: map[string][]string{}}
+	var until time.Time
+	h.Server = httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		body, _ := io.ReadAll(r.Body)
+		h.mu.Lock()
+		defer h.mu.Unlock()
+		if until.IsZero() {
+			until = time.Now().Add(outage)
+		}
+		if time.Now().Before(until) {
+			h.refused++
+			http.Error(w, "receiver starting", http.StatusServiceUnavailable)
+			return
+		}
+		k := r.Header.Get(ingest.HeaderIdempotency)
+		h.byKey[k] = append(h.byKey[k], string(body))
+	}))
+	return h
+}
+
+// checkPublished checks that every event and ticket stored in db went out
+// on the bus under one stable id, and every ticket revision reached the
+// webhook under one stable key; repeats (a send again after a crash)
+// must be exact, so a receiver can drop them by id.
+func checkPublished(t *testing.T, db *store.DB, bus *busRecorder, hook *hookRecorder) {
+	t.Helper()
+	deadline := time.Now().Add(30 * time.Second)
+	var missing []string
+	for {
+		missing = missing[:0]
+		var events, tickets int
+		seen := map[string]bool{}
+		bus.mu.Lock()
+		_ = db.Events(time.Time{}, time.Time{}, func(_ time.Time, d []byte) error {
+			events++
+			if seen[string(d)] {
+				t.Errorf("event stored twice (a decision made again after a crash): %s", d)
+			}
+			seen[string(d)] = true
+			if ids := bus.ids[string(d)]; len(ids) == 0 {
+				missing = append(missing, "event "+string(d))
+			}
+			return nil
+		})
+		_ = db.Tickets(func(id string, d []byte) error {
+			tickets++
+			if ids := bus.ids[string(d)]; len(ids) == 0 {
+				missing = append(missing, "ticket "+id)
+			}
+			return nil
+		})
+		bus.mu.Unlock()
+		if len(missing) == 0 {
+			if events == 0 || tickets == 0 {
+				t.Fatalf("%d events and %d tickets stored: the drifting sensors should have raised some", events, tickets)
+			}
+			t.Logf("%d events and %d tickets stored, all published", events, tickets)
+			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("%d stored but never published, e.g. %s", len(missing), missing[0])
+		}
+		time.Sleep(50 * time.Millisecond)
+	}
+	bus.mu.Lock()
+	repeats := 0
+	for body, ids := range bus.ids {
+		for _, id := range ids {
+			if id == "" || id != ids[0] {
+				t.Errorf("payload published under ids %q: %s", ids, body)
+				break
+			}
+		}
+		repeats += len(ids) - 1
+	}
+	bus.mu.Unlock()
+	t.Logf("%d publications repeated after a crash, each under its first id", repeats)
+
+	var stored []alert.Ticket
+	_ = db.Tickets(func(_ string, d []byte) error {
+		var tk alert.Ticket
+		if err := json.Unmarshal(d, &tk); err != nil {
+			t.Fatal(err)
+		}
+		stored = append(stored, tk)
+		return nil
+	})
+	deadline = time.Now().Add(30 * time.Second)
+	for {
+		hook.mu.Lock()
+		got := map[string]bool{}
+		bad := ""
+		for k, bodies := range hook.byKey {
+			for _, b := range bodies {
+				if b != bodies[0] {
+					bad = k
+				}
+			}
+			var tk alert.Ticket
+			if err := json.Unmarshal([]byte(bodies[0]), &tk); err == nil {
+				got[tk.ID] = true
+			}
+		}
+		refused := hook.refused
+		hook.mu.Unlock()
+		if bad != "" {
+			t.Fatalf("webhook key %q came with different bodies", bad)
+		}
+		n := 0
+		for _, tk := range stored {
+			if got[tk.ID] {
+				n++
+			}
+		}
+		if n == len(stored) {
+			t.Logf("webhook: all %d tickets delivered, %d posts refused during the outage", n, refused)
+			if refused == 0 {
+				t.Error("the webhook refused nothing: the outage did not happen")
+			}
+			return
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("webhook has %d of %d stored tickets", n, len(stored))
+		}
+		time.Sleep(50 * time.Millisecond)
+	}
+}
+
+// TestServe_CalibrationDurableBeforeReply records a calibration with a
+// running serve and kills it with SIGKILL the moment the reply arrives:
+// after a restart the calibration must be in effect (the fits restarted
+// at its time, the open ticket closed), as the reply promises it is
+// stored.
+func TestServe_CalibrationDurableBeforeReply(t *testing.T) {
+	if testing.Short() {
+		t.Skip("starts and kills driftfit processes")
+	}
+	dir := t.TempDir()
+	ns := startNATS(t, filepath.Join(dir, "nats"), 0)
+	cfg := testConfig(t, dir, ns.ClientURL(), "stream")
+	logPath := filepath.Join(dir, "serve.log")
+	args := []string{"serve", "--config", cfg, "--http-addr", "off", "--log-level", "warn"}
+	js := readingStream(t, ns.ClientURL())
+	ids, rs, owner := crashReadings(7, 100) // crash.s0000 drifts and opens a ticket
+	for i, r := range rs {
+		if _, err := js.Publish(t.Context(), "driftfit.in."+ids[owner[i]], ingest.AppendReading(nil, ingest.Decoded{Reading: r})); err != nil {
+			t.Fatal(err)
+		}
+	}
+	nc, err := nats.Connect(ns.ClientURL())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	tickets, err := nc.SubscribeSync("driftfit.tickets")
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := startChild(t, logPath, args...)
+	if _, err := tickets.NextMsg(30 * time.Second); err != nil {
+		t.Fatalf("no ticket: %v; log:\n%s", err, readTail(logPath))
+	}
+	at := time.Unix(0, rs[len(rs)-1].UnixNano).Add(time.Minute).UTC().Truncate(time.Second)
+	body := fmt.Sprintf(`{"t": %q, "as_found": 502.5, "as_left": 500.0}`, at.Format(time.RFC3339))
+	reply, err := nc.Request("driftfit.calibrations.crash.s0000", []byte(body), 10*time.Second)
+	if err != nil || string(reply.Data) != `{"ok":true}` {
+		t.Fatalf("calibration reply %v, %v", reply, err)
+	}
+	if err := c.cmd.Process.Signal(syscall.SIGKILL); err != nil {
+		t.Fatal(err)
+	}
+	<-c.done
+
+	db, err := store.Open(filepath.Join(dir, "data", dbFile), store.Options{ReadOnly: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	var restart int64 = -1
+	specs := []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}, {Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}}
+	err = db.Restore(func(string) (*rolling.Sensor, error) { return rolling.NewSensor(specs...) }, func(r store.Restored) error {
+		if r.ID == "crash.s0000" {
+			restart = r.Restart
+			if sol := r.Sensor.Solve(0); sol.N != 0 {
+				t.Errorf("crash.s0000 holds %d readings after its calibration, want its fits restarted", sol.N)
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if restart != at.UnixNano() {
+		t.Errorf("stored restart of crash.s0000 = %v, want the calibration time %v", time.Unix(0, restart).UTC(), at)
+	}
+	closed := false
+	_ = db.Tickets(func(_ string, d []byte) error {
+		var tk alert.Ticket
+		if json.Unmarshal(d, &tk) == nil && tk.Sensor == "crash.s0000" && tk.Calibration != nil && tk.Calibration.AsFound == 502.5 {
+			closed = true
+		}
+		return nil
+	})
+	if !closed {
+		t.Error("the ticket of crash.s0000 is not closed by the calibration after the kill")
+	}
+}
