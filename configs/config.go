@@ -126,6 +126,10 @@ type Store struct {
 	// CommitReadings commits early after this many applied readings.
 	// Default 1000000.
 	CommitReadings int
+	// CommitMaxSensors bounds the sensors one commit writes, besides those
+	// with an alert decision or calibration waiting, so decisions are not
+	// held up by a commit of the whole fleet. Default 20000.
+	CommitMaxSensors int
 	// HistoryRetention is how long fit history is kept. Default 400d
 	// (more than a year, so a yearly calibration cycle can be compared with
 	// the one before). Zero written in the file keeps history forever.

@@ -457,10 +457,11 @@ func (d *decoder) bus(n ast.Node, path string, b *Bus) {
 
 func (d *decoder) store(n ast.Node, path string, s *Store) {
 	d.fields(n, path, map[string]handler{
-		"dir":               d.str(&s.Dir),
-		"commit_interval":   d.duration(&s.CommitInterval),
-		"commit_readings":   d.integer(&s.CommitReadings),
-		"history_retention": d.duration(&s.HistoryRetention),
+		"dir":                d.str(&s.Dir),
+		"commit_interval":    d.duration(&s.CommitInterval),
+		"commit_readings":    d.integer(&s.CommitReadings),
+		"commit_max_sensors": d.integer(&s.CommitMaxSensors),
+		"history_retention":  d.duration(&s.HistoryRetention),
 	})
 }
 

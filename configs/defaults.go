@@ -16,6 +16,7 @@ const (
 	defaultStoreDir                 = "./data"
 	defaultCommitInterval           = time.Second
 	defaultCommitReadings           = 1000000
+	defaultCommitMaxSensors         = 20000
 	defaultHistoryRetention         = 400 * Day
 	defaultHTTPAddr                 = "127.0.0.1:9464"
 	defaultMinReadings              = 30
@@ -84,6 +85,7 @@ func (c *Config) applyDefaults() {
 	str(&s.Dir, "store.dir", defaultStoreDir)
 	dur(&s.CommitInterval, "store.commit_interval", defaultCommitInterval)
 	num(&s.CommitReadings, "store.commit_readings", defaultCommitReadings)
+	num(&s.CommitMaxSensors, "store.commit_max_sensors", defaultCommitMaxSensors)
 	dur(&s.HistoryRetention, "store.history_retention", defaultHistoryRetention)
 
 	str(&c.HTTP.Addr, "http.addr", defaultHTTPAddr)

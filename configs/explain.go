@@ -70,7 +70,8 @@ func (c *Config) Explain(w io.Writer) {
 	s := &c.Store
 	p("\nstore\n")
 	p("  dir:             %s\n", s.Dir)
-	p("  commit:          every %s or %d readings\n", FormatDuration(s.CommitInterval), s.CommitReadings)
+	p("  commit:          every %s or %d readings, at most %d sensors a commit besides those with a decision\n",
+		FormatDuration(s.CommitInterval), s.CommitReadings, s.CommitMaxSensors)
 	if s.HistoryRetention == 0 {
 		p("  fit history:     kept forever\n")
 	} else {

@@ -344,6 +344,9 @@ func (v *validator) store() {
 	if s.CommitInterval <= 0 {
 		v.add("store.commit_interval", FormatDuration(s.CommitInterval), ErrRange, "must be > 0")
 	}
+	if s.CommitMaxSensors <= 0 {
+		v.add("store.commit_max_sensors", strconv.Itoa(s.CommitMaxSensors), ErrRange, "must be > 0")
+	}
 	if s.CommitReadings <= 0 {
 		v.add("store.commit_readings", strconv.Itoa(s.CommitReadings), ErrRange, "must be > 0")
 	}

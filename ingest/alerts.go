@@ -102,18 +102,18 @@ func (w *worker) judge(ref *sensorRef, peer bool, sol *rolling.Solution) {
 		return
 	}
 	e.lastEval[sol.Window] = last
-	w.decided(e, d)
+	w.decided(ref, e, d)
 }
 
 // decided queues the entry's new state and the decision's events,
-// tickets and deliveries for the next commit.
-func (w *worker) decided(e *alertEntry, d alert.Decision) {
-	st, err := e.encode()
+// tickets and deliveries for the commit that stores the sensor.
+func (w *worker) decided(ref *sensorRef, e *alertEntry, d alert.Decision) {
+	state, err := e.encode()
 	if err != nil {
 		w.s.log.Error().Str("sensor", e.key).Err(err).Msg("alert state not encoded")
 		return
 	}
-	out := store.AlertWrite{Sensor: e.key, State: st}
+	out := store.AlertWrite{Sensor: e.key, State: state}
 	for _, ev := range d.Events {
 		data, err := json.Marshal(ev)
 		if err != nil {
@@ -146,8 +146,11 @@ func (w *worker) decided(e *alertEntry, d alert.Decision) {
 			out.Outbox = append(out.Outbox, store.OutboxItem{Lane: laneWebhook, Data: appendEnvelope(nil, envelope{id: id, data: data})})
 		}
 	}
-	w.outs = append(w.outs, out)
+	st := ref.st
+	st.outs = append(st.outs, out)
+	w.mark(ref)
 	if len(out.Outbox) > 0 {
+		st.urgent = true
 		w.s.urge()
 	}
 }
@@ -191,7 +194,7 @@ func (w *worker) calibrate(ref *sensorRef, c alert.Calibration) error {
 		if err != nil {
 			return err
 		}
-		w.decided(e, d)
+		w.decided(ref, e, d)
 	}
 	return nil
 }

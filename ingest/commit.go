@@ -10,23 +10,41 @@ import (
 )
 
 // commitToken travels down every worker queue behind the readings of one
-// commit; each worker answers with a snapshot of what changed.
+// commit; each worker answers with a snapshot of what changed. all asks
+// for every changed sensor, whatever the budget (the last commit).
 type commitToken struct {
 	parts chan part
+	all   bool
 }
 
 type part struct {
-	w       *worker
-	batch   *store.Batch
-	applied uint64
-	acks    []func(error) // told the commit's outcome
+	w     *worker
+	batch *store.Batch
+	saved uint64        // readings the worker's snapshots hold, ever
+	acks  []func(error) // told the commit's outcome
+	// pending is the least stream sequence a sensor left out of the
+	// snapshot holds unsaved; 0: none. left counts those sensors.
+	pending uint64
+	left    int
 	err     error
 }
 
+// ackMark is a stream message the committer can acknowledge once the
+// stored position reaches its sequence (acknowledging one acknowledges
+// every message before it).
+type ackMark struct {
+	seq uint64
+	msg jetstream.Msg
+}
+
+// ackEvery is how many stream messages pass between two ack marks: the
+// acknowledgement may lag the stored position by up to that many.
+const ackEvery = 64
+
 type commitReq struct {
 	tok      *commitToken
-	pos      uint64 // stream position the state corresponds to; 0 in direct mode
-	ack      jetstream.Msg
+	pos      uint64    // stream position of the cut; 0 in direct mode
+	marks    []ackMark // taken since the last commit, oldest first
 	issued   time.Time
 	finished chan struct{} // closed once the commit is written (or failed)
 }
@@ -37,15 +55,21 @@ type commitReq struct {
 // transaction. It blocks while a commit is queued behind the one
 // writing, which is what bounds the work in flight; Run asks
 // committerFree first, except for the last commit.
-func (s *Service) commit() *commitReq {
+func (s *Service) commit() *commitReq { return s.commitCut(false) }
+
+func (s *Service) commitCut(all bool) *commitReq {
 	s.flush()
-	tok := &commitToken{parts: make(chan part, len(s.workers))}
+	tok := &commitToken{parts: make(chan part, len(s.workers)), all: all}
 	for _, w := range s.workers {
 		w.in <- &workBatch{token: tok}
 	}
 	req := commitReq{tok: tok, issued: time.Now(), finished: make(chan struct{})}
 	if s.o.Mode == ModeStream {
-		req.pos, req.ack = s.lastSeq, s.lastMsg
+		req.pos = s.lastSeq
+		if s.lastMsg != nil && (len(s.marks) == 0 || s.marks[len(s.marks)-1].seq != s.lastSeq) {
+			s.marks = append(s.marks, ackMark{s.lastSeq, s.lastMsg})
+		}
+		req.marks, s.marks = s.marks, nil
 	}
 	s.commits <- req
 	s.commitBase, s.sinceAck, s.dirty, s.urgent = s.applied.Load(), 0, false, false
@@ -63,28 +87,35 @@ func (s *Service) commit() *commitReq {
 func (s *Service) committerFree() bool { return len(s.commits) < cap(s.commits) }
 
 // snapshot answers a commit token: the changed panes, specs and horizons
-// of the sensors touched since the last token, and the fits recorded at
-// pane closes.
+// of the sensors touched since their last snapshot, with their alert
+// decisions, and the fits recorded at pane closes. It takes every sensor
+// with a decision or a calibration waiting, and of the others at most the
+// worker's share of CommitMaxSensors, oldest change first; the rest wait
+// for the next token. A commit's time grows with the sensors it writes,
+// so the budget is what keeps a decision from waiting seconds behind a
+// commit of the whole fleet.
 func (w *worker) snapshot(tok *commitToken) {
 	b := <-w.pool
 	var err error
+	budget := w.s.budget
+	rest := w.touch[:0]
+	var pending uint64
 	for _, ref := range w.touch {
-		ref.st.touched = false
-		if ref.st.dropped {
-			ref.st.dropped = false
-			if e := b.DropPanes(ref.id); e != nil && err == nil {
-				err = fmt.Errorf("sensor %s: %w", ref.id, e)
+		st := ref.st
+		if !tok.all && !st.urgent && budget <= 0 {
+			rest = append(rest, ref)
+			if st.firstSeq != 0 && (pending == 0 || st.firstSeq < pending) {
+				pending = st.firstSeq
 			}
-			if e := b.SetRestart(ref.id, ref.st.since); e != nil && err == nil {
-				err = fmt.Errorf("sensor %s: %w", ref.id, e)
-			}
+			continue
 		}
-		if e := b.Sensor(ref.id, ref.st.sensor); e != nil && err == nil {
-			err = fmt.Errorf("sensor %s: %w", ref.id, e)
+		budget--
+		if e := w.save(b, ref); e != nil && err == nil {
+			err = e
 		}
 	}
-	clear(w.touch)
-	w.touch = w.touch[:0]
+	clear(w.touch[len(rest):])
+	w.touch = rest
 	for i := range w.hist {
 		h := &w.hist[i]
 		if e := b.Record(h.ref.id, &h.sol); e != nil && err == nil {
@@ -93,41 +124,82 @@ func (w *worker) snapshot(tok *commitToken) {
 	}
 	clear(w.hist)
 	w.hist = w.hist[:0]
-	for _, out := range w.outs {
-		if e := b.Alerts(out); e != nil && err == nil {
-			err = fmt.Errorf("alert state of %s: %w", out.Sensor, e)
+	var acks []func(error)
+	for _, a := range w.taken {
+		acks = append(acks, a...)
+	}
+	clear(w.taken)
+	w.taken = w.taken[:0]
+	tok.parts <- part{w: w, batch: b, saved: w.saved, acks: acks, pending: pending, left: len(rest), err: err}
+}
+
+// save puts one sensor's changes into b and clears its marks.
+func (w *worker) save(b *store.Batch, ref *sensorRef) error {
+	st := ref.st
+	var err error
+	keep := func(e error) {
+		if e != nil && err == nil {
+			err = fmt.Errorf("sensor %s: %w", ref.id, e)
 		}
 	}
-	clear(w.outs)
-	w.outs = w.outs[:0]
-	acks := w.acks
-	w.acks = nil
-	tok.parts <- part{w: w, batch: b, applied: w.applied, acks: acks, err: err}
+	if st.dropped {
+		st.dropped = false
+		keep(b.DropPanes(ref.id))
+		keep(b.SetRestart(ref.id, st.since))
+	}
+	keep(b.Sensor(ref.id, st.sensor))
+	if st.lastSeq != 0 && st.lastSeq != st.savedSeq {
+		keep(b.SetSeq(ref.id, st.lastSeq))
+		st.savedSeq = st.lastSeq
+	}
+	for _, out := range st.outs {
+		keep(b.Alerts(out))
+	}
+	clear(st.outs)
+	st.outs = st.outs[:0]
+	if len(st.acks) > 0 {
+		w.taken = append(w.taken, st.acks)
+		st.acks = nil
+	}
+	w.saved += st.unsaved
+	st.touched, st.urgent, st.firstSeq, st.unsaved = false, false, 0, 0
+	return err
 }
 
 // committer writes commits in order, then acknowledges them on the bus.
 // It is the only writer of the DB while the service runs.
 func (s *Service) committer() {
 	var pruneNext time.Time
-	var acked uint64
+	var marks []ackMark
+	stored := s.position.Load()
 	for req := range s.commits {
 		parts := make([]part, 0, len(s.workers))
 		applied := s.appliedBase
+		pos := req.pos
+		left := 0
 		var err error
 		for range s.workers {
 			p := <-req.tok.parts
 			parts = append(parts, p)
-			applied += p.applied
+			applied += p.saved
+			left += p.left
+			if p.pending != 0 && p.pending <= pos {
+				pos = p.pending - 1 // a sensor left out holds that message unsaved
+			}
 			if p.err != nil && err == nil {
 				err = p.err
 			}
 		}
+		marks = append(marks, req.marks...)
 		batches := make([]*store.Batch, len(parts))
 		for i := range parts {
 			batches[i] = parts[i].batch
 		}
-		if req.pos != 0 {
-			batches[0].SetPosition(req.pos)
+		if pos < stored {
+			pos = stored // a position never moves back
+		}
+		if pos != 0 {
+			batches[0].SetPosition(pos)
 		}
 		batches[0].SetApplied(applied)
 		for _, it := range s.outbox.takeDone() {
@@ -142,7 +214,7 @@ func (s *Service) committer() {
 			p.w.pool <- p.batch
 		}
 		if err != nil {
-			err = fmt.Errorf("ingest: commit at position %d: %w", req.pos, err)
+			err = fmt.Errorf("ingest: commit at position %d: %w", pos, err)
 			for _, p := range parts {
 				for _, a := range p.acks {
 					a(err)
@@ -162,19 +234,26 @@ func (s *Service) committer() {
 			}
 		}
 		took := time.Since(t0)
-		if req.pos != 0 {
-			s.position.Store(req.pos)
+		if pos != 0 {
+			s.position.Store(pos)
+			stored = pos
 		}
 		if m := s.o.Metrics; m != nil {
 			m.CommitTime.Observe(took.Seconds())
 			m.CommitBytes.Add(float64(st.Bytes))
 		}
-		s.log.Debug().Uint64("position", req.pos).Int("bytes", st.Bytes).Int("puts", st.Puts).Dur("took", took).Msg("committed")
-		if req.ack != nil && req.pos > acked {
-			acked = req.pos
-			if err := req.ack.Ack(); err != nil {
-				s.log.Warn().Err(err).Uint64("position", req.pos).Msg("acknowledgement not sent")
+		s.log.Debug().Uint64("position", pos).Int("bytes", st.Bytes).Int("puts", st.Puts).Dur("took", took).Msg("committed")
+		// Acknowledge the newest mark the stored position covers: the bus
+		// may then forget what the file holds.
+		n := 0
+		for n < len(marks) && marks[n].seq <= pos {
+			n++
+		}
+		if n > 0 {
+			if err := marks[n-1].msg.Ack(); err != nil {
+				s.log.Warn().Err(err).Uint64("position", marks[n-1].seq).Msg("acknowledgement not sent")
 			}
+			marks = append(marks[:0], marks[n:]...)
 		}
 		if r := s.o.HistoryRetention; r > 0 && !time.Now().Before(pruneNext) {
 			n, more, err := s.o.DB.PruneHistory(s.o.Now().Add(-r), 500)
@@ -191,6 +270,7 @@ func (s *Service) committer() {
 				s.log.Debug().Int("n", n).Msg("old fit history deleted")
 			}
 		}
+		s.backlog.Store(left > 0)
 		close(req.finished)
 		wake(s.freed)
 	}

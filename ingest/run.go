@@ -68,7 +68,7 @@ type sensorState struct {
 	// it accepts; nil until then.
 	sensor  *rolling.Sensor
 	windows []rolling.WindowSpec
-	touched bool // listed in the worker's touched since the last commit
+	touched bool // listed in the worker's touched since its last snapshot
 	// since refuses readings older than the sensor's last restart (a
 	// calibration), Unix ns; 0: none. It is stored, so it holds across
 	// restarts of the service. dropped asks the next commit to delete the
@@ -79,6 +79,18 @@ type sensorState struct {
 	alerts alertState
 	member *peerMember // nil: not (yet) in a peer group
 	joined bool        // the worker looked at the sensor's group
+
+	// Stream sequences (0 in direct mode): savedSeq of the last message
+	// the stored state holds, lastSeq of the last one folded in, firstSeq
+	// of the first one folded in since the last snapshot (0: none).
+	// unsaved counts the readings applied since the last snapshot.
+	savedSeq, lastSeq, firstSeq uint64
+	unsaved                     uint64
+	// Decisions and calibration answers waiting for the commit that
+	// stores the sensor: they go into the same transaction as its state.
+	outs   []store.AlertWrite
+	acks   []func(error)
+	urgent bool // snapshot at the next commit token, whatever the budget
 }
 
 // Service reads readings from NATS into per-sensor fits and commits them
@@ -97,8 +109,10 @@ type Service struct {
 	pending    []*workBatch // per worker, being filled
 	lastMsg    jetstream.Msg
 	lastSeq    uint64
-	commitBase uint64 // applied at the last commit
-	sinceAck   int    // stream messages taken since the last commit
+	marks      []ackMark // sampled since the last commit
+	budget     int       // sensors a worker snapshots at a token, besides urgent ones
+	commitBase uint64    // applied at the last commit
+	sinceAck   int       // stream messages taken since the last commit
 	dirty      bool
 
 	commits chan commitReq
@@ -117,6 +131,9 @@ type Service struct {
 	// appliedBase is the applied count of the restored state; the
 	// workers count from zero on top of it.
 	appliedBase uint64
+
+	// backlog says the last commit left changed sensors for the next.
+	backlog atomic.Bool
 
 	messages, applied, rejected atomic.Uint64
 	position                    atomic.Uint64
@@ -144,6 +161,7 @@ func New(o Options) (*Service, error) {
 		freed:       make(chan struct{}, 1),
 	}
 	s.outbox = newOutbox(s)
+	s.budget = max(1, o.CommitMaxSensors/o.Workers)
 	s.badLog = s.log.Sample(&zerolog.BurstSampler{Burst: 10, Period: 10 * time.Second})
 	for i := range o.Workers {
 		s.workers = append(s.workers, newWorker(s, i))
@@ -234,12 +252,17 @@ loop:
 				s.commit()
 			}
 		case <-tick.C:
-			if (s.dirty || s.outbox.pendingDone()) && s.committerFree() {
+			if (s.dirty || s.backlog.Load() || s.outbox.pendingDone()) && s.committerFree() {
 				s.commit()
 			}
 		case <-s.wakeCommit:
 			s.urgent = true
 		case <-s.freed:
+			// Sensors left out by the budget go in the next commit at
+			// once, so the stored position keeps up.
+			if s.backlog.Load() && s.committerFree() {
+				s.commit()
+			}
 		case req := <-s.control:
 			s.controlled(req)
 		case runErr = <-s.fatal:
@@ -280,9 +303,9 @@ loop:
 		}
 	}
 	if runErr == nil {
-		<-s.commit().finished
+		<-s.commitCut(true).finished
 		if s.outbox.flushed(s.o.StopTimeout) && s.outbox.pendingDone() {
-			<-s.commit().finished
+			<-s.commitCut(true).finished
 		}
 	}
 	stopAll()
@@ -333,7 +356,8 @@ func (s *Service) restore() error {
 			s.log.Info().Str("sensor", r.ID).Msg("windows changed since the state was saved; panes of kept widths carried over")
 		}
 		dropped += r.Dropped
-		s.addRef(r.ID, cfgs[r.ID], r.Sensor).st.since = r.Restart
+		st := s.addRef(r.ID, cfgs[r.ID], r.Sensor).st
+		st.since, st.savedSeq, st.lastSeq = r.Restart, r.Seq, r.Seq
 		return nil
 	})
 	if err != nil {
@@ -511,6 +535,9 @@ func (s *Service) handle(m message) {
 			return // a redelivery of a message already applied
 		}
 		s.lastSeq, s.lastMsg = m.seq, m.js
+		if m.seq%ackEvery == 0 {
+			s.marks = append(s.marks, ackMark{m.seq, m.js})
+		}
 		s.sinceAck++
 		s.dirty = true
 		if mt := s.o.Metrics; mt != nil {
@@ -535,7 +562,7 @@ func (s *Service) handle(m message) {
 		return
 	}
 	b := s.batchFor(ref.worker)
-	b.jobs = append(b.jobs, job{ref: ref, data: m.data})
+	b.jobs = append(b.jobs, job{ref: ref, data: m.data, seq: m.seq})
 	s.dirty = true
 	if len(b.jobs) >= jobsPerBatch {
 		s.flushWorker(ref.worker)

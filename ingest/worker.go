@@ -16,6 +16,7 @@ import (
 type job struct {
 	ref  *sensorRef
 	data []byte // the payload, owned by the job
+	seq  uint64 // stream sequence; 0 in direct mode
 }
 
 // workBatch is one hand-off from the dispatcher to a worker: jobs to
@@ -39,11 +40,10 @@ type worker struct {
 	rs    []rolling.Reading // the accepted readings of one message
 	warm  uint64            // keeps Sensor.Warm's loads
 
-	outs   []store.AlertWrite    // alert decisions since the last token
-	acks   []func(error)         // calibrations waiting for their commit
 	groups map[string]*peerGroup // the peer groups routed here
+	taken  [][]func(error)       // answers of the sensors in the snapshot being made
 
-	applied uint64 // readings applied, ever; read at commit tokens
+	saved uint64 // readings applied and snapshotted, ever; read at commit tokens
 }
 
 type histEntry struct {
@@ -109,6 +109,9 @@ func (w *worker) run() {
 // Refused input goes to the dead letters; the rest is kept.
 func (w *worker) apply(j *job, limit int64) {
 	ref := j.ref
+	if j.seq != 0 && j.seq <= ref.st.savedSeq {
+		return // held by the sensor's stored state, which a commit wrote ahead of the position
+	}
 	p, err := w.dec.Decode(j.data)
 	if err != nil {
 		reason := ReasonMalformed
@@ -160,7 +163,7 @@ func (w *worker) apply(j *job, limit int64) {
 		}
 	}
 	if len(rs) > 0 {
-		w.fold(ref, rs)
+		w.fold(ref, rs, j.seq)
 	}
 	if len(rejects) > 0 {
 		w.s.deadLetter(w.s.prefix+ref.id, j.data, rejects[0].Reason, rejects[0].Err, rejects)
@@ -179,12 +182,23 @@ func payloadIndex(p Payload, i int) int {
 	return idx
 }
 
-// fold adds accepted readings to the sensor.
-func (w *worker) fold(ref *sensorRef, rs []rolling.Reading) {
-	st := ref.st
-	if !st.touched {
-		st.touched = true
+// mark lists the sensor for the next snapshot.
+func (w *worker) mark(ref *sensorRef) {
+	if !ref.st.touched {
+		ref.st.touched = true
 		w.touch = append(w.touch, ref)
+	}
+}
+
+// fold adds accepted readings of the message seq to the sensor.
+func (w *worker) fold(ref *sensorRef, rs []rolling.Reading, seq uint64) {
+	st := ref.st
+	w.mark(ref)
+	if seq != 0 {
+		if st.firstSeq == 0 {
+			st.firstSeq = seq
+		}
+		st.lastSeq = seq
 	}
 	var ok uint64
 	for _, r := range rs {
@@ -201,7 +215,7 @@ func (w *worker) fold(ref *sensorRef, rs []rolling.Reading) {
 		}
 		ok++
 	}
-	w.applied += ok
+	st.unsaved += ok
 	w.s.applied.Add(ok)
 	if m := w.s.o.Metrics; m != nil {
 		m.Applied.Add(float64(ok))
@@ -262,15 +276,13 @@ func (w *worker) restart(j *restartJob) {
 		w.s.log.Info().Str("sensor", j.ref.id).Float64("as_found", j.cal.AsFound).Float64("as_left", j.cal.AsLeft).
 			Time("at", j.cal.Time).Bool("alert_rule", j.ref.st.alerts.entry[0] != nil).Msg("calibration recorded")
 	}
-	w.acks = append(w.acks, done)
+	j.ref.st.acks = append(j.ref.st.acks, done)
+	j.ref.st.urgent = true
 	if st.sensor == nil {
 		w.s.sensorMade()
 	}
 	st.sensor, st.since, st.dropped = fresh, j.from, true
-	if !st.touched {
-		st.touched = true
-		w.touch = append(w.touch, j.ref)
-	}
+	w.mark(j.ref)
 	w.s.log.Info().Str("sensor", j.ref.id).Time("from", time.Unix(0, j.from)).Msg("fits restarted")
 }
 

@@ -22,6 +22,7 @@ const (
 	opRecord                  // put key/val into history, key2 into the time index
 	opDropPanes               // delete every pane key under prefix key
 	opRestart                 // put key/val into restarts
+	opSeq                     // put key/val into seqs
 )
 
 // span locates bytes in the batch's buffer. Offsets, not slices, because
@@ -177,6 +178,21 @@ func (b *Batch) SetRestart(id string, unixNano int64) error {
 	return nil
 }
 
+// SetSeq records, when the batch commits, that the state of sensor id
+// holds the messages of the stream up to sequence seq: Restore returns it
+// as Restored.Seq, so that a restart reading the stream again from an
+// older position (DB.Position) skips what the sensor already holds. A
+// commit may thus write some sensors and not others, and stay exact.
+func (b *Batch) SetSeq(id string, seq uint64) error {
+	if err := checkID(id); err != nil {
+		return err
+	}
+	o := op{kind: opSeq, key: b.appendKey(func(dst []byte) []byte { return append(dst, id...) })}
+	o.val = b.appendKey(func(dst []byte) []byte { return binary.BigEndian.AppendUint64(dst, seq) })
+	b.ops = append(b.ops, o)
+	return nil
+}
+
 // SetPosition sets the stream position (the sequence of the last message
 // whose readings the batch holds) to write with the batch. Without it,
 // a commit leaves the stored position unchanged.
@@ -300,7 +316,7 @@ func sortedPuts(bs []*Batch) (panes, records []opRef, ok bool) {
 	for bi, b := range bs {
 		for i := range b.ops {
 			switch b.ops[i].kind {
-			case opPane:
+			case opPane, opSeq:
 				panes = append(panes, opRef{bi, i})
 			case opRecord:
 				records = append(records, opRef{bi, i})
@@ -312,7 +328,13 @@ func sortedPuts(bs []*Batch) (panes, records []opRef, ok bool) {
 	if len(panes)+len(records) < 2 {
 		return nil, nil, false
 	}
-	slices.SortStableFunc(panes, func(x, y opRef) int { return bytes.Compare(keyOf(bs, x), keyOf(bs, y)) })
+	// Panes first, then sequences, each in key order.
+	slices.SortStableFunc(panes, func(x, y opRef) int {
+		if kx, ky := bs[x.b].ops[x.i].kind, bs[y.b].ops[y.i].kind; kx != ky {
+			return int(kx) - int(ky)
+		}
+		return bytes.Compare(keyOf(bs, x), keyOf(bs, y))
+	})
 	return panes, records, true
 }
 
@@ -328,8 +350,19 @@ func applySorted(tx *bolt.Tx, bs []*Batch, panes, records []opRef, st *CommitSta
 	}
 	pb.FillPercent = paneFill
 	put := st.put
+	var seqs *bolt.Bucket
 	for _, r := range panes {
-		if err := put(pb, keyOf(bs, r), bs[r.b].bytes(bs[r.b].ops[r.i].val)); err != nil {
+		bk := pb
+		if bs[r.b].ops[r.i].kind == opSeq {
+			if seqs == nil {
+				var err error
+				if seqs, err = tx.CreateBucketIfNotExists(bucketSeqs); err != nil {
+					return err
+				}
+			}
+			bk = seqs
+		}
+		if err := put(bk, keyOf(bs, r), bs[r.b].bytes(bs[r.b].ops[r.i].val)); err != nil {
 			return err
 		}
 	}
@@ -414,6 +447,14 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats, putsDone bool) error {
 		case opRestart:
 			var bk *bolt.Bucket
 			if bk, err = tx.CreateBucketIfNotExists(bucketRestarts); err == nil {
+				err = put(bk, key, val)
+			}
+		case opSeq:
+			if putsDone {
+				break
+			}
+			var bk *bolt.Bucket
+			if bk, err = tx.CreateBucketIfNotExists(bucketSeqs); err == nil {
 				err = put(bk, key, val)
 			}
 		case opRecord:

@@ -31,6 +31,10 @@ var (
 	// restarted (Batch.SetRestart). Made with its first key, so files
 	// written before it existed open as they are.
 	bucketRestarts = []byte("restarts")
+	// bucketSeqs holds, per sensor id, the stream sequence of the last
+	// message its stored state holds (Batch.SetSeq). Made with its first
+	// key, like bucketRestarts.
+	bucketSeqs = []byte("seqs")
 )
 
 var (

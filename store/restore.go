@@ -2,6 +2,7 @@ package store
 
 import (
 	"bytes"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"runtime"
@@ -28,6 +29,10 @@ type Restored struct {
 	// Restart is the time, in Unix ns, the sensor's fits last restarted
 	// (Batch.SetRestart); 0 when they never did.
 	Restart int64
+
+	// Seq is the stream sequence of the last message the stored state of
+	// the sensor holds (Batch.SetSeq); 0 when none was stored.
+	Seq uint64
 
 	// Panes counts the stored panes the sensor holds after the restore.
 	// Dropped counts the stored panes it cannot hold: older than every
@@ -148,6 +153,7 @@ func (sh *restoreShard) load(tx *bolt.Tx, lo, hi []byte, newSensor func(id strin
 	}
 	sc, pc := sensors.Cursor(), panes.Cursor()
 	restarts := tx.Bucket(bucketRestarts) // nil in files that never had one
+	seqs := tx.Bucket(bucketSeqs)         // likewise
 	var loaded []rolling.PaneKey
 	k, v := sc.First()
 	if lo != nil {
@@ -173,6 +179,14 @@ func (sh *restoreShard) load(tx *bolt.Tx, lo, hi []byte, newSensor func(id strin
 					return fmt.Errorf("sensor %s: %w: restart time of %d bytes", id, ErrCorrupt, len(v))
 				}
 				r.Restart = readInt(v)
+			}
+		}
+		if seqs != nil {
+			if v := seqs.Get(k); v != nil {
+				if len(v) != 8 {
+					return fmt.Errorf("sensor %s: %w: stream sequence of %d bytes", id, ErrCorrupt, len(v))
+				}
+				r.Seq = binary.BigEndian.Uint64(v)
 			}
 		}
 		for i := 0; i < s.Windows() && !r.Changed; i++ {

@@ -496,3 +496,47 @@ func TestRestore_RestartTime(t *testing.T) {
 		t.Errorf("restart times %d and %d, want 0 and %d", r1, r2, at)
 	}
 }
+
+// TestRestore_Seq checks that the stream sequence stored with a sensor
+// comes back with it, the last of two in one commit winning, whether the
+// commit takes the sorted path or not, and that other sensors carry none.
+func TestRestore_Seq(t *testing.T) {
+	for _, sorted := range []bool{true, false} {
+		db := openDB(t, tempPath(t))
+		var b store.Batch
+		for _, id := range []string{"plant-west.pt-1", "plant-west.pt-2", "plant-west.pt-3"} {
+			s, err := rolling.NewSensor(defaultSpecs...)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := s.Add(rolling.Reading{UnixNano: time.Date(2026, 6, 1, 8, 0, 0, 0, time.UTC).UnixNano(), Value: 1}); err != nil {
+				t.Fatal(err)
+			}
+			if err := b.Sensor(id, s); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if !sorted {
+			// A drop keeps the batch order (no sorted puts).
+			if err := b.DropPanes("plant-west.pt-9"); err != nil {
+				t.Fatal(err)
+			}
+		}
+		for _, set := range []struct {
+			id  string
+			seq uint64
+		}{{"plant-west.pt-3", 7}, {"plant-west.pt-1", 12}, {"plant-west.pt-3", 40}} {
+			if err := b.SetSeq(set.id, set.seq); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if _, err := db.Commit(&b); err != nil {
+			t.Fatal(err)
+		}
+		db = reopen(t, db)
+		got := restoreAll(t, db, defaultSpecs)
+		if s1, s2, s3 := got["plant-west.pt-1"].Seq, got["plant-west.pt-2"].Seq, got["plant-west.pt-3"].Seq; s1 != 12 || s2 != 0 || s3 != 40 {
+			t.Errorf("sorted %v: seqs %d, %d, %d; want 12, 0, 40", sorted, s1, s2, s3)
+		}
+	}
+}

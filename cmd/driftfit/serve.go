@@ -201,6 +201,7 @@ func serviceOptions(cfg *configs.Config, nc *nats.Conn, db *store.DB, log *zerol
 		Webhook:                  webhookFromConfig(cfg),
 		CommitInterval:           cfg.Store.CommitInterval,
 		CommitReadings:           cfg.Store.CommitReadings,
+		CommitMaxSensors:         cfg.Store.CommitMaxSensors,
 		FutureSkew:               cfg.Bus.FutureSkew,
 		MaxPayload:               cfg.Bus.MaxPayloadBytes,
 		HistoryRetention:         cfg.Store.HistoryRetention,

@@ -58,6 +58,7 @@ func testConfig(t *testing.T, dir, url, mode string, extra ...string) string {
 store:
   dir: %q
   commit_interval: 50ms
+  commit_max_sensors: 100
 classes:
   - name: test
     match: ["crash.*"]
