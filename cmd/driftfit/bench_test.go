@@ -68,8 +68,8 @@ func TestBench_SmallRun(t *testing.T) {
 	if l := rep.Latency; l.Samples == 0 || !(l.P50Ms <= l.P99Ms && l.P99Ms <= l.MaxMs) || l.P50Ms <= 0 {
 		t.Errorf("latency %+v: want samples and 0 < p50 <= p99 <= max", l)
 	}
-	if len(rep.Alerts) != 2 {
-		t.Fatalf("alert latency %+v: want an idle and a loaded run", rep.Alerts)
+	if len(rep.Alerts) != 4 || rep.Alerts[0].Sensors != 300 || rep.Alerts[3].Sensors != 2000 {
+		t.Fatalf("alert latency %+v: want an idle and a loaded run at 300 and at 2,000 sensors", rep.Alerts)
 	}
 	for _, a := range rep.Alerts {
 		// Every probe crosses the limit with its fourth reading, whatever
@@ -129,7 +129,7 @@ func TestBenchReport_Check(t *testing.T) {
 		return benchReport{
 			Throughput: []benchThroughput{{Case: "direct 1/msg", Readings: 10, AppliedPerSec: 1, BaselinePerSec: 1000, Ratio: 0.001}},
 			Latency:    benchLatency{Samples: 1, P50Ms: 900, P99Ms: 900, MaxMs: 900},
-			Alerts:     []benchAlert{{Load: "idle", Probes: 5, Raised: 5, CloseP50Ms: 1, CloseP99Ms: 2, CloseMaxMs: 2}},
+			Alerts:     []benchAlert{{Sensors: 10, Load: "idle", Probes: 5, Raised: 5, CloseP50Ms: 1, CloseP99Ms: 2, CloseMaxMs: 2}},
 			Fleets:     []benchFleet{{Sensors: 10, Commits: 1, RestoreMs: 1e6}},
 		}
 	}
@@ -146,8 +146,9 @@ func TestBenchReport_Check(t *testing.T) {
 		{"infinite latency", func(r *benchReport) { r.Latency.P99Ms = math.Inf(1) }, "+Inf"},
 		{"fleet without commits", func(r *benchReport) { r.Fleets[0].Commits = 0 }, "no commit"},
 		{"late alerts are sane", func(r *benchReport) { r.Alerts[0].CloseP99Ms = 5000 }, ""},
-		{"no alert", func(r *benchReport) { r.Alerts[0].Raised = 0 }, "no alert raised"},
-		{"NaN alert latency", func(r *benchReport) { r.Alerts[0].CrossP50Ms = math.NaN() }, "alert latency, idle: a result is NaN"},
+		{"no alert", func(r *benchReport) { r.Alerts[0].Raised = 0 }, "5 of 5 probes raised no alert"},
+		{"one probe not raised", func(r *benchReport) { r.Alerts[0].Raised = 4 }, "1 of 5 probes raised no alert"},
+		{"NaN alert latency", func(r *benchReport) { r.Alerts[0].CrossP50Ms = math.NaN() }, "alert latency, idle, 10 sensors: a result is NaN"},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			r := good()
