@@ -459,7 +459,8 @@ func (s *Service) start(ctx context.Context, in chan message) (*source, error) {
 			if err := sub.Drain(); err == nil {
 				select {
 				case <-closed:
-				case <-time.After(5 * time.Second):
+				case <-time.After(s.o.StopTimeout):
+					s.log.Warn().Dur("waited", s.o.StopTimeout).Msg("subscription not drained in time")
 				}
 			}
 			close(quit)
@@ -520,7 +521,8 @@ func (s *Service) start(ctx context.Context, in chan message) (*source, error) {
 		cc.Stop()
 		select {
 		case <-cc.Closed():
-		case <-time.After(5 * time.Second):
+		case <-time.After(s.o.StopTimeout):
+			s.log.Warn().Dur("waited", s.o.StopTimeout).Msg("stream consumer not stopped in time")
 		}
 		close(quit)
 	}}, nil

@@ -129,9 +129,10 @@ type Options struct {
 	CalibrationSubjectPrefix string
 	// Webhook, if its URL is set, also receives every ticket revision.
 	Webhook Webhook
-	// StopTimeout bounds, at shutdown, the wait for the alert events and
-	// tickets of the last commit to be published; what is not published
-	// by then is sent at the next start. Default 5s.
+	// StopTimeout bounds each wait of the shutdown: for the bus
+	// subscription to stop delivering, and for the alert events and
+	// tickets of the last commit to be published (what is not published
+	// by then is sent at the next start). Default 5s.
 	StopTimeout time.Duration
 
 	// Now returns the current time. Default time.Now.
