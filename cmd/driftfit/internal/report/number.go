@@ -20,7 +20,7 @@ func Estimate(v, u float64) string {
 	if !(u > 0) || math.IsInf(u, 0) || math.IsNaN(v) || math.IsInf(v, 0) {
 		return Sig(v, 6)
 	}
-	return Round(v, u) + " ±" + Sig(u, 2)
+	return Round(v, u) + " ±" + Round(u, u)
 }
 
 // Round formats v rounded to the decimal place of the second significant
@@ -41,8 +41,8 @@ func Round(v, u float64) string {
 	case place < 0 && place >= -9 && mag < 15:
 		return strconv.FormatFloat(v, 'f', -place, 64)
 	}
-	// Very large or very small: significant digits down to place.
-	return Sig(v, max(1, mag-place+1))
+	// Very large or very small: exponent form, digits down to place.
+	return strconv.FormatFloat(v, 'e', max(0, mag-place), 64)
 }
 
 // Sig formats v to n significant digits, exponent form only when the
