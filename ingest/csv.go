@@ -386,8 +386,8 @@ func (c *CSVReader) readFields(atFieldStart bool) bool {
 				return true
 			}
 			i := c.pos
-			buf := c.buf[:c.end]
-			for i < len(buf) && !c.special[buf[i]] {
+			buf, special := c.buf[:c.end], c.special
+			for i < len(buf) && !special[buf[i]] {
 				i++
 			}
 			if i > c.pos {
