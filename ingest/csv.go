@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"strings"
+	"time"
 
 	"driftfit/rolling"
 )
@@ -76,17 +77,56 @@ type CSVReader struct {
 
 	ncol                         int
 	colSensor, colTime, colValue int
+	special                      *[256]bool // bytes that end a run of plain field bytes
+	comma                        byte
+	loc                          *time.Location // zone of local times; nil: none accepted
 
 	sensor []byte
 	rd     rolling.Reading
 	rowErr error
 }
 
-// NewCSVReader reads and checks the header row of r. The error wraps
-// ErrNoHeader, ErrMissingColumn or ErrDuplicateColumn (naming the column),
-// a *RowError for a malformed header, or the I/O error from r.
+// CSVOptions adapt the reader to files from other programs, such as a
+// process historian's export. The zero value reads replay files.
+type CSVOptions struct {
+	// Sensor, Time and Value name the header columns of the sensor id,
+	// the time and the value; empty means "sensor", "time" and "value".
+	// Names match the header fields exactly.
+	Sensor, Time, Value string
+	// Comma is the field delimiter; 0 means ','. It must be a single
+	// byte other than '"', CR and LF (';' and '\t' are common).
+	Comma byte
+	// Location, when set, makes times without an offset, as
+	// "2006-01-02 15:04:05" (or with a T, and with a fraction of a
+	// second), readable as wall-clock times in that zone, as
+	// time.ParseInLocation reads them: a time that a change to summer
+	// time skips is moved forward by the change, and one repeated when
+	// it ends is taken at its first occurrence (Go's time.Date). RFC
+	// 3339 times and Unix seconds read as always. Nil: such times are
+	// bad rows.
+	Location *time.Location
+}
+
+// NewCSVReader reads and checks the header row of r, with the default
+// options. The error wraps ErrNoHeader, ErrMissingColumn or
+// ErrDuplicateColumn (naming the column), a *RowError for a malformed
+// header, or the I/O error from r.
 func NewCSVReader(r io.Reader) (*CSVReader, error) {
-	c := &CSVReader{r: r, buf: make([]byte, csvBufSize), lineNo: 1}
+	return NewCSVReaderOptions(r, CSVOptions{})
+}
+
+// NewCSVReaderOptions is NewCSVReader with options. A delimiter that
+// cannot be one wraps ErrDelimiter.
+func NewCSVReaderOptions(r io.Reader, o CSVOptions) (*CSVReader, error) {
+	c := &CSVReader{r: r, buf: make([]byte, csvBufSize), lineNo: 1, special: &isSpecial, comma: ',', loc: o.Location}
+	if o.Comma != 0 && o.Comma != ',' {
+		if o.Comma == '"' || o.Comma == '\r' || o.Comma == '\n' {
+			return nil, fmt.Errorf("%w: %q", ErrDelimiter, o.Comma)
+		}
+		sp := isSpecial
+		sp[','], sp[o.Comma] = false, true
+		c.special, c.comma = &sp, o.Comma
+	}
 	if !c.readRecord() {
 		if c.err != nil {
 			return nil, fmt.Errorf("ingest: read csv header: %w", c.err)
@@ -107,7 +147,7 @@ func NewCSVReader(r io.Reader) (*CSVReader, error) {
 	cols := [...]struct {
 		name string
 		idx  *int
-	}{{"sensor", &c.colSensor}, {"time", &c.colTime}, {"value", &c.colValue}}
+	}{{or(o.Sensor, "sensor"), &c.colSensor}, {or(o.Time, "time"), &c.colTime}, {or(o.Value, "value"), &c.colValue}}
 	for _, col := range cols {
 		*col.idx = -1
 		for i := range c.ends {
@@ -124,6 +164,13 @@ func NewCSVReader(r io.Reader) (*CSVReader, error) {
 		}
 	}
 	return c, nil
+}
+
+func or(s, def string) string {
+	if s == "" {
+		return def
+	}
+	return s
 }
 
 // Next advances to the next data row, good or bad. It returns false at the
@@ -175,6 +222,11 @@ func (c *CSVReader) parseRow() error {
 	}
 	tb := c.field(c.colTime)
 	ns, err := ParseTime(tb)
+	if err != nil && c.loc != nil {
+		if t, ok := parseLocal(tb, c.loc); ok {
+			ns, err = t, nil
+		}
+	}
 	if err != nil {
 		var te *TimeError
 		if errors.As(err, &te) {
@@ -189,6 +241,27 @@ func (c *CSVReader) parseRow() error {
 	}
 	c.sensor, c.rd = sensor, rolling.Reading{UnixNano: ns, Value: v}
 	return nil
+}
+
+// localLayouts are the wall-clock forms a historian writes.
+var localLayouts = [...]string{"2006-01-02 15:04:05", "2006-01-02T15:04:05"}
+
+// parseLocal reads a wall-clock time without offset in loc; ok is false
+// when b is not one, or lies outside the int64 nanosecond range.
+func parseLocal(b []byte, loc *time.Location) (int64, bool) {
+	if len(b) < len(localLayouts[0]) || len(b) > 40 {
+		return 0, false
+	}
+	s := string(b) // rare path: only times ParseTime refused
+	for _, layout := range localLayouts {
+		if t, err := time.ParseInLocation(layout, s, loc); err == nil {
+			if t.Year() < 1678 || t.Year() > 2261 {
+				return 0, false
+			}
+			return t.UnixNano(), true
+		}
+	}
+	return 0, false
 }
 
 // fill makes at least one unread byte available, reading from c.r when
@@ -313,8 +386,8 @@ func (c *CSVReader) readFields(atFieldStart bool) bool {
 				return true
 			}
 			i := c.pos
-			buf := c.buf[:c.end]
-			for i < len(buf) && !isSpecial[buf[i]] {
+			buf, special := c.buf[:c.end], c.special
+			for i < len(buf) && !special[buf[i]] {
 				i++
 			}
 			if i > c.pos {
@@ -328,7 +401,7 @@ func (c *CSVReader) readFields(atFieldStart bool) bool {
 			b := buf[i]
 			c.pos++
 			switch b {
-			case ',':
+			case c.comma:
 				c.ends = append(c.ends, len(c.rec))
 			case '\n':
 				c.lineNo++

@@ -28,6 +28,10 @@ var (
 	// record at all.
 	ErrNoHeader = errors.New("ingest: csv input has no header row")
 
+	// ErrDelimiter is returned by NewCSVReaderOptions for a delimiter
+	// that cannot separate fields (a quote, CR or LF).
+	ErrDelimiter = errors.New("ingest: csv delimiter cannot be a quote or line end")
+
 	// ErrMissingColumn is returned by NewCSVReader when the header lacks
 	// one of the columns sensor, time and value.
 	ErrMissingColumn = errors.New("ingest: csv header lacks a required column")

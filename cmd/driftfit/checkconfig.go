@@ -4,7 +4,6 @@ import (
 	"bytes"
 	"context"
 	"errors"
-	"flag"
 	"fmt"
 	"io"
 	"strings"
@@ -34,9 +33,7 @@ resolves to and why, its overrides, as-left value, peer group, and merged
 settings. A sensor that matches no class is a problem.
 
 Exit status: 0 when the file (and every --sensor) is good, 1 when there are
-problems, 2 for a usage error.
-
-Flags:`
+problems, 2 for a usage error.`
 
 // sensorList collects --sensor values, repeated or comma-separated.
 type sensorList []string
@@ -55,24 +52,15 @@ func (s *sensorList) Set(v string) error {
 }
 
 func runCheckConfig(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) error {
-	fs := flag.NewFlagSet("check-config", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+	fs := newFlags("check-config", checkConfigHelp)
 	var sensors sensorList
 	fs.Var(&sensors, "sensor", "show how sensor `ID` resolves (repeatable, or comma-separated ids)")
-	fs.Usage = func() {
-		fmt.Fprintln(stderr, checkConfigHelp)
-		fs.PrintDefaults()
-	}
 	// Flags may come before or after the file name.
-	pos, err := parseInterleaved(fs, args)
+	pos, err := fs.parse(args)
 	if err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return err
-		}
-		return usageError("%v", err)
+		return err
 	}
 	if len(pos) != 1 {
-		fs.Usage()
 		return usageError("want one configuration FILE, got %d arguments", len(pos))
 	}
 	file := pos[0]

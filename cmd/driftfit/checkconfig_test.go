@@ -157,8 +157,8 @@ func TestCheckConfig_Usage(t *testing.T) {
 			}
 		})
 	}
-	// The help text goes to stderr with exit status 0.
-	if _, stderr, code := runCmd(t, "", "check-config", "-h"); code != 0 || !strings.Contains(stderr, "Usage: driftfit check-config FILE") {
-		t.Errorf("check-config -h: exit %d, stderr:\n%s", code, stderr)
+	// Asked for, the help text goes to stdout with exit status 0.
+	if stdout, _, code := runCmd(t, "", "check-config", "-h"); code != 0 || !strings.Contains(stdout, "Usage: driftfit check-config FILE") {
+		t.Errorf("check-config -h: exit %d, stdout:\n%s", code, stdout)
 	}
 }

@@ -22,6 +22,9 @@ import (
 	"testing"
 	"time"
 
+	"driftfit/cmd/driftfit/internal/demo"
+	"driftfit/cmd/driftfit/internal/query"
+	"driftfit/cmd/driftfit/internal/report"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -96,9 +99,9 @@ func newHistFixture(t *testing.T) *histFixture {
 	for _, w := range histWindows {
 		specs = append(specs, w.spec)
 	}
-	demo := map[string]demoSensor{}
-	for _, s := range demoPlant() {
-		demo[s.id] = s
+	plant := map[string]demo.Sensor{}
+	for _, s := range demo.Plant() {
+		plant[s.ID] = s
 	}
 	ids := []string{histDrifting, histAccelerating}
 	sensors := map[string]*rolling.Sensor{}
@@ -113,8 +116,8 @@ func newHistFixture(t *testing.T) *histFixture {
 	for k := range 21 * 24 * 3 {
 		at := t0.Add(time.Duration(k) * step)
 		for _, id := range ids {
-			ds := demo[id]
-			rd := rolling.Reading{UnixNano: at.UnixNano(), Value: ds.value(at.Sub(t0).Hours()/24, rng)}
+			ds := plant[id]
+			rd := rolling.Reading{UnixNano: at.UnixNano(), Value: ds.Value(at.Sub(t0).Hours()/24, rng)}
 			s := sensors[id]
 			mask := s.Closes(rd.UnixNano)
 			for w := range s.Windows() {
@@ -170,7 +173,7 @@ func newHistFixture(t *testing.T) *histFixture {
 // fitJSON form with the window label as typed.
 func wantJSON(t *testing.T, id string, sol *rolling.Solution, m rolling.Model) string {
 	t.Helper()
-	b, err := json.Marshal(newFitJSON(id, histLabel(sol.Window), sol.Fit(m)))
+	b, err := json.Marshal(report.NewFitJSON(id, histLabel(sol.Window), sol.Fit(m)))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -259,36 +262,56 @@ func TestHistory_EqualsReplay(t *testing.T) {
 
 func TestHistory_Table(t *testing.T) {
 	f := newHistFixture(t)
-	stdout, stderr, code := runCmd(t, "", "history", histDrifting, "--db", f.path, "--window", "7d/1d", "--model", "line")
-	if code != 0 {
-		t.Fatalf("exit %d, stderr:\n%s", code, stderr)
-	}
-	rows := lines(stdout)
-	var want []histRecord
-	for _, r := range f.records[histDrifting] {
-		if r.sol.Window.Pane == 24*time.Hour {
-			want = append(want, r)
-		}
-	}
-	if len(rows) != len(want)+1 {
-		t.Fatalf("%d rows, want a header and %d records:\n%s", len(rows), len(want), stdout)
-	}
-	if !strings.HasPrefix(rows[0], "SENSOR") || !strings.Contains(rows[0], "RATE /day ±95%") {
-		t.Errorf("header %q", rows[0])
-	}
-	for i, r := range want {
-		row := rows[i+1]
-		fit := &r.sol.Line
-		fields := []string{histDrifting, "7d/1d", "line", r.sol.Last.UTC().Format("2006-01-02 15:04:05")}
-		if fit.OK() {
-			// Six significant digits, as %.6g prints them (fmt package).
-			fields = append(fields, fmt.Sprintf("%.6g ±%.6g", fit.Coef[1], fit.TCrit*fit.SE[1]))
-		}
-		for _, s := range fields {
-			if !strings.Contains(row, s) {
-				t.Errorf("row %d %q lacks %q", i+1, row, s)
+	for _, tc := range []struct {
+		name string
+		args []string
+		unit string // of the rate column
+	}{
+		{"no unit known", nil, "/d"},
+		// configs/demo.yaml gives the pressure class the unit kPa.
+		{"unit from the config", []string{"--config", "../../configs/demo.yaml"}, "kPa/d"},
+		{"unit from the flag", []string{"--unit", "bar"}, "bar/d"},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			args := append([]string{"history", histDrifting, "--db", f.path, "--window", "7d/1d", "--model", "line"}, tc.args...)
+			stdout, stderr, code := runCmd(t, "", args...)
+			if code != 0 {
+				t.Fatalf("exit %d, stderr:\n%s", code, stderr)
 			}
-		}
+			rows := lines(stdout)
+			var want []histRecord
+			for _, r := range f.records[histDrifting] {
+				if r.sol.Window.Pane == 24*time.Hour {
+					want = append(want, r)
+				}
+			}
+			if len(rows) != len(want)+1 {
+				t.Fatalf("%d rows, want a header and %d records:\n%s", len(rows), len(want), stdout)
+			}
+			if !strings.HasPrefix(rows[0], "SENSOR") || !strings.Contains(rows[0], "RATE ±95%") {
+				t.Errorf("header %q", rows[0])
+			}
+			for i, r := range want {
+				row := rows[i+1]
+				fit := &r.sol.Line
+				fields := []string{histDrifting, "7d/1d", "line", r.sol.Last.UTC().Format("2006-01-02 15:04:05")}
+				if fit.OK() {
+					// GUM (JCGM 100:2008) 7.2.6: the 95% half-width u to two
+					// significant digits, the rate to the same decimal place.
+					v, u := fit.Coef[1], fit.TCrit*fit.SE[1]
+					place := int(math.Floor(math.Log10(u))) - 1
+					if place >= 0 {
+						t.Fatalf("record %d: half-width %v ≥ 10, outside what this check writes out", i, u)
+					}
+					fields = append(fields, fmt.Sprintf("%.*f ±%.2g %s", -place, v, u, tc.unit))
+				}
+				for _, s := range fields {
+					if !strings.Contains(row, s) {
+						t.Errorf("row %d %q lacks %q", i+1, row, s)
+					}
+				}
+			}
+		})
 	}
 }
 
@@ -393,7 +416,7 @@ func timesOf(t *testing.T, out string) []string {
 	t.Helper()
 	var got []string
 	for _, l := range lines(out) {
-		var rec fitJSON
+		var rec report.FitJSON
 		if err := json.Unmarshal([]byte(l), &rec); err != nil {
 			t.Fatalf("bad JSON line %q: %v", l, err)
 		}
@@ -536,8 +559,8 @@ func TestHistory_FileInUse(t *testing.T) {
 	if !errors.Is(err, store.ErrLocked) || !strings.Contains(err.Error(), "in use by a running driftfit serve") {
 		t.Fatalf("history while the file is open for writing: %v, want ErrLocked naming driftfit serve", err)
 	}
-	if d := time.Since(start); d > 10*historyLockWait {
-		t.Errorf("took %v to give up, lock wait is %v", d, historyLockWait)
+	if d := time.Since(start); d > 10*query.LockWait {
+		t.Errorf("took %v to give up, lock wait is %v", d, query.LockWait)
 	}
 	if err := w.Close(); err != nil {
 		t.Fatal(err)
@@ -657,53 +680,5 @@ func checkSVG(t *testing.T, data []byte, sensor string) {
 	}
 	if !bytes.Contains(data, []byte(sensor)) {
 		t.Errorf("SVG lacks the sensor id %s in its title", sensor)
-	}
-}
-
-// TestDateTicks checks that labelled ticks sit on the calendar
-// boundaries their labels name (time.Parse of the label gives the tick
-// back) and that there are not too many of them.
-func TestDateTicks(t *testing.T) {
-	base := time.Date(2026, 3, 2, 7, 13, 0, 0, time.UTC)
-	for _, span := range []time.Duration{90 * time.Minute, 6 * time.Hour, 40 * time.Hour, 5 * 24 * time.Hour, 21 * 24 * time.Hour, 60 * 24 * time.Hour, 200 * 24 * time.Hour, 800 * 24 * time.Hour, 4000 * 24 * time.Hour} {
-		lo, hi := float64(base.Unix()), float64(base.Add(span).Unix())
-		ticks := dateTicks{}.Ticks(lo, hi)
-		labelled := 0
-		for _, tk := range ticks {
-			if tk.Value < lo || tk.Value > hi {
-				t.Errorf("span %v: tick %v outside [%v, %v]", span, tk.Value, lo, hi)
-			}
-			if tk.Label == "" {
-				continue
-			}
-			labelled++
-			// Labels carry no year (the axis label does), except a
-			// January tick on a month scale, which is the year alone.
-			var at time.Time
-			var err error
-		layouts:
-			for _, layout := range []string{"Jan 2 15:04", "Jan 2", "Jan", "2006"} {
-				for y := base.Year(); y <= base.Add(span).Year(); y++ {
-					lbl, lay := tk.Label+" "+strconv.Itoa(y), layout+" 2006"
-					if layout == "2006" {
-						lbl, lay = tk.Label, layout
-					}
-					if at, err = time.Parse(lay, lbl); err == nil && float64(at.Unix()) == tk.Value {
-						break layouts
-					}
-				}
-			}
-			if err != nil || float64(at.Unix()) != tk.Value {
-				t.Errorf("span %v: tick at %v labelled %q (%v)", span, time.Unix(int64(tk.Value), 0).UTC(), tk.Label, err)
-			}
-			// Between about 23 and 77 days the step is a week (twelve
-			// labels at most), which starts on Monday (ISO 8601).
-			if span > 23*24*time.Hour && span < 77*24*time.Hour && at.Weekday() != time.Monday {
-				t.Errorf("span %v: tick %q is not a Monday", span, tk.Label)
-			}
-		}
-		if labelled < 2 || labelled > maxDateTicks {
-			t.Errorf("span %v: %d labelled ticks, want 2 to %d", span, labelled, maxDateTicks)
-		}
 	}
 }

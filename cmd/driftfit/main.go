@@ -5,7 +5,9 @@
 //
 //	driftfit <command> [flags] [args]
 //
-// Run "driftfit help" for the list of commands.
+// Run "driftfit help" for the list of commands, "driftfit help CMD" for
+// one command. Exit status: 0 on success (and for help), 1 when the
+// command failed, 2 for a usage error.
 package main
 
 import (
@@ -16,7 +18,17 @@ import (
 	"io"
 	"os"
 	"os/signal"
+	"runtime/debug"
+	"strings"
 	"syscall"
+	"time"
+	_ "time/tzdata" // IANA zones for replay --time-zone on machines without zoneinfo
+
+	"github.com/mattn/go-isatty"
+	"github.com/rs/zerolog"
+
+	"driftfit/cmd/driftfit/internal/query"
+	"driftfit/cmd/driftfit/internal/replay"
 )
 
 // command is one subcommand of the binary.
@@ -42,9 +54,33 @@ func init() {
 	}
 }
 
-// errUsage marks an error whose message is a usage complaint; the exit
-// status is then 2.
+// Exit statuses.
+const (
+	exitOK      = 0
+	exitFailure = 1
+	exitUsage   = 2
+)
+
+// errUsage marks a usage complaint: the exit status is then 2.
 var errUsage = errors.New("usage")
+
+// usageErr is a usage complaint naming the one problem.
+type usageErr struct{ msg string }
+
+func (e *usageErr) Error() string        { return e.msg }
+func (e *usageErr) Is(target error) bool { return target == errUsage }
+
+// usageError returns a usage error with a formatted message.
+func usageError(format string, a ...any) error {
+	return &usageErr{fmt.Sprintf(format, a...)}
+}
+
+// helpRequest is returned by a command asked for its help (-h): run
+// prints it on standard output and exits 0.
+type helpRequest struct{ fs *flags }
+
+func (h *helpRequest) Error() string        { return "help requested" }
+func (h *helpRequest) Is(target error) bool { return target == flag.ErrHelp }
 
 func main() {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
@@ -54,34 +90,63 @@ func main() {
 }
 
 func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	if len(args) == 0 || args[0] == "help" || args[0] == "-h" || args[0] == "--help" {
+	if len(args) == 0 {
 		usage(stderr)
-		if len(args) == 0 {
-			return 2
-		}
-		return 0
+		return exitUsage
 	}
-	for _, c := range commands {
-		if c.name != args[0] {
-			continue
+	switch args[0] {
+	case "-h", "-help", "--help":
+		usage(stdout)
+		return exitOK
+	case "-version", "--version":
+		fmt.Fprintln(stdout, version())
+		return exitOK
+	case "help":
+		if len(args) == 1 {
+			usage(stdout)
+			return exitOK
 		}
-		err := c.run(ctx, args[1:], stdin, stdout, stderr)
-		switch {
-		case err == nil:
-			return 0
-		case errors.Is(err, flag.ErrHelp):
-			return 0
-		case errors.Is(err, errUsage):
-			fmt.Fprintf(stderr, "driftfit %s: %v\n", c.name, err)
-			return 2
-		default:
-			fmt.Fprintf(stderr, "driftfit %s: %v\n", c.name, err)
-			return 1
+		if find(args[1]) == nil {
+			fmt.Fprintf(stderr, "driftfit help: unknown command %q; see driftfit help\n", args[1])
+			return exitUsage
+		}
+		return run(ctx, []string{args[1], "-h"}, stdin, stdout, stderr)
+	}
+	c := find(args[0])
+	if c == nil {
+		fmt.Fprintf(stderr, "driftfit: unknown command %q; see driftfit help\n", args[0])
+		return exitUsage
+	}
+	err := c.run(ctx, args[1:], stdin, stdout, stderr)
+	var help *helpRequest
+	switch {
+	case err == nil:
+		return exitOK
+	case errors.As(err, &help):
+		help.fs.printHelp(stdout)
+		return exitOK
+	case isUsage(err):
+		fmt.Fprintf(stderr, "driftfit %s: %v; see driftfit %s -h\n", c.name, err, c.name)
+		return exitUsage
+	default:
+		fmt.Fprintf(stderr, "driftfit %s: %v\n", c.name, err)
+		return exitFailure
+	}
+}
+
+func isUsage(err error) bool {
+	var qe *query.UsageError
+	var we *replay.WindowError
+	return errors.Is(err, errUsage) || errors.As(err, &qe) || errors.As(err, &we)
+}
+
+func find(name string) *command {
+	for i := range commands {
+		if commands[i].name == name {
+			return &commands[i]
 		}
 	}
-	fmt.Fprintf(stderr, "driftfit: unknown command %q\n\n", args[0])
-	usage(stderr)
-	return 2
+	return nil
 }
 
 func usage(w io.Writer) {
@@ -90,27 +155,105 @@ func usage(w io.Writer) {
 	for _, c := range commands {
 		fmt.Fprintf(w, "  %-14s %s\n", c.name, c.summary)
 	}
-	fmt.Fprintln(w, "\nRun \"driftfit <command> -h\" for the flags of a command.")
+	fmt.Fprintln(w, "\nRun \"driftfit help <command>\" (or \"driftfit <command> -h\") for a command's flags,\n\"driftfit --version\" for the version.")
 }
 
-// parseInterleaved parses fs from args where positional arguments may
-// stand before, between or after the flags, and returns the positional
-// ones in order.
-func parseInterleaved(fs *flag.FlagSet, args []string) ([]string, error) {
+// version describes the build: module version, VCS revision and time
+// when the binary was built from a repository, and the Go version.
+func version() string {
+	info, ok := debug.ReadBuildInfo()
+	if !ok {
+		return "driftfit (no build information)"
+	}
+	s := "driftfit " + info.Main.Version
+	var rev, at, dirty string
+	for _, kv := range info.Settings {
+		switch kv.Key {
+		case "vcs.revision":
+			rev = kv.Value
+		case "vcs.time":
+			at = kv.Value
+		case "vcs.modified":
+			if kv.Value == "true" {
+				dirty = " with local changes"
+			}
+		}
+	}
+	if rev != "" {
+		s += " revision " + rev
+		if at != "" {
+			s += " of " + at
+		}
+		s += dirty
+	}
+	return s + " built with " + info.GoVersion
+}
+
+// flags is a command's flag set. It prints nothing itself: -h comes back
+// as a *helpRequest, a bad flag as a usage error naming it.
+type flags struct {
+	*flag.FlagSet
+	help string
+}
+
+func newFlags(name, help string) *flags {
+	fs := flag.NewFlagSet(name, flag.ContinueOnError)
+	fs.SetOutput(io.Discard)
+	fs.Usage = func() {}
+	return &flags{FlagSet: fs, help: help}
+}
+
+func (f *flags) printHelp(w io.Writer) {
+	fmt.Fprintln(w, strings.TrimRight(f.help, "\n")+"\n\nFlags:")
+	f.SetOutput(w)
+	f.PrintDefaults()
+	f.SetOutput(io.Discard)
+}
+
+// parse parses args where positional arguments may stand before,
+// between or after the flags, and returns the positional ones in order.
+func (f *flags) parse(args []string) ([]string, error) {
 	var pos []string
 	for {
-		if err := fs.Parse(args); err != nil {
-			return nil, err
+		if err := f.Parse(args); err != nil {
+			if errors.Is(err, flag.ErrHelp) {
+				return nil, &helpRequest{f}
+			}
+			return nil, usageError("%v", err)
 		}
-		if fs.NArg() == 0 {
+		if f.NArg() == 0 {
 			return pos, nil
 		}
-		pos = append(pos, fs.Arg(0))
-		args = fs.Args()[1:]
+		pos = append(pos, f.Arg(0))
+		args = f.Args()[1:]
 	}
 }
 
-// usageError wraps a message as a usage error.
-func usageError(format string, a ...any) error {
-	return fmt.Errorf("%w: %s", errUsage, fmt.Sprintf(format, a...))
+// newLogger returns the root logger writing to w: JSON, or a console
+// format for people, coloured only when w is a terminal.
+func newLogger(w io.Writer, format, level string) (zerolog.Logger, error) {
+	lvl, err := zerolog.ParseLevel(level)
+	if err != nil {
+		return zerolog.Logger{}, fmt.Errorf("--log-level %q: %w", level, err)
+	}
+	switch format {
+	case "json":
+	case "console":
+		w = zerolog.ConsoleWriter{Out: w, TimeFormat: time.RFC3339, NoColor: !isTerminal(w)}
+	default:
+		return zerolog.Logger{}, fmt.Errorf("--log-format %q: want json or console", format)
+	}
+	return zerolog.New(w).Level(lvl).With().Timestamp().Logger(), nil
 }
+
+// isTerminal reports whether w is a terminal, where colour codes belong.
+func isTerminal(w io.Writer) bool {
+	f, ok := w.(interface{ Fd() uintptr })
+	return ok && (isatty.IsTerminal(f.Fd()) || isatty.IsCygwinTerminal(f.Fd()))
+}
+
+const serveHelp = `Usage: driftfit serve [flags]
+
+Runs the service: reads readings from NATS, keeps the sliding fits of every
+sensor, stores their state and fit history. With no bus.servers configured it
+starts an embedded NATS server with JetStream on 127.0.0.1.`

@@ -8,6 +8,9 @@ import (
 	"path/filepath"
 	"testing"
 	"time"
+
+	"driftfit/cmd/driftfit/internal/replay"
+	"driftfit/cmd/driftfit/internal/report"
 )
 
 // BenchmarkReplayVsAwk times driftfit replay on a 2-million-row CSV of
@@ -32,7 +35,7 @@ func BenchmarkReplayVsAwk(b *testing.B) {
 		b.Fatal(err)
 	}
 	b.SetBytes(st.Size())
-	wins, err := parseWindows("1d/1h,30d/1d", "")
+	wins, err := replay.ParseWindows("1d/1h,30d/1d", "")
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -50,17 +53,18 @@ func BenchmarkReplayVsAwk(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		rp, err := replay(context.Background(), f, wins, false, io.Discard)
+		rp, err := replay.Run(context.Background(), f, replay.Options{Windows: wins})
 		f.Close()
 		if err != nil {
 			b.Fatal(err)
 		}
-		if err := rp.print(io.Discard, "json"); err != nil {
+		out, _ := report.New("json", report.Fits, io.Discard, report.Options{})
+		if err := rp.Write(out); err != nil {
 			b.Fatal(err)
 		}
 		replayTotal += time.Since(t0)
-		if rp.rows != 2_000_000 {
-			b.Fatalf("replay read %d rows, want 2,000,000", rp.rows)
+		if rp.Rows != 2_000_000 {
+			b.Fatalf("replay read %d rows, want 2,000,000", rp.Rows)
 		}
 	}
 	b.ReportMetric(float64(awkTotal)/float64(replayTotal), "x-awk")

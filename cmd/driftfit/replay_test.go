@@ -11,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"driftfit/cmd/driftfit/internal/report"
 	"driftfit/rolling"
 )
 
@@ -69,10 +70,10 @@ func TestReplay_JSONMatchesEngine(t *testing.T) {
 	if !strings.Contains(stderr, fmt.Sprintf("%d bad rows", len(badLines))) {
 		t.Errorf("stderr lacks the bad-row count %d:\n%s", len(badLines), stderr)
 	}
-	var got []fitJSON
+	var got []report.FitJSON
 	sc := bufio.NewScanner(strings.NewReader(stdout))
 	for sc.Scan() {
-		var rec fitJSON
+		var rec report.FitJSON
 		if err := json.Unmarshal(sc.Bytes(), &rec); err != nil {
 			t.Fatalf("bad JSON line %q: %v", sc.Text(), err)
 		}
@@ -87,8 +88,8 @@ func TestReplay_JSONMatchesEngine(t *testing.T) {
 			sol := want[id].Solve(w.idx)
 			for _, m := range rolling.Models {
 				order = append(order, id+"/"+w.label+"/"+m.String())
-				exp := newFitJSON(id, w.label, sol.Fit(m))
-				var rec *fitJSON
+				exp := report.NewFitJSON(id, w.label, sol.Fit(m))
+				var rec *report.FitJSON
 				for i := range got {
 					if got[i].Sensor == id && got[i].Window == w.label && got[i].Model == m.String() {
 						rec = &got[i]

@@ -1,9 +1,9 @@
 package main
 
 import (
+	"cmp"
 	"context"
 	"errors"
-	"flag"
 	"fmt"
 	"io"
 	"net"
@@ -24,8 +24,10 @@ import (
 	"github.com/rs/zerolog"
 
 	"driftfit/alert"
+	demoplant "driftfit/cmd/driftfit/internal/demo"
 	"driftfit/configs"
 	"driftfit/ingest"
+	"driftfit/ingest/readapi"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -37,8 +39,7 @@ const dbFile = "driftfit.db"
 const demoConfig = "configs/demo.yaml"
 
 func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) error {
-	fs := flag.NewFlagSet("serve", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+	fs := newFlags("serve", serveHelp)
 	cfgPath := fs.String("config", "", "configuration `FILE` (YAML); --demo defaults it to "+demoConfig)
 	demo := fs.Bool("demo", false, "also publish the invented demo plant's readings, 30 days compressed into about a minute, then live")
 	dataDir := fs.String("data", "", "data directory (overrides store.dir)")
@@ -47,15 +48,8 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	natsPort := fs.Int("nats-port", 4222, "port of the embedded NATS server on 127.0.0.1 (-1: any free port)")
 	logFormat := fs.String("log-format", "json", "log format: json or console")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
-	fs.Usage = func() {
-		fmt.Fprintln(stderr, "Usage: driftfit serve [flags]\n\nRuns the service: reads readings from NATS, keeps the sliding fits of every\nsensor, stores their state and fit history. With no bus.servers configured it\nstarts an embedded NATS server with JetStream on 127.0.0.1.\n\nFlags:")
-		fs.PrintDefaults()
-	}
-	if err := fs.Parse(args); err != nil {
-		return err
-	}
-	if fs.NArg() != 0 {
-		return usageError("unexpected arguments %q", fs.Args())
+	if pos, err := fs.parse(args); err != nil || len(pos) != 0 {
+		return cmp.Or(err, usageError("unexpected arguments %q", pos))
 	}
 	if *cfgPath == "" && *demo {
 		*cfgPath = demoConfig
@@ -117,17 +111,17 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		}
 	}()
 
-	stopAPI, err := serveAPI(bus.nc, db, log)
+	stopAPI, err := readapi.Serve(bus.nc, db, log)
 	if err != nil {
 		return err
 	}
 	defer stopAPI()
 
 	opts := serviceOptions(cfg, bus.nc, db, &log, metrics)
-	var board *driftBoard
+	var board *demoplant.Board
 	if *demo {
-		board = newDriftBoard()
-		opts.OnPaneClose = board.paneClosed
+		board = demoplant.NewBoard(classUnit(cfg))
+		opts.OnPaneClose = board.PaneClosed
 	}
 	svc, err := ingest.New(opts)
 	if err != nil {
@@ -162,11 +156,11 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	boardDone := make(chan struct{})
 	if *demo {
 		go func() {
-			demoDone <- publishDemo(runCtx, bus.nc, demoOptions{prefix: cfg.Bus.SubjectPrefix, live: true, bad: true}, log)
+			demoDone <- demoplant.Publish(runCtx, bus.nc, demoplant.Options{Prefix: cfg.Bus.SubjectPrefix, Live: true, Bad: true}, log)
 		}()
 		go func() {
 			defer close(boardDone)
-			board.run(runCtx, 10*time.Second, 3, log.With().Str("component", "demo").Logger())
+			board.Run(runCtx, 10*time.Second, 3, log.With().Str("component", "demo").Logger())
 		}()
 	} else {
 		demoDone <- nil
@@ -238,21 +232,6 @@ func sensorConfig(cfg *configs.Config) func(id string) (ingest.SensorConfig, err
 		}
 		return ingest.SensorConfig{Windows: toSpecs(c.Windows), Unit: c.Unit, Group: c.Group}, nil
 	}
-}
-
-func newLogger(w io.Writer, format, level string) (zerolog.Logger, error) {
-	lvl, err := zerolog.ParseLevel(level)
-	if err != nil {
-		return zerolog.Logger{}, fmt.Errorf("--log-level %q: %w", level, err)
-	}
-	switch format {
-	case "json":
-	case "console":
-		w = zerolog.ConsoleWriter{Out: w, TimeFormat: time.RFC3339}
-	default:
-		return zerolog.Logger{}, fmt.Errorf("--log-format %q: want json or console", format)
-	}
-	return zerolog.New(w).Level(lvl).With().Timestamp().Logger(), nil
 }
 
 func isLoopback(host string) bool {

@@ -1,4 +1,4 @@
-package main
+package report
 
 import (
 	"fmt"
@@ -8,7 +8,6 @@ import (
 	"os"
 	"path/filepath"
 	"strconv"
-	"strings"
 	"time"
 
 	"gonum.org/v1/plot"
@@ -39,23 +38,59 @@ type plotPoint struct {
 	levelCI, rateCI [2]float64
 }
 
-// addPlotPoint appends sol's line fit to the series of its window.
-func addPlotPoint(series []plotSeries, label string, sol *rolling.Solution) []plotSeries {
+// picture draws fit history: per window, the line fit's level and drift
+// rate over time with their 95% bands. It keeps one point per record and
+// draws on Close.
+type picture struct {
+	unsupported
+	w      io.Writer
+	o      Options
+	svg    bool
+	sensor string
+	series []plotSeries
+}
+
+func newPNG(w io.Writer, o Options) Writer { return &picture{w: w, o: o} }
+func newSVG(w io.Writer, o Options) Writer { return &picture{w: w, o: o, svg: true} }
+
+// Fit adds sol's line fit to the series of its window, whatever m: the
+// picture shows the line fit, once per record.
+func (p *picture) Fit(sensor, label string, sol *rolling.Solution, _ rolling.Model) error {
+	if p.sensor == "" {
+		p.sensor = sensor
+	}
 	i := 0
-	for i < len(series) && series[i].label != label {
+	for i < len(p.series) && p.series[i].label != label {
 		i++
 	}
-	if i == len(series) {
-		series = append(series, plotSeries{label: label})
+	if i == len(p.series) {
+		p.series = append(p.series, plotSeries{label: label})
+	}
+	t := float64(sol.Last.UnixNano()) / 1e9
+	if pts := p.series[i].pts; len(pts) > 0 && pts[len(pts)-1].t == t {
+		return nil // the same record, another model
 	}
 	f := &sol.Line
-	p := plotPoint{t: float64(sol.Last.UnixNano()) / 1e9, ok: f.OK(), settled: sol.Coverage() >= settledCoverage}
-	if p.ok {
-		p.level, p.levelCI = f.Coef[0], f.CI[0]
-		p.rate, p.rateCI = f.Coef[1], f.CI[1]
+	pt := plotPoint{t: t, ok: f.OK(), settled: sol.Coverage() >= settledCoverage}
+	if pt.ok {
+		pt.level, pt.levelCI = f.Coef[0], f.CI[0]
+		pt.rate, pt.rateCI = f.Coef[1], f.CI[1]
 	}
-	series[i].pts = append(series[i].pts, p)
-	return series
+	p.series[i].pts = append(p.series[i].pts, pt)
+	return nil
+}
+
+// Close draws the picture; ErrNothingToDraw when no record came.
+func (p *picture) Close() error {
+	if len(p.series) == 0 {
+		return ErrNothingToDraw
+	}
+	c, err := drawHistory(p.svg, p.sensor, p.o.unit(p.sensor), p.series)
+	if err != nil {
+		return err
+	}
+	_, err = c.WriteTo(p.w)
+	return err
 }
 
 // settledCoverage is the fraction of a window's panes that must hold
@@ -87,32 +122,27 @@ var (
 	zeroLine  = color.Gray{Y: 0x40}
 )
 
-// writeHistoryPlot draws the series into path, PNG or SVG by its
-// extension: per window a column with the level above and the drift
-// rate below, both against time. unit labels the axes ("" for unknown).
-func writeHistoryPlot(path, sensor, unit string, series []plotSeries) error {
+// drawHistory draws the series as PNG or SVG: per window a column with
+// the level above and the drift rate below, both against time. unit
+// labels the axes ("" for unknown).
+func drawHistory(svg bool, sensor, unit string, series []plotSeries) (vg.CanvasWriterTo, error) {
 	if unit == "" {
 		unit = "value"
 	}
 	cols := len(series)
 	width := plotWidth + vg.Length(cols-1)*plotColWidth
-	var c vg.CanvasWriterTo
-	switch strings.ToLower(filepath.Ext(path)) {
-	case ".png":
-		c = vgimg.PngCanvas{Canvas: vgimg.NewWith(vgimg.UseWH(width, plotHeight), vgimg.UseDPI(plotDPI))}
-	case ".svg":
+	var c vg.CanvasWriterTo = vgimg.PngCanvas{Canvas: vgimg.NewWith(vgimg.UseWH(width, plotHeight), vgimg.UseDPI(plotDPI))}
+	if svg {
 		// Embedded fonts make the SVG look like the PNG: a viewer
 		// without Liberation fonts would substitute wider ones and push
 		// the titles past the edge.
 		c = vgsvg.NewWith(vgsvg.UseWH(width, plotHeight), vgsvg.EmbedFonts(true))
-	default:
-		return fmt.Errorf("want a .png or .svg file name")
 	}
 	plots := [][]*plot.Plot{make([]*plot.Plot, cols), make([]*plot.Plot, cols)}
 	for i, s := range series {
-		top, bottom, err := seriesPlots(sensor, unit, s)
+		top, bottom, err := seriesPlots(EscapeID(sensor), unit, s)
 		if err != nil {
-			return err
+			return nil, err
 		}
 		plots[0][i], plots[1][i] = top, bottom
 	}
@@ -132,7 +162,7 @@ func writeHistoryPlot(path, sensor, unit string, series []plotSeries) error {
 			plots[j][i].Draw(canvases[j][i])
 		}
 	}
-	return writeFileAtomic(path, c)
+	return c, nil
 }
 
 // seriesPlots builds the level and rate panels of one window.
@@ -285,9 +315,11 @@ func addBand(p *plot.Plot, run []plotPoint, get func(plotPoint) ([2]float64, flo
 	return nil
 }
 
-// writeFileAtomic writes c to a temporary file beside path and renames
-// it into place, so a failed write leaves no half-written picture.
-func writeFileAtomic(path string, c io.WriterTo) (err error) {
+// WriteFileAtomic writes what write gives to a temporary file beside
+// path and renames it into place, so a failed write leaves no
+// half-written file. The file is readable by all (0644): it is for
+// sharing.
+func WriteFileAtomic(path string, write func(io.Writer) error) (err error) {
 	f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".*")
 	if err != nil {
 		return err
@@ -302,7 +334,7 @@ func writeFileAtomic(path string, c io.WriterTo) (err error) {
 	if err = f.Chmod(0o644); err != nil {
 		return err
 	}
-	if _, err = c.WriteTo(f); err != nil {
+	if err = write(f); err != nil {
 		return err
 	}
 	if err = f.Close(); err != nil {

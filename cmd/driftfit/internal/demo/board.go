@@ -1,4 +1,4 @@
-package main
+package demo
 
 import (
 	"context"
@@ -9,15 +9,16 @@ import (
 
 	"github.com/rs/zerolog"
 
-	"driftfit/configs"
+	"driftfit/cmd/driftfit/internal/report"
 	"driftfit/rolling"
 )
 
-// driftBoard keeps the latest line fit of each sensor's longest window, as
+// Board keeps the latest line fit of each sensor's longest window, as
 // panes close, and logs the sensors whose drift stands out most. It gives a
 // newcomer running the demo something to watch; alert rules are the real
 // decision.
-type driftBoard struct {
+type Board struct {
+	unit   func(id string) string
 	mu     sync.Mutex
 	latest map[string]boardEntry
 }
@@ -27,11 +28,18 @@ type boardEntry struct {
 	fit    rolling.Fit
 }
 
-func newDriftBoard() *driftBoard { return &driftBoard{latest: map[string]boardEntry{}} }
+// NewBoard returns an empty board; unit gives a sensor's engineering unit
+// for the log ("" unknown; nil: none known).
+func NewBoard(unit func(id string) string) *Board {
+	if unit == nil {
+		unit = func(string) string { return "" }
+	}
+	return &Board{unit: unit, latest: map[string]boardEntry{}}
+}
 
-// paneClosed is an ingest.Options.OnPaneClose hook; it runs on the
-// sensors' workers.
-func (b *driftBoard) paneClosed(id string, _ int, sol *rolling.Solution) {
+// PaneClosed is an ingest.Options.OnPaneClose hook; it runs on the
+// sensors' workers and is safe for concurrent use.
+func (b *Board) PaneClosed(id string, _ int, sol *rolling.Solution) {
 	b.mu.Lock()
 	defer b.mu.Unlock()
 	if e, ok := b.latest[id]; ok && e.window.Span > sol.Window.Span {
@@ -40,8 +48,8 @@ func (b *driftBoard) paneClosed(id string, _ int, sol *rolling.Solution) {
 	b.latest[id] = boardEntry{window: sol.Window, fit: sol.Line}
 }
 
-// run logs the top drifting sensors every interval until ctx is done.
-func (b *driftBoard) run(ctx context.Context, interval time.Duration, top int, log zerolog.Logger) {
+// Run logs the top drifting sensors every interval until ctx is done.
+func (b *Board) Run(ctx context.Context, interval time.Duration, top int, log zerolog.Logger) {
 	tick := time.NewTicker(interval)
 	defer tick.Stop()
 	type ranked struct {
@@ -77,11 +85,16 @@ func (b *driftBoard) run(ctx context.Context, interval time.Duration, top int, l
 		})
 		for i, r := range rs[:min(top, len(rs))] {
 			f := &r.e.fit
+			// Rounded to the digits the 95% interval leaves meaningful.
+			u := f.TCrit * f.SE[1]
+			unit := b.unit(r.id)
 			log.Info().Int("rank", i+1).Str("sensor", r.id).
-				Str("window", configs.FormatDuration(r.e.window.Span)+"/"+configs.FormatDuration(r.e.window.Pane)).
-				Float64("slope", f.Coef[1]).Float64("ci_low", f.CI[1][0]).Float64("ci_high", f.CI[1][1]).
-				Float64("value_now", f.Coef[0]).Int("n", f.N).Float64("se_ratio", r.score).
-				Msg("drift standing out (per day)")
+				Str("window", report.WindowLabel(r.e.window)).
+				Float64("slope", report.RoundTo(f.Coef[1], u)).Float64("slope_ci95", report.RoundTo(u, u)).
+				Str("slope_unit", unit+"/d").
+				Float64("value_now", report.RoundTo(f.Coef[0], f.TCrit*f.SE[0])).Str("unit", unit).
+				Int("n", f.N).Float64("se_ratio", report.RoundTo(r.score, 0.1)).
+				Msg("drift standing out")
 		}
 	}
 }

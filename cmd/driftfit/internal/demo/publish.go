@@ -1,0 +1,157 @@
+package demo
+
+import (
+	"context"
+	"math/rand/v2"
+	"strconv"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/rs/zerolog"
+
+	"driftfit/ingest"
+	"driftfit/rolling"
+)
+
+// Options configure Publish. Zero fields take the defaults given.
+type Options struct {
+	Prefix   string        // subject prefix; readings go to <prefix>.<id> (default driftfit.in)
+	Sensors  int           // fleet size (0: the plant's 360)
+	Backfill time.Duration // plant time published before now, compressed (default 30 days)
+	Wall     time.Duration // wall time the backfill takes (default 1 minute)
+	Every    time.Duration // plant time between readings of one sensor (default 1 hour)
+	Live     bool          // after the backfill, publish a reading per sensor every LiveEvery
+	Seed     uint64        // seed of the reading noise (default 1)
+	Batch    int           // readings of one sensor per message (consecutive steps); 0 or 1: single readings
+	Rate     float64       // readings per second during the backfill; 0: as set by Wall
+	Bad      bool          // send bursts of bad messages
+}
+
+// LiveEvery is the wall (and plant) time between live demo readings.
+const LiveEvery = 10 * time.Second
+
+func (o *Options) fill() {
+	if o.Prefix == "" {
+		o.Prefix = "driftfit.in"
+	}
+	if o.Backfill <= 0 {
+		o.Backfill = 30 * 24 * time.Hour
+	}
+	if o.Wall <= 0 {
+		o.Wall = time.Minute
+	}
+	if o.Every <= 0 {
+		o.Every = time.Hour
+	}
+	if o.Seed == 0 {
+		o.Seed = 1
+	}
+}
+
+// Publish publishes the demo plant's readings on nc: the last o.Backfill of
+// plant time compressed into o.Wall, ending at the present, then (if
+// o.Live) one reading per sensor every LiveEvery. Every 100th step it
+// also sends a burst of bad messages, one of each kind the service
+// rejects, so the dead-letter subject and its counters have something
+// to show.
+func Publish(ctx context.Context, nc *nats.Conn, o Options, log zerolog.Logger) error {
+	o.fill()
+	plant := Fleet(o.Sensors)
+	rng := rand.New(rand.NewPCG(o.Seed, 0))
+	start := time.Now().Add(-o.Backfill).Truncate(o.Every)
+	steps := int(o.Backfill / o.Every)
+	pause := o.Wall / time.Duration(max(steps, 1))
+	log = log.With().Str("component", "demo").Logger()
+	log.Info().Int("sensors", len(plant)).Dur("plant_time", o.Backfill).Dur("wall_time", o.Wall).Msg("demo feed started")
+	if o.Rate > 0 {
+		pause = time.Duration(float64(time.Second) * float64(len(plant)) / o.Rate)
+	}
+	batch := max(o.Batch, 1)
+	var buf []byte
+	var rs []rolling.Reading
+	publishBatch := func(step, n int) error {
+		for i := range plant {
+			s := &plant[i]
+			rs = rs[:0]
+			for j := range n {
+				at := start.Add(time.Duration(step+j) * o.Every)
+				rs = append(rs, rolling.Reading{UnixNano: at.UnixNano(), Value: s.Value(at.Sub(start).Hours()/24, rng)})
+			}
+			if n == 1 {
+				buf = ingest.AppendReading(buf[:0], ingest.Decoded{Reading: rs[0]})
+			} else {
+				buf = ingest.AppendBatch(buf[:0], s.ID, rs)
+			}
+			if err := nc.Publish(o.Prefix+"."+s.ID, buf); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
+	publish := func(at time.Time) error {
+		d := at.Sub(start).Hours() / 24
+		for i := range plant {
+			s := &plant[i]
+			buf = ingest.AppendReading(buf[:0], ingest.Decoded{Reading: rolling.Reading{UnixNano: at.UnixNano(), Value: s.Value(d, rng)}})
+			if err := nc.Publish(o.Prefix+"."+s.ID, buf); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
+	tick := time.NewTicker(max(pause, time.Millisecond))
+	defer tick.Stop()
+	for step := 0; step < steps; step += batch {
+		n := min(batch, steps-step)
+		if err := publishBatch(step, n); err != nil {
+			return err
+		}
+		if o.Bad && step/100 != (step+n)/100 {
+			publishBad(nc, o.Prefix, plant[0].ID)
+		}
+		for range n {
+			select {
+			case <-ctx.Done():
+				return ctx.Err()
+			case <-tick.C:
+			}
+		}
+	}
+	if err := nc.Flush(); err != nil {
+		return err
+	}
+	log.Info().Int("steps", steps).Msg("demo backfill published")
+	if !o.Live {
+		return nil
+	}
+	live := time.NewTicker(LiveEvery)
+	defer live.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case now := <-live.C:
+			if err := publish(now); err != nil {
+				return err
+			}
+		}
+	}
+}
+
+// publishBad sends one message of each kind of bad input.
+func publishBad(nc *nats.Conn, prefix, id string) {
+	now := strconv.FormatInt(time.Now().Unix(), 10)
+	future := strconv.FormatInt(time.Now().Add(48*time.Hour).Unix(), 10)
+	for _, payload := range []string{
+		`{"t": ` + now + `, "v": `,                                      // malformed JSON
+		`{"t": ` + now + `}`,                                            // missing value
+		`{"t": "yesterday", "v": 1}`,                                    // bad time
+		`{"t": ` + now + `, "v": 1e999}`,                                // non-finite
+		`{"t": ` + future + `, "v": 1}`,                                 // future time
+		`{"t": ` + now + `, "v": 1, "unit": "psi"}`,                     // unit mismatch (a kPa sensor)
+		`[{"t": ` + now + `, "v": 1000}, {"t": ` + now + `, "v": "x"}]`, // one good, one of the wrong type
+		`{"t": 946684800, "v": 1}`,                                      // older than every window
+	} {
+		_ = nc.Publish(prefix+"."+id, []byte(payload))
+	}
+}

@@ -1,0 +1,194 @@
+package readapi
+
+import (
+	"bytes"
+	"context"
+	"encoding/binary"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/nats-io/nats.go"
+
+	"driftfit/ingest"
+	"driftfit/rolling"
+	"driftfit/store"
+)
+
+// Client reads a running service's state through its read API. It has
+// the reading methods of *store.DB that the commands use, so either can
+// stand behind one interface. It is safe for concurrent use.
+type Client struct {
+	nc  *nats.Conn
+	url string
+}
+
+// Dial connects to the NATS server at url; name labels the connection
+// in the server's monitoring.
+func Dial(url, name string) (*Client, error) {
+	nc, err := nats.Connect(url, nats.Name(name), nats.Timeout(2*time.Second))
+	if err != nil {
+		return nil, fmt.Errorf("connect to the service at %s: %w", url, err)
+	}
+	return &Client{nc: nc, url: url}, nil
+}
+
+// Path names where the client reads, for messages.
+func (c *Client) Path() string { return "the service at " + c.url }
+
+// Close closes the connection. It always returns nil.
+func (c *Client) Close() error { c.nc.Close(); return nil }
+
+// request sends data to subject and hands each reply's payload to fn
+// until the last one.
+func (c *Client) request(subject string, data []byte, fn func([]byte) error) error {
+	inbox := c.nc.NewRespInbox()
+	sub, err := c.nc.SubscribeSync(inbox)
+	if err != nil {
+		return err
+	}
+	defer sub.Unsubscribe()
+	if err := c.nc.PublishRequest(subject, inbox, data); err != nil {
+		return err
+	}
+	for {
+		m, err := sub.NextMsg(Timeout)
+		if errors.Is(err, nats.ErrTimeout) {
+			return fmt.Errorf("%w at %s on %s within %v", ErrNoAnswer, c.url, subject, Timeout)
+		}
+		if err != nil {
+			return err
+		}
+		if len(m.Data) > 0 {
+			if err := fn(m.Data); err != nil {
+				return err
+			}
+		}
+		if e := m.Header.Get(HeaderError); e != "" {
+			return &ServiceError{Subject: subject, Msg: e}
+		}
+		if m.Header.Get(HeaderMore) == "" {
+			return nil
+		}
+	}
+}
+
+func newRequest(sensor string, window rolling.WindowSpec, since, until time.Time) ([]byte, error) {
+	q := Request{Sensor: sensor, SpanNs: int64(window.Span), PaneNs: int64(window.Pane)}
+	if !since.IsZero() {
+		q.SinceNs = since.UnixNano()
+	}
+	if !until.IsZero() {
+		q.UntilNs = until.UnixNano()
+	}
+	return json.Marshal(q)
+}
+
+// History calls fn with the fit records of sensor, as store.DB.History.
+func (c *Client) History(sensor string, window rolling.WindowSpec, since, until time.Time, fn func(store.HistoryRecord) error) error {
+	data, err := newRequest(sensor, window, since, until)
+	if err != nil {
+		return err
+	}
+	return c.request(HistorySubject, data, func(b []byte) error {
+		for len(b) > 0 {
+			rec, n, err := store.DecodeHistoryRecord(b)
+			if err != nil {
+				return fmt.Errorf("%w: %w", ErrMalformedReply, err)
+			}
+			if err := fn(rec); err != nil {
+				return err
+			}
+			b = b[n:]
+		}
+		return nil
+	})
+}
+
+// HistorySensors calls fn with every sensor id that has fit history, as
+// store.DB.HistorySensors.
+func (c *Client) HistorySensors(fn func(id string) error) error {
+	return c.request(SensorsSubject, nil, func(b []byte) error {
+		for len(b) > 0 {
+			id, rest, _ := bytes.Cut(b, []byte{'\n'})
+			if err := fn(string(id)); err != nil {
+				return err
+			}
+			b = rest
+		}
+		return nil
+	})
+}
+
+// Events calls fn with the stored alert events, as store.DB.Events.
+func (c *Client) Events(since, until time.Time, fn func(at time.Time, data []byte) error) error {
+	data, err := newRequest("", rolling.WindowSpec{}, since, until)
+	if err != nil {
+		return err
+	}
+	return c.request(EventsSubject, data, func(b []byte) error {
+		for len(b) > 0 {
+			at, k := binary.Varint(b)
+			if k <= 0 {
+				return ErrMalformedReply
+			}
+			ev, rest, err := readFrame(b[k:])
+			if err != nil {
+				return err
+			}
+			if err := fn(time.Unix(0, at), ev); err != nil {
+				return err
+			}
+			b = rest
+		}
+		return nil
+	})
+}
+
+// Tickets calls fn with the stored tickets, as store.DB.Tickets.
+func (c *Client) Tickets(fn func(id string, data []byte) error) error {
+	return c.request(TicketsSubject, nil, func(b []byte) error {
+		for len(b) > 0 {
+			id, rest, err := readFrame(b)
+			if err != nil {
+				return err
+			}
+			tk, rest, err := readFrame(rest)
+			if err != nil {
+				return err
+			}
+			if err := fn(string(id), tk); err != nil {
+				return err
+			}
+			b = rest
+		}
+		return nil
+	})
+}
+
+// Calibrate sends a calibration of sensor to the service on
+// prefix.sensor and waits for its answer (at most Timeout).
+func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal ingest.CalibrationMsg) error {
+	payload, err := json.Marshal(cal)
+	if err != nil {
+		return err
+	}
+	ctx, cancel := context.WithTimeout(ctx, Timeout)
+	defer cancel()
+	msg, err := c.nc.RequestWithContext(ctx, prefix+"."+sensor, payload)
+	if err != nil {
+		return fmt.Errorf("%w at %s: %w", ErrNoAnswer, c.url, err)
+	}
+	var ans struct {
+		OK    bool   `json:"ok"`
+		Error string `json:"error"`
+	}
+	if err := json.Unmarshal(msg.Data, &ans); err != nil {
+		return fmt.Errorf("%w: %w", ErrMalformedReply, err)
+	}
+	if !ans.OK {
+		return &ServiceError{Subject: prefix + "." + sensor, Msg: ans.Error}
+	}
+	return nil
+}

@@ -1,0 +1,75 @@
+// Package readapi is the read protocol between a running driftfit serve
+// and the commands that read its state file while serve holds the file's
+// lock (history, alerts, tickets, calibrated): the subjects, the request
+// type, the chunked replies, and both ends of it, Serve and Client.
+//
+// # Protocol
+//
+// A request is a NATS request on one of the subjects below, its payload
+// a JSON Request (empty for the sensor list and tickets). The answer is
+// one or more messages to the request's reply inbox, each at most about
+// ChunkBytes of payload: every message but the last carries the header
+// Driftfit-More: 1, and the last carries Driftfit-Error when the request
+// failed part way. Payloads are:
+//
+//   - history: fit-history records back to back, in the store's record
+//     encoding (store.AppendHistoryRecord), in the order store.DB.History
+//     returns them;
+//   - sensors: sensor ids, each followed by a newline;
+//   - events: per event its time (varint Unix ns) and its JSON as a frame
+//     (uvarint length, then the bytes);
+//   - tickets: per ticket its id as a frame, then its JSON as a frame.
+//
+// Calibrations travel the other way, as a request on
+// <calibration prefix>.<sensor> with a JSON ingest.CalibrationMsg,
+// answered with {"ok":true} once stored, or {"error":"..."}; Client sends
+// them, ingest answers them.
+package readapi
+
+import "time"
+
+// Subjects of the read API.
+const (
+	HistorySubject = "driftfit.api.history"
+	SensorsSubject = "driftfit.api.sensors"
+	EventsSubject  = "driftfit.api.events"
+	TicketsSubject = "driftfit.api.tickets"
+)
+
+// Reply headers.
+const (
+	HeaderMore  = "Driftfit-More"  // "1" on every reply but the last
+	HeaderError = "Driftfit-Error" // on the last reply, when the request failed
+)
+
+const (
+	// ChunkBytes bounds one reply's payload, well under NATS's default
+	// 1 MiB max_payload.
+	ChunkBytes = 256 << 10
+	// Timeout bounds the wait for each reply message.
+	Timeout = 10 * time.Second
+	// DefaultURL is where clients look for a running service by default:
+	// the embedded NATS server's default address.
+	DefaultURL = "nats://127.0.0.1:4222"
+)
+
+// Request is the JSON request of the history and events subjects. Zero
+// fields leave that filter open.
+type Request struct {
+	Sensor  string `json:"sensor"`
+	SpanNs  int64  `json:"span_ns,omitempty"`
+	PaneNs  int64  `json:"pane_ns,omitempty"`
+	SinceNs int64  `json:"since_ns,omitempty"`
+	UntilNs int64  `json:"until_ns,omitempty"`
+}
+
+// Times returns the request's time range; zero ends are open.
+func (q *Request) Times() (since, until time.Time) {
+	if q.SinceNs != 0 {
+		since = time.Unix(0, q.SinceNs)
+	}
+	if q.UntilNs != 0 {
+		until = time.Unix(0, q.UntilNs)
+	}
+	return since, until
+}
