@@ -11,10 +11,13 @@ import (
 
 // commitToken travels down every worker queue behind the readings of one
 // commit; each worker answers with a snapshot of what changed. all asks
-// for every changed sensor, whatever the budget (the last commit).
+// for every changed sensor, whatever the budget (the last commit);
+// urgentOnly for the sensors with a decision or calibration waiting alone,
+// so that a decision's commit is small.
 type commitToken struct {
-	parts chan part
-	all   bool
+	parts      chan part
+	all        bool
+	urgentOnly bool
 }
 
 type part struct {
@@ -55,11 +58,11 @@ type commitReq struct {
 // transaction. It blocks while a commit is queued behind the one
 // writing, which is what bounds the work in flight; Run asks
 // committerFree first, except for the last commit.
-func (s *Service) commit() *commitReq { return s.commitCut(false) }
+func (s *Service) commit() *commitReq { return s.commitCut(false, false) }
 
-func (s *Service) commitCut(all bool) *commitReq {
+func (s *Service) commitCut(all, urgentOnly bool) *commitReq {
 	s.flush()
-	tok := &commitToken{parts: make(chan part, len(s.workers)), all: all}
+	tok := &commitToken{parts: make(chan part, len(s.workers)), all: all, urgentOnly: urgentOnly}
 	for _, w := range s.workers {
 		w.in <- &workBatch{token: tok}
 	}
@@ -98,6 +101,9 @@ func (w *worker) snapshot(tok *commitToken) {
 	b := <-w.pool
 	var err error
 	budget := w.s.budget
+	if tok.urgentOnly {
+		budget = 0
+	}
 	rest := w.touch[:0]
 	var pending uint64
 	for _, ref := range w.touch {

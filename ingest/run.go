@@ -178,6 +178,7 @@ func (s *Service) Stats() Stats {
 		Rejected: s.rejected.Load(),
 		Sensors:  int(s.sensors.Load()),
 		Position: s.position.Load(),
+		Backlog:  s.backlog.Load(),
 	}
 }
 
@@ -274,7 +275,7 @@ loop:
 		// soon as the committer is free, so it goes out without waiting
 		// for the interval.
 		if s.urgent && s.committerFree() {
-			s.commit()
+			s.commitCut(false, true) // the rest follows as backlog
 		}
 	}
 
@@ -303,9 +304,9 @@ loop:
 		}
 	}
 	if runErr == nil {
-		<-s.commitCut(true).finished
+		<-s.commitCut(true, false).finished
 		if s.outbox.flushed(s.o.StopTimeout) && s.outbox.pendingDone() {
-			<-s.commitCut(true).finished
+			<-s.commitCut(true, false).finished
 		}
 	}
 	stopAll()

@@ -102,7 +102,8 @@ type Options struct {
 	// The others wait for the next commit, oldest change first; each
 	// sensor stores the stream sequence its state holds, so a restart
 	// from the older position skips what it already has. The last commit
-	// at shutdown writes everything. Default 20,000.
+	// at shutdown writes everything. Default 5,000 (about 0.12 s with
+	// fsync on a 2-core VM).
 	CommitMaxSensors int
 	// FutureSkew is how far a reading's time may lie ahead of Now.
 	// Default 5m.
@@ -184,7 +185,7 @@ func (o *Options) fill() error {
 		o.CommitReadings = 1000000
 	}
 	if o.CommitMaxSensors <= 0 {
-		o.CommitMaxSensors = 20000
+		o.CommitMaxSensors = 5000
 	}
 	if o.FutureSkew <= 0 {
 		o.FutureSkew = 5 * time.Minute
@@ -232,4 +233,7 @@ type Stats struct {
 	Rejected uint64 // readings and payloads refused
 	Sensors  int    // sensors held
 	Position uint64 // stream sequence of the last committed message
+	// Backlog says the last commit left changed sensors for the next
+	// (Options.CommitMaxSensors).
+	Backlog bool
 }

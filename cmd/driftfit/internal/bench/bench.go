@@ -604,8 +604,8 @@ func (p *benchPipeline) waitLive(ctx context.Context, nc *nats.Conn, subject str
 }
 
 // warmUp sends one message for every sensor of the pool and waits until
-// they are applied: a sensor's windows are allocated with its first
-// reading, which is not the steady state to measure.
+// they are applied and committed: a sensor's windows are allocated with
+// its first reading, which is not the steady state to measure.
 func (p *benchPipeline) warmUp(ctx context.Context, nc *nats.Conn, pool *benchPool) error {
 	want := p.svc.Stats().Applied
 	seen := map[string]bool{}
@@ -625,7 +625,11 @@ func (p *benchPipeline) warmUp(ctx context.Context, nc *nats.Conn, pool *benchPo
 	if !waitUntil(ctx, time.Minute, func() bool { return p.svc.Stats().Applied >= want }) {
 		return errors.New("bench: warm-up readings not applied within a minute")
 	}
-	return nil
+	// Every sensor was touched: let the commits that write them all (a
+	// few, each of at most store.commit_max_sensors) finish, so the phase
+	// starts from a service at rest.
+	_, err := p.committed(ctx, want)
+	return err
 }
 
 // committed waits until the file holds at least n applied readings and
