@@ -13,6 +13,9 @@ import (
 // every setting is in standard deviations of z, whatever the sensor's
 // unit.
 type StepSettings struct {
+	// On enables the Step kind in a Rule (Rule.Detect.Step); a
+	// StepDetector ignores it.
+	On bool
 	// K is the CUSUM reference value: half the shift, in standard
 	// deviations, the chart is tuned to find fastest. Zero means 0.5 (a
 	// one-sigma step, the usual design; Montgomery, Introduction to

@@ -54,24 +54,18 @@ type Event struct {
 	Caution       string     `json:"caution"`
 }
 
-// reportUnit returns the unit of values and limits of kind k.
-func reportUnit(k Kind, unit string) string {
-	switch k {
-	case Slope:
-		return unit + "/d"
-	case Curvature:
-		return unit + "/d²"
-	case Doubling:
-		return "1/d"
-	case LeadTime:
-		return "d"
-	}
-	return ""
-}
-
 // WindowName formats a window as "span/pane", each in the largest whole
 // unit of d, h, m or s that fits ("30d/1d", "1d/1h", "90m/15m").
 func WindowName(w rolling.WindowSpec) string { return durName(w.Span) + "/" + durName(w.Pane) }
+
+// windowLabel is WindowName, or "" for the zero window of the alerts
+// kept once per sensor.
+func windowLabel(w rolling.WindowSpec) string {
+	if w == (rolling.WindowSpec{}) {
+		return ""
+	}
+	return WindowName(w)
+}
 
 func durName(d time.Duration) string {
 	switch {
