@@ -44,11 +44,15 @@ import (
 // 97.5% t, so a breach still needs the 95% interval beyond the limit.
 //
 // With the defaults (0.01 a year, both budgets equal) and a rule of four
-// limit kinds, two of them opening tickets, on windows 1d/1h and 30d/1d
-// with debounce 3: on the 1-day window α = 0.01/(8,766·4·2) = 1.4e-7,
-// p = 4.3e-7, q = 8.0 at 22 degrees of freedom; on the 30-day window
-// α = 3.4e-6, q = 6.4 at 28. That is the price of few false tickets:
-// a short window then raises only on drift many standard errors strong.
+// limit kinds on windows 1d/1h and 30d/1d with debounce 3: on the 1-day
+// window α = 0.01/(8,766·4·2) = 1.4e-7, p = 4.3e-7, q = 7.07 for a slope
+// at 22 degrees of freedom (Scheffé 7.84 for a line's lead time); on the
+// 30-day window α = 3.4e-6, p = 1.0e-5, q = 5.36 at 28 (Scheffé 5.97).
+// The 1-day window was judged 8,766 times a year against a floor of
+// 2t = 4.15 before, which promised up to 1.8e-4 slope raises an
+// evaluation: 1.6 false slope alerts a sensor-year on that window
+// alone. A short window now raises only on drift many standard errors
+// strong: that is the price of few false tickets.
 type Budget struct {
 	// FalseTicketsPerYear is the accepted rate of recalibration tickets
 	// opened by noise alone, per sensor-year. Zero means 0.01 (one in a

@@ -1,0 +1,123 @@
+package alert
+
+import (
+	"math"
+	"testing"
+	"time"
+
+	"driftfit/rolling"
+)
+
+// TestGateMultiple_ClosedForms checks the quantiles the gates take from
+// the budget against distributions with closed forms (Johnson, Kotz &
+// Balakrishnan, Continuous Univariate Distributions, vol. 2, ch. 27–28):
+//   - Student's t with 2 degrees of freedom has CDF ½ + t/(2√(2 + t²)),
+//     so its (1 − a) quantile is (1 − 2a)·√(2/(1 − (1 − 2a)²));
+//   - F(2, d) has survival (1 + 2f/d)^(−d/2), so its (1 − p) quantile
+//     is (d/2)·(p^(−2/d) − 1), and Scheffé's multiple for a line is
+//     √(2f).
+func TestGateMultiple_ClosedForms(t *testing.T) {
+	t2 := func(a float64) float64 { u := 1 - 2*a; return u * math.Sqrt(2/(1-u*u)) }
+	for _, p := range []float64{0.05, 1e-3, 1e-5, 4.3e-7} {
+		if got, want := gateMultiple(p, 2, 2, 0), t2(p/2); math.Abs(got-want) > 1e-6*want {
+			t.Errorf("gateMultiple(p %g, two-sided, df 2) = %v, want %v", p, got, want)
+		}
+		if got, want := gateMultiple(p, 1, 2, 0), t2(p); math.Abs(got-want) > 1e-6*want {
+			t.Errorf("gateMultiple(p %g, one-sided, df 2) = %v, want %v", p, got, want)
+		}
+		for _, d := range []int{5, 22, 28} {
+			f := float64(d) / 2 * (math.Pow(p, -2/float64(d)) - 1)
+			if got, want := schefféMultiple(p, 2, d, 0), math.Sqrt(2*f); math.Abs(got-want) > 1e-6*want {
+				t.Errorf("schefféMultiple(p %g, 2 coefficients, df %d) = %v, want %v", p, d, got, want)
+			}
+		}
+	}
+	// Never below the fit's own t.
+	if got := gateMultiple(0.5, 2, 22, 2.07); got != 2.07 {
+		t.Errorf("gateMultiple(p 0.5) = %v, want the floor 2.07", got)
+	}
+	if got := gateMultiple(1e-3, 2, 0, 2); !math.IsInf(got, 1) {
+		t.Errorf("gateMultiple(df 0) = %v, want +Inf (never breach)", got)
+	}
+}
+
+// TestBudget_Alpha: α = B/(E·K·W) written out. Windows 1d/1h and 30d/1d
+// are judged E = 365.2425·24 = 8765.82 and 365.2425 times a year. With
+// four limit kinds, slope and lead time opening tickets:
+//   - one budget of 0.01 for both: every kind α = 0.01/(E·4·2);
+//   - tickets 0.01, alerts 1: ticket kinds min(1/(E·4·2), 0.01/(E·2·2))
+//     = 0.01/(4E), the others 1/(8E).
+func TestBudget_Alpha(t *testing.T) {
+	base := DefaultRule()
+	base.Tolerance = 3
+	base.Limits = Limits{Slope: RateLimit{0.05, 0.1}, Curvature: RateLimit{0.01, 0.02},
+		Doubling: DurationLimit{90 * day, 30 * day}, LeadTime: DurationLimit{30 * day, 7 * day}}
+	e := [2]float64{365.2425 * 24, 365.2425}
+	tests := []struct {
+		name   string
+		budget Budget
+		want   func(w int, k Kind) float64
+	}{
+		{"default", Budget{}, func(w int, k Kind) float64 { return 0.01 / (e[w] * 8) }},
+		{"tickets 0.01, alerts 1", Budget{FalseTicketsPerYear: 0.01, AlertsPerYear: 1}, func(w int, k Kind) float64 {
+			if k == Slope || k == LeadTime {
+				return 0.01 / (4 * e[w])
+			}
+			return 1 / (8 * e[w])
+		}},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			r := base
+			r.Budget = tc.budget
+			tr, err := NewTracker("x", r)
+			if err != nil {
+				t.Fatal(err)
+			}
+			for w := range 2 {
+				for _, k := range []Kind{Slope, Curvature, Doubling, LeadTime} {
+					got, ok := tr.Alpha(w, k)
+					if want := tc.want(w, k); !ok || math.Abs(got-want) > 1e-12*want {
+						t.Errorf("Alpha(%d, %v) = %v, %v; want %v", w, k, got, ok, want)
+					}
+				}
+				if _, ok := tr.Alpha(w, Step); ok {
+					t.Errorf("Alpha(%d, step) granted; detector kinds are not gated on fits", w)
+				}
+			}
+		})
+	}
+	if got := EvaluationsPerYear(time.Hour); math.Abs(got-8765.82) > 1e-9 {
+		t.Errorf("EvaluationsPerYear(1h) = %v, want 8765.82", got)
+	}
+}
+
+// TestSEFor_RefusedMeansNotJudged: a fit whose standard error seFor
+// refuses (here NaN, as a correction that cannot be estimated would be)
+// leaves the window not judged, for the reason SerialUnknown.
+func TestSEFor_RefusedMeansNotJudged(t *testing.T) {
+	r := DefaultRule()
+	r.Tolerance, r.MinReadings = 3, 4
+	r.Limits.Slope.Warning = 0.05
+	rr, err := r.resolve()
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := rolling.Fit{Model: rolling.Line, N: 30, DF: 28, TCrit: 2.048, PosDef: true, Cond: 3, ResidSD: 1,
+		Coef: [3]float64{100, 1}, SE: [3]float64{0.1, 0.1}}
+	for i := range 2 {
+		f.CI[i] = [2]float64{f.Coef[i] - 0.2, f.Coef[i] + 0.2}
+	}
+	sol := rolling.Solution{Window: rr.Windows[1], Panes: 30, Filled: 30, N: 30, Line: f}
+	if j := rr.judgement(&sol, &sol.Line); j.Reason != Judged {
+		t.Fatalf("judgement = %v, want judged", j)
+	}
+	// A NaN SE fails usable (IllConditioned) before seFor is asked, so
+	// seFor's refusal is checked on its own.
+	if _, ok := seFor(&rolling.Fit{SE: [3]float64{0, math.NaN()}}, 1); ok {
+		t.Errorf("seFor(NaN SE) ok, want refused")
+	}
+	if _, ok := covScale(&rolling.Fit{SE: [3]float64{math.Inf(1), 0}}); ok {
+		t.Errorf("covScale(infinite SE) ok, want refused")
+	}
+}
