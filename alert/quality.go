@@ -382,7 +382,7 @@ type Finding struct {
 // carry the finding's Value and Limit in the kind's report unit, First
 // = Since and Last = now, and no fit (Model empty). A raise opens a
 // ticket only when the kind is in Rule.TicketKinds, no ticket is open,
-// and f.Fit is usable.
+// the as-left value is known, and f.Fit is a usable line or parabola.
 //
 // Errors: ErrBadTime for a zero or unrepresentable now, ErrBadFinding
 // for a kind that is not a detector kind or not set in the rule, a
