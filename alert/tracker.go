@@ -197,6 +197,47 @@ func (t *Tracker) evaluate(now time.Time, sol *rolling.Solution, peers *[2]int) 
 	return d, nil
 }
 
+// OpenTicket opens the ticket of the firing alert of kind k on sol's
+// window, for a caller that decides on tickets itself: a peer-group
+// member whose rule sets TicketKinds to an empty slice, so that raises
+// of its deviation open none, gets its ticket once Attribute returns
+// PeerAttributed for it. It opens nothing (a zero Decision) when that
+// alert is not firing, a ticket is already open, the as-left value is
+// not known, or the trend fit is not usable. Errors: ErrBadTime,
+// ErrUnknownWindow, ErrStale as for Evaluate.
+func (t *Tracker) OpenTicket(now time.Time, sol *rolling.Solution, k Kind) (Decision, error) {
+	var d Decision
+	if !timeOK(now) {
+		return d, fmt.Errorf("%w: ticket time %v", ErrBadTime, now)
+	}
+	now = utc(now)
+	r := &t.rule
+	if r.window(sol.Window) < 0 {
+		return d, fmt.Errorf("%w: sensor %s window %s", ErrUnknownWindow, t.sensor, WindowName(sol.Window))
+	}
+	if !t.calibrated.IsZero() && sol.N > 0 && sol.First.Before(t.calibrated) {
+		return d, fmt.Errorf("%w: sensor %s window %s first reading %v, calibrated %v",
+			ErrStale, t.sensor, WindowName(sol.Window), utc(sol.First), t.calibrated)
+	}
+	trend := sol.Fit(r.TrendModel)
+	if !r.usable(trend) && r.usable(&sol.Line) {
+		trend = &sol.Line
+	}
+	var m *machine
+	for i := range t.machines {
+		if t.machines[i].window == sol.Window && t.machines[i].kind == k {
+			m = &t.machines[i]
+		}
+	}
+	if m == nil || m.state != Firing || t.hasTicket || !t.hasAsLeft || !r.usable(trend) {
+		return d, nil
+	}
+	t.ticket, t.hasTicket = t.openTicket(now, sol.Window, sol.Coverage(), trend, k, m.sev), true
+	tk := t.ticket
+	d.Opened = &tk
+	return d, nil
+}
+
 // machine returns the state machine of (w, k), adding it if new.
 func (t *Tracker) machine(w rolling.WindowSpec, k Kind) *machine {
 	for i := range t.machines {
