@@ -23,8 +23,9 @@ import (
 //	α = B / (E · K · W)
 //
 // per evaluation. Kinds that open tickets share FalseTicketsPerYear (K
-// counting those kinds only); every limit kind shares AlertsPerYear; a
-// kind under both takes the smaller α.
+// counting those kinds only); every limit kind, and the step detector
+// when on (see Tracker.StepSettings), shares AlertsPerYear; a kind under
+// both takes the smaller α.
 //
 // Debounce d turns α into a gate: a raise needs d consecutive breaching
 // evaluations that no other raise uses, so raises per evaluation are at
@@ -106,6 +107,9 @@ func (r *Rule) alphas() [][]float64 {
 			}
 		}
 	}
+	if r.on(Step) {
+		all++ // the step detector takes a share of the alert budget
+	}
 	out := make([][]float64, len(r.Windows))
 	w := float64(len(r.Windows))
 	for i, spec := range r.Windows {
@@ -123,6 +127,36 @@ func (r *Rule) alphas() [][]float64 {
 		}
 	}
 	return out
+}
+
+// StepSettings returns the step detector settings of window w (an
+// index into the rule's windows) with H filled in from the budget when
+// the rule leaves it zero: the step detector takes one share of
+// AlertsPerYear like a limit kind, α = A/(E·K·W) per update, updated
+// once per pane close of the window (feed it the pane mean), so its
+// in-control average run length must be at least 1/α updates and H is
+// StepH(K, 1/α). With the default budget, a rule of slope and step on
+// windows 1d/1h and 30d/1d: α = 0.01/(8,766·2·2) = 2.9e-7 an hourly
+// update, H = 13.9 (K 0.5), which still finds a 2σ step in 10 updates
+// on average (CUSUMARL at the shift; a 1σ step takes 28). ok is false when the rule has
+// no step detector or w is out of range.
+func (t *Tracker) StepSettings(w int) (s StepSettings, ok bool) {
+	r := &t.rule
+	if w < 0 || w >= len(r.Windows) || !r.on(Step) {
+		return StepSettings{}, false
+	}
+	s = r.Detect.Step
+	if s.H == 0 {
+		var all int
+		for _, k := range Kinds() {
+			if (k.FitKind() || k == Step) && r.on(k) {
+				all++
+			}
+		}
+		a := r.Budget.AlertsPerYear / (EvaluationsPerYear(r.Windows[w].Pane) * float64(all) * float64(len(r.Windows)))
+		s.H = StepH(s.K, 1/a)
+	}
+	return s, true
 }
 
 // Alpha returns the per-evaluation false-raise probability the rule's

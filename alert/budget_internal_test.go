@@ -121,3 +121,34 @@ func TestSEFor_RefusedMeansNotJudged(t *testing.T) {
 		t.Errorf("covScale(infinite SE) ok, want refused")
 	}
 }
+
+// TestTracker_StepSettings: H from the budget meets the run length the
+// budget asks for, and no smaller H does: a rule of slope and step on
+// the default windows gives K = 2 shares, α = 0.01/(E·2·2).
+func TestTracker_StepSettings(t *testing.T) {
+	r := DefaultRule()
+	r.Tolerance, r.Limits.Slope.Warning, r.Detect.Step.On = 3, 0.1, true
+	tr, err := NewTracker("x", r)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for w, e := range []float64{365.2425 * 24, 365.2425} {
+		s, ok := tr.StepSettings(w)
+		if !ok {
+			t.Fatalf("StepSettings(%d) not ok", w)
+		}
+		arl0 := 1 / (0.01 / (e * 4))
+		if got := CUSUMARL(s.K, s.H, 0, 100); got < arl0 {
+			t.Errorf("window %d: H %v gives ARL0 %v < %v", w, s.H, got, arl0)
+		}
+		if got := CUSUMARL(s.K, s.H-0.002, 0, 100); got >= arl0 {
+			t.Errorf("window %d: H %v − 0.002 still gives ARL0 %v >= %v: not the smallest", w, s.H, got, arl0)
+		}
+		if a, _ := tr.Alpha(w, Slope); math.Abs(a-0.01/(e*4)) > 1e-15 {
+			t.Errorf("window %d: slope α %v, want the step's share counted, %v", w, a, 0.01/(e*4))
+		}
+	}
+	if _, ok := tr.StepSettings(2); ok {
+		t.Errorf("StepSettings(2) ok for a rule of two windows")
+	}
+}

@@ -21,10 +21,13 @@ type StepSettings struct {
 	// one-sigma step, the usual design; Montgomery, Introduction to
 	// Statistical Quality Control, §9.1.3).
 	K float64
-	// H is the CUSUM decision interval. Zero means 4, which with K 0.5
-	// gives an in-control average run length of 168 updates and finds a
-	// one-sigma step in 8.4 on average (Lucas & Crosier 1982, Table 1).
-	// StepH chooses H from an alarm budget instead.
+	// H is the CUSUM decision interval. For NewStepDetector zero means
+	// 4, which with K 0.5 gives an in-control average run length of 168
+	// updates and finds a one-sigma step in 8.4 on average (Lucas &
+	// Crosier 1982, Table 1): fit for tests and examples, far too many
+	// false steps for a service (an hourly update would signal 52 times
+	// a year on noise alone). In a Rule zero means the H whose run length
+	// meets the rule's budget (Tracker.StepSettings).
 	H float64
 	// Lambda is the EWMA weight of the newest error, 0 < λ ≤ 1. Zero
 	// means 0.2 (Montgomery §9.2: 0.05 ≤ λ ≤ 0.25 works well).

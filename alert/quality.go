@@ -29,9 +29,9 @@ type Detectors struct {
 
 func (d Detectors) resolve() Detectors {
 	if d.Step.On {
-		on := d.Step.On
+		h := d.Step.H
 		d.Step = d.Step.resolve()
-		d.Step.On = on
+		d.Step.H = h // zero: from the budget (Tracker.StepSettings)
 	}
 	if d.Flatline.For > 0 {
 		d.Flatline = d.Flatline.resolve()
@@ -44,7 +44,11 @@ func (d Detectors) resolve() Detectors {
 
 func (d Detectors) check(r *Rule, bad func(string, any, string)) {
 	if d.Step.On {
-		d.Step.check("Detect.Step", bad)
+		s := d.Step
+		if s.H == 0 {
+			s.H = defaultStepH // checked once the budget sets it
+		}
+		s.check("Detect.Step", bad)
 	}
 	if d.Flatline.For < 0 {
 		bad("Detect.Flatline.For", d.Flatline.For, "must be >= 0 (0 = off)")
