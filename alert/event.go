@@ -26,6 +26,16 @@ const Caution = "driftfit is an aid to maintenance planning: it supports, and ne
 //     touch of the 95% prediction band to when the whole band is out.
 //     When the trend stays inside within the horizon, Value (and any CI
 //     end not reached) is the horizon and BeyondHorizon is true.
+//   - Step: the estimated step size in Unit; Limit the CUSUM's decision
+//     interval in standard deviations.
+//   - Flatline and Silent: days stuck or silent; Limit the configured
+//     time in days.
+//   - Spike: the largest |error|/σ̂ of the run; Limit the threshold K.
+//   - OutOfSpan: the reading in Unit; Limit the span bound it passed.
+//
+// For detector kinds (Tracker.Observe) First is when the condition began
+// (for Step the estimated change time), Last the observation time, CI
+// zero and Model empty; kinds kept once per sensor have an empty Window.
 //
 // Severity is the alert's severity when the event happened: for Cleared
 // and Reset, the severity it had while firing. Limit is the level of

@@ -9,9 +9,10 @@ import (
 // Ticket asks for a sensor to be recalibrated. Its JSON encoding is the
 // wire format on NATS and for webhooks.
 //
-// A ticket opens when a Slope or LeadTime alert is raised, at either
-// severity (a warning is the time to plan the work; waiting for critical
-// would spend the margin), and no ticket of the sensor is open. It stays
+// A ticket opens when an alert of a kind in Rule.TicketKinds (by default
+// Slope and LeadTime) is raised, at either severity (a warning is the
+// time to plan the work; waiting for critical would spend the margin),
+// and no ticket of the sensor is open. It stays
 // open until Tracker.Calibrate closes it; later alerts do not open a
 // second one or change it.
 //
