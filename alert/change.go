@@ -118,7 +118,9 @@ type StepDetector struct {
 // StepResult is what one StepDetector update found.
 type StepResult struct {
 	// Signal: a CUSUM exceeded H on this update. The detector then
-	// restarts both sums, so one step signals once.
+	// restarts both sums; errors against a fit that has not absorbed
+	// the step yet signal again about as many updates later, which
+	// Tracker.Observe turns into one alert (firing, then the cooldown).
 	Signal bool
 	// Up says the step is upwards (S⁺ signalled).
 	Up bool
