@@ -141,6 +141,14 @@ type StepResult struct {
 	EWMAOut bool
 }
 
+// Finding returns the result as a Finding of kind Step on window w, for
+// Tracker.Observe: active on a signal, with Since the change time, Value
+// the step size and Limit the decision interval h. Report every update
+// (or every pane close), so that the alert clears after the signal.
+func (r StepResult) Finding(w rolling.WindowSpec, h float64) Finding {
+	return Finding{Kind: Step, Window: w, Result: Result{Active: r.Signal, Since: r.Since, Value: r.Size, Limit: h, N: r.Updates}}
+}
+
 // NewStepDetector returns a detector with zero fields of s set to their
 // defaults. It returns an error wrapping ErrBadRule for invalid settings.
 func NewStepDetector(s StepSettings) (StepDetector, error) {

@@ -193,6 +193,18 @@ func TestStepDetector_ChangePoint(t *testing.T) {
 			t.Errorf("step %+v: signal at update %d %+v, want at 52, since update 50, size %v, 3 updates", 2*dir, at, got, dir)
 		}
 	}
+	// The signal raises a step alert dated at the change.
+	r := alert.DefaultRule()
+	r.Unit, r.Tolerance, r.Limits.Slope.Warning, r.Detect.Step.On = "kPa", 1, 0.1, true
+	tr := mustTracker(t, "qm.x", r)
+	sig := alert.StepResult{Signal: true, Up: true, Since: t0.Add(50 * time.Hour), Size: 1, Updates: 3}
+	dec, err := tr.Observe(t0.Add(52*time.Hour), sig.Finding(month, 4))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(dec.Events) != 1 || dec.Events[0].Kind != alert.Step || !dec.Events[0].First.Equal(sig.Since) || dec.Events[0].Value != 1 || dec.Events[0].Limit != 4 {
+		t.Errorf("step signal observed: events %+v, want one step raise since %v, size 1", dec.Events, sig.Since)
+	}
 	// Non-finite input is ignored.
 	d, _ := alert.NewStepDetector(alert.StepSettings{})
 	if r := d.Update(t0, math.NaN(), 0); r != (alert.StepResult{}) {
