@@ -29,8 +29,11 @@ type Deviation struct {
 // Deviations returns, for one time bucket of a peer group, each member's
 // deviation from the median of the other members' values in that bucket.
 // A process change moves every member alike and cancels; a drifting
-// member stands out in its own deviation, and moves the others' medians
-// only when the group has two live members.
+// member stands out in its own deviation, but it also moves the others'
+// medians: with two live members wholly, with three by half (each
+// healthy member's "others" are the drifter and one healthy member, whose
+// median is their mean). PeerDeviations, whose reference includes the
+// member itself, does not leak with three or more; prefer it.
 //
 // vals[i] is member i's value in the bucket (for example the mean of its
 // readings there) and live[i] says whether it has one; vals and live must
