@@ -152,3 +152,41 @@ func TestTracker_StepSettings(t *testing.T) {
 		t.Errorf("StepSettings(2) ok for a rule of two windows")
 	}
 }
+
+// TestRateEvidence_GateFromBudget: on one 30-day window with only a
+// slope limit and debounce 1, the budget grants α = B/365.2425 per
+// evaluation and the floor is the (1 − α/2) quantile of t with 28
+// degrees of freedom. An estimate 0.1 standard errors inside the floor
+// does not breach; 0.1 outside does, although both intervals lie beyond
+// the limit. A budget of 100 a year asks for less than the 95% interval
+// already needs, and the floor stays at the fit's t.
+func TestRateEvidence_GateFromBudget(t *testing.T) {
+	for _, b := range []float64{0.01, 1, 100} {
+		r := DefaultRule()
+		r.Tolerance, r.Debounce = 3, 1
+		r.Windows = r.Windows[1:]
+		r.Limits.Slope.Warning = 1e-4 // far inside: the floor decides
+		r.Budget.FalseTicketsPerYear = b
+		tr, err := NewTracker("x", r)
+		if err != nil {
+			t.Fatal(err)
+		}
+		a, _ := tr.Alpha(0, Slope)
+		if want := b / 365.2425; math.Abs(a-want) > 1e-15*want {
+			t.Fatalf("budget %v: α %v, want %v", b, a, want)
+		}
+		q := gateMultiple(a, 2, 28, 2.048)
+		for _, c := range []struct {
+			ratio float64
+			want  bool
+		}{{q - 0.1, false}, {q + 0.1, true}} {
+			const se = 0.01
+			f := rolling.Fit{Model: rolling.Line, N: 30, DF: 28, TCrit: 2.048, PosDef: true, Cond: 3, ResidSD: 1,
+				Coef: [3]float64{100, c.ratio * se}, SE: [3]float64{0.1, se}}
+			ev := rateEvidence(&f, 1, r.Limits.Slope, 0.8, 2, a)
+			if got := ev.sev != SeverityUnknown; got != c.want {
+				t.Errorf("budget %v (q %.3f): c/SE %.3f breached %v, want %v", b, q, c.ratio, got, c.want)
+			}
+		}
+	}
+}
