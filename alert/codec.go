@@ -65,7 +65,7 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	}
 	d.b = d.b[4:]
 	var n Tracker
-	n.rule = t.rule
+	n.rule, n.alpha = t.rule, t.alpha
 	n.sensor = d.str()
 	n.asLeft = d.f64()
 	n.hasAsLeft = d.bool()
@@ -90,10 +90,12 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 		m.since = d.time()
 		m.cleared = d.time()
 		switch {
-		case m.window.Span <= 0 || m.window.Pane <= 0 || m.window.Span%m.window.Pane != 0:
-			d.fail("machine %d: bad window %v/%v", i, m.window.Span, m.window.Pane)
-		case m.kind == KindUnknown || m.kind > LeadTime:
+		case !m.kind.valid():
 			d.fail("machine %d: bad kind %d", i, m.kind)
+		case m.kind.PerWindow() && (m.window.Span <= 0 || m.window.Pane <= 0 || m.window.Span%m.window.Pane != 0):
+			d.fail("machine %d: bad window %v/%v", i, m.window.Span, m.window.Pane)
+		case !m.kind.PerWindow() && m.window != (rolling.WindowSpec{}):
+			d.fail("machine %d: kind %v kept per sensor with window %v/%v", i, m.kind, m.window.Span, m.window.Pane)
 		case m.state == StateUnknown || m.state > Resolved:
 			d.fail("machine %d: bad state %d", i, m.state)
 		case m.sev > Critical || (m.state == Firing) != (m.sev != SeverityUnknown):
@@ -312,7 +314,7 @@ func (d *dec) ticket(k *Ticket) {
 	k.Opened = d.time()
 	k.Reason = Kind(d.u8())
 	k.Severity = Severity(d.u8())
-	if d.err == nil && (k.Reason == KindUnknown || k.Reason > LeadTime || k.Severity == SeverityUnknown || k.Severity > Critical) {
+	if d.err == nil && (!k.Reason.valid() || k.Severity == SeverityUnknown || k.Severity > Critical) {
 		d.fail("ticket reason %d severity %d", k.Reason, k.Severity)
 	}
 	k.Window = d.str()

@@ -26,6 +26,7 @@ func scenarioRule() alert.Rule {
 	r.Debounce = 1
 	r.Limits.Slope = alert.RateLimit{Warning: 0.1, Critical: 0.2}
 	r.Limits.LeadTime = alert.DurationLimit{Warning: 30 * day, Critical: 7 * day}
+	r.Detect.Silent = 6 * time.Hour
 	return r
 }
 
@@ -150,6 +151,14 @@ func FuzzTracker_UnmarshalBinary(f *testing.F) {
 	empty, _ := mustTracker(f, "qm.u2.dp-7", scenarioRule()).MarshalBinary()
 	f.Add(empty)
 	f.Add([]byte("DFA\x01"))
+	// A state holding an alert kept once per sensor (zero window).
+	silent := mustTracker(f, "qm.u2.dp-7", scenarioRule())
+	if _, err := silent.Observe(time.Date(2026, 3, 2, 7, 0, 0, 0, time.UTC), alert.Finding{Kind: alert.Silent,
+		Result: alert.Silence(time.Date(2026, 3, 2, 7, 0, 0, 0, time.UTC), time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC), 6*time.Hour)}); err != nil {
+		f.Fatal(err)
+	}
+	withSilent, _ := silent.MarshalBinary()
+	f.Add(withSilent)
 	f.Fuzz(func(t *testing.T, data []byte) {
 		tr := mustTracker(t, "qm.u2.dp-7", scenarioRule())
 		if err := tr.UnmarshalBinary(data); err != nil {

@@ -2,9 +2,14 @@ package alert
 
 import "fmt"
 
-// Kind names the quantity a limit is set on.
+// Kind names what an alert is about: a limit on a fit (Slope, Curvature,
+// Doubling, LeadTime) or a detector of steps and data quality (Step,
+// Flatline, Spike, Silent, OutOfSpan). The properties of each kind
+// (name, report unit, evidence, tickets) are in one table, kinds.go.
 type Kind uint8
 
+// The numeric values are stored (Tracker state, tickets): new kinds go
+// at the end.
 const (
 	// KindUnknown is the zero Kind.
 	KindUnknown Kind = iota
@@ -18,21 +23,56 @@ const (
 	// LeadTime limits how soon the trend model is predicted to leave the
 	// tolerance band around the as-left value.
 	LeadTime
+	// Step is a sudden change of level confirmed by the CUSUM of
+	// one-step prediction errors (StepDetector); value: the step size in
+	// unit.
+	Step
+	// Flatline is a stuck sensor: readings within a resolution of each
+	// other for a configured time and count (FlatlineDetector); value:
+	// how long, in days.
+	Flatline
+	// Spike is a run of robust outliers against the fit's prediction
+	// (SpikeDetector); value: the largest |error|/scale of the run.
+	Spike
+	// Silent is a sensor with no reading for a configured time (Silence);
+	// value: days since the last reading.
+	Silent
+	// OutOfSpan is a reading beyond the calibrated range SpanLower ..
+	// SpanUpper (SpanCheck); value: the reading, in unit.
+	OutOfSpan
 )
 
-// kinds lists the kinds in evaluation and report order.
-var kinds = [...]Kind{Slope, Curvature, Doubling, LeadTime}
-
-var kindNames = [...]string{"unknown", "slope", "curvature", "doubling", "lead_time"}
-
-func (k Kind) String() string { return enumName(kindNames[:], int(k)) }
+func (k Kind) String() string {
+	if int(k) < len(kindTable) {
+		return kindTable[k].name
+	}
+	return kindTable[KindUnknown].name
+}
 
 // MarshalText encodes the name printed by String.
-func (k Kind) MarshalText() ([]byte, error) { return marshalEnum(kindNames[:], int(k), "kind") }
+func (k Kind) MarshalText() ([]byte, error) {
+	if int(k) >= len(kindTable) {
+		return nil, fmt.Errorf("alert: kind %d has no name", k)
+	}
+	return []byte(kindTable[k].name), nil
+}
 
 // UnmarshalText decodes a name printed by String.
 func (k *Kind) UnmarshalText(b []byte) error {
-	return unmarshalEnum(kindNames[:], (*uint8)(k), b, "kind")
+	for i := range kindTable {
+		if string(b) == kindTable[i].name {
+			*k = Kind(i)
+			return nil
+		}
+	}
+	return fmt.Errorf("alert: unknown kind %q", b)
+}
+
+// ParseKind returns the kind named s, as printed by String.
+func ParseKind(s string) (Kind, error) {
+	var k Kind
+	err := k.UnmarshalText([]byte(s))
+	return k, err
 }
 
 // Severity is the level of a limit that is breached.

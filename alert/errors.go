@@ -33,6 +33,11 @@ var (
 	// are not a valid state encoding, or the state of another sensor.
 	ErrBadState = errors.New("alert: bad state encoding")
 
+	// ErrBadFinding is returned by Tracker.Observe for a finding whose
+	// kind is not a detector kind set in the rule, whose window does not
+	// match the kind, or whose numbers are not finite.
+	ErrBadFinding = errors.New("alert: bad finding")
+
 	// ErrNonFinite is returned by Deviations for a live member whose value
 	// is NaN or infinite.
 	ErrNonFinite = errors.New("alert: value is not finite")

@@ -26,6 +26,16 @@ const Caution = "driftfit is an aid to maintenance planning: it supports, and ne
 //     touch of the 95% prediction band to when the whole band is out.
 //     When the trend stays inside within the horizon, Value (and any CI
 //     end not reached) is the horizon and BeyondHorizon is true.
+//   - Step: the estimated step size in Unit; Limit the CUSUM's decision
+//     interval in standard deviations.
+//   - Flatline and Silent: days stuck or silent; Limit the configured
+//     time in days.
+//   - Spike: the largest |error|/σ̂ of the run; Limit the threshold K.
+//   - OutOfSpan: the reading in Unit; Limit the span bound it passed.
+//
+// For detector kinds (Tracker.Observe) First is when the condition began
+// (for Step the estimated change time), Last the observation time, CI
+// zero and Model empty; kinds kept once per sensor have an empty Window.
 //
 // Severity is the alert's severity when the event happened: for Cleared
 // and Reset, the severity it had while firing. Limit is the level of
@@ -54,24 +64,18 @@ type Event struct {
 	Caution       string     `json:"caution"`
 }
 
-// reportUnit returns the unit of values and limits of kind k.
-func reportUnit(k Kind, unit string) string {
-	switch k {
-	case Slope:
-		return unit + "/d"
-	case Curvature:
-		return unit + "/d²"
-	case Doubling:
-		return "1/d"
-	case LeadTime:
-		return "d"
-	}
-	return ""
-}
-
 // WindowName formats a window as "span/pane", each in the largest whole
 // unit of d, h, m or s that fits ("30d/1d", "1d/1h", "90m/15m").
 func WindowName(w rolling.WindowSpec) string { return durName(w.Span) + "/" + durName(w.Pane) }
+
+// windowLabel is WindowName, or "" for the zero window of the alerts
+// kept once per sensor.
+func windowLabel(w rolling.WindowSpec) string {
+	if w == (rolling.WindowSpec{}) {
+		return ""
+	}
+	return WindowName(w)
+}
 
 func durName(d time.Duration) string {
 	switch {

@@ -72,27 +72,35 @@ func (r *Rule) usable(f *rolling.Fit) bool {
 
 func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
-// rateEvidence judges coefficient i of f against a rate limit.
+// rateEvidence judges coefficient i of f against a rate limit, with a
+// breach probability p per evaluation granted by the budget (tails 2 for
+// a magnitude).
 //
 // Breach statistic: the bound of the 95% confidence interval nearest to
-// zero, b = max(low, −high, 0). A level L is breached when b > L, so the
-// data show, at the 97.5% one-sided level, a rate beyond L in one
-// direction, and also b > t·SE, the interval's half-width: the estimate
-// lies at least two half-widths from zero. The second condition is the
-// significance floor. Without it, a window too short to resolve L (t·SE
-// much larger than L) breaches on 2.5% of pure-noise evaluations per
-// direction; with it, a breach under no drift needs |c|/SE > 2t, whatever
-// L and the window (see doc.go for the rate this promises).
+// zero, b = max(low, −high, 0), the interval c ± t·SE with SE from
+// seFor. A level L is breached when b > L, so the data show, at the
+// 97.5% one-sided level, a rate beyond L in one direction, and also
+// |c| > q·SE with q = gateMultiple(p): the significance floor. Without
+// it, a window too short to resolve L (t·SE much larger than L) breaches
+// on 2.5% of pure-noise evaluations per direction; with it, a breach
+// under no drift has probability p whatever L and the window (see
+// Budget).
 //
 // Clear statistic: the point estimate |c|, cleared below
 // ClearFraction × the lowest level.
-func rateEvidence(f *rolling.Fit, i int, l RateLimit, frac float64) evidence {
-	c, lo, hi := f.Coef[i], f.CI[i][0], f.CI[i][1]
-	half := f.TCrit * f.SE[i]
+func rateEvidence(f *rolling.Fit, i int, l RateLimit, frac float64, tails int, p float64) evidence {
+	se, ok := seFor(f, i)
+	if !ok {
+		return evidence{}
+	}
+	c := f.Coef[i]
+	half := f.TCrit * se
+	lo, hi := c-half, c+half
+	floor := gateMultiple(p, tails, f.DF, f.TCrit) * se
 	b := max(lo, -hi, 0)
 	ev := evidence{valid: true, fit: f, value: c, ci: [2]float64{lo, hi}, limit: l.lowest()}
 	for _, lv := range rateLevels(l) {
-		if b > lv.v && b > half {
+		if b > lv.v && math.Abs(c) > floor {
 			ev.sev, ev.limit = lv.sev, lv.v
 		}
 	}
@@ -102,18 +110,24 @@ func rateEvidence(f *rolling.Fit, i int, l RateLimit, frac float64) evidence {
 
 // doublingEvidence judges the exp fit's growth rate c1 (per day) against
 // a doubling-time limit, as a rate limit of ln 2 / (level in days) on
-// growth only: breached when the lower 95% bound of c1 exceeds it and the
-// half-width of the interval (the significance floor of rateEvidence),
+// growth only: breached when the lower 95% bound of c1 exceeds it and c1
+// exceeds the one-sided significance floor q·SE (see rateEvidence),
 // cleared when c1 drops below ClearFraction × ln 2 / (lowest level), the
 // lowest level being the longest time. Reported in 1/d; the doubling time
 // is ln 2 / value.
-func doublingEvidence(f *rolling.Fit, l DurationLimit, frac float64) evidence {
-	c, lo, hi := f.Coef[1], f.CI[1][0], f.CI[1][1]
-	half := f.TCrit * f.SE[1]
+func doublingEvidence(f *rolling.Fit, l DurationLimit, frac float64, p float64) evidence {
+	se, ok := seFor(f, 1)
+	if !ok {
+		return evidence{}
+	}
+	c := f.Coef[1]
+	half := f.TCrit * se
+	lo, hi := c-half, c+half
+	floor := gateMultiple(p, 1, f.DF, f.TCrit) * se
 	lowest := math.Ln2 / days(l.lowest())
 	ev := evidence{valid: true, fit: f, value: c, ci: [2]float64{lo, hi}, limit: lowest}
 	for _, lv := range durationLevels(l) {
-		if r := math.Ln2 / lv.v; lo > r && lo > half {
+		if r := math.Ln2 / lv.v; lo > r && c > floor {
 			ev.sev, ev.limit = lv.sev, r
 		}
 	}
@@ -129,8 +143,9 @@ func doublingEvidence(f *rolling.Fit, l DurationLimit, frac float64) evidence {
 // Breach statistic: a level of L days is breached when, at some τ in
 // [0, L] (sampled at leadSteps+1 points), the 95% confidence bound of the
 // fitted trend's mean nearest to the as-left value lies outside the band,
-// and lies at least its own half-width away from the as-left value (the
-// significance floor of rateEvidence): the data show, at the 97.5%
+// and the fitted mean lies at least q standard errors of the mean from
+// the as-left value, q the Scheffé multiple for breach probability p
+// (the significance floor; see Budget): the data show, at the 97.5%
 // one-sided level, that the sensor's mean leaves tolerance within L.
 // This uses the confidence band of the mean, not the prediction band of
 // single readings: the prediction band's earliest touch of the band edge
@@ -141,7 +156,7 @@ func doublingEvidence(f *rolling.Fit, l DurationLimit, frac float64) evidence {
 // Clear statistic: the fitted trend's own crossing time (At), cleared
 // when it lies beyond the lowest level (the longest time) divided by
 // ClearFraction, or does not happen within the horizon.
-func (r *Rule) leadEvidence(f *rolling.Fit, asLeft float64, needCross bool) evidence {
+func (r *Rule) leadEvidence(f *rolling.Fit, asLeft float64, needCross bool, p float64) evidence {
 	const leadSteps = 64
 	l := r.Limits.LeadTime
 	ev := evidence{valid: true, fit: f, limit: days(l.lowest())}
@@ -149,11 +164,18 @@ func (r *Rule) leadEvidence(f *rolling.Fit, asLeft float64, needCross bool) evid
 	// which levels it lies within.
 	longest := days(max(l.Warning, l.Critical))
 	b := newBand(f)
+	scale, ok := covScale(f)
+	if !ok {
+		return evidence{}
+	}
+	q := schefféMultiple(p, f.Model.Coefs(), f.DF, f.TCrit)
 	for k := 0; k <= leadSteps; k++ {
 		tau := longest * float64(k) / leadSteps
 		m, h := b.at(tau)
-		dev := math.Abs(m-asLeft) - h // bound nearest the as-left value
-		if dev >= r.Tolerance && dev >= h {
+		h *= scale
+		dist := math.Abs(m - asLeft)
+		dev := dist - h // bound nearest the as-left value
+		if dev >= r.Tolerance && dist >= q*h/f.TCrit {
 			for _, lv := range durationLevels(l) {
 				if tau <= lv.v {
 					ev.sev, ev.limit = lv.sev, lv.v

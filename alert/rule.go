@@ -79,6 +79,22 @@ type Rule struct {
 
 	// Limits are the alert limits; each is optional.
 	Limits Limits
+
+	// Detect configures the step and data-quality detectors; each is
+	// off in the zero value. The caller runs them (they need each
+	// reading, which the tracker never sees) and reports what they find
+	// through Tracker.Observe.
+	Detect Detectors
+
+	// TicketKinds lists the kinds whose raise opens a recalibration
+	// ticket. Nil means Slope and LeadTime, the kinds that predict
+	// leaving tolerance; an empty non-nil slice opens none. A detector
+	// kind opens one only when listed here, and only with a usable fit
+	// in its Finding (the ticket's evidence and due date come from it).
+	TicketKinds []Kind
+
+	// Budget is the false-alarm budget the gates share (see Budget).
+	Budget Budget
 }
 
 // Limits are the alert limits of a rule. A limit with both levels zero is
@@ -166,6 +182,8 @@ func (r Rule) resolve() (Rule, error) {
 	if r.TicketMargin == 0 {
 		r.TicketMargin = defaultTicketMargin
 	}
+	r.Detect = r.Detect.resolve()
+	r.Budget = r.Budget.resolve()
 	longest := max(r.Limits.LeadTime.Warning, r.Limits.LeadTime.Critical)
 	if r.Horizon == 0 {
 		r.Horizon = defaultHorizon
@@ -261,26 +279,21 @@ func (r Rule) resolve() (Rule, error) {
 	rate("Curvature", r.Limits.Curvature)
 	dur("Doubling", r.Limits.Doubling)
 	dur("LeadTime", r.Limits.LeadTime)
+	r.Detect.check(&r, bad)
+	for i, k := range r.TicketKinds {
+		if !k.valid() {
+			bad(fmt.Sprintf("TicketKinds[%d]", i), k, "unknown kind")
+		}
+	}
+	r.Budget.check(bad)
 	if len(errs) > 0 {
 		return r, errors.Join(errs...)
 	}
 	return r, nil
 }
 
-// on reports whether the limit of kind k is set.
-func (l *Limits) on(k Kind) bool {
-	switch k {
-	case Slope:
-		return l.Slope.On()
-	case Curvature:
-		return l.Curvature.On()
-	case Doubling:
-		return l.Doubling.On()
-	case LeadTime:
-		return l.LeadTime.On()
-	}
-	return false
-}
+// on reports whether the rule sets kind k.
+func (r *Rule) on(k Kind) bool { return k.info().on(r) }
 
 // window returns the index of spec in the rule's windows, or -1.
 func (r *Rule) window(spec rolling.WindowSpec) int {
@@ -310,32 +323,20 @@ func (l DurationLimit) lowest() time.Duration {
 
 // level returns the value of level s of the limit of kind k in report
 // units (see Event), or of its lowest level for SeverityUnknown or an
-// unset level.
+// unset level; 0 for detector kinds.
 func (r *Rule) level(k Kind, s Severity) float64 {
-	pick := func(w, c float64) float64 {
-		if s == Critical && c > 0 {
-			return c
-		}
-		if s == Warning && w > 0 {
-			return w
-		}
-		if w > 0 {
-			return w
-		}
-		return c
-	}
-	l := &r.Limits
-	switch k {
-	case Slope:
-		return pick(l.Slope.Warning, l.Slope.Critical)
-	case Curvature:
-		return pick(l.Curvature.Warning, l.Curvature.Critical)
-	case Doubling:
-		return math.Ln2 / days(durLevel(l.Doubling, s))
-	case LeadTime:
-		return days(durLevel(l.LeadTime, s))
+	if f := k.info().level; f != nil {
+		return f(r, s)
 	}
 	return 0
+}
+
+// level returns level s if set, else the lowest level set.
+func (l RateLimit) level(s Severity) float64 {
+	if s == Critical && l.Critical > 0 {
+		return l.Critical
+	}
+	return l.lowest()
 }
 
 func durLevel(l DurationLimit, s Severity) time.Duration {

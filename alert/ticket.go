@@ -9,9 +9,10 @@ import (
 // Ticket asks for a sensor to be recalibrated. Its JSON encoding is the
 // wire format on NATS and for webhooks.
 //
-// A ticket opens when a Slope or LeadTime alert is raised, at either
-// severity (a warning is the time to plan the work; waiting for critical
-// would spend the margin), and no ticket of the sensor is open. It stays
+// A ticket opens when an alert of a kind in Rule.TicketKinds (by default
+// Slope and LeadTime) is raised, at either severity (a warning is the
+// time to plan the work; waiting for critical would spend the margin),
+// and no ticket of the sensor is open. It stays
 // open until Tracker.Calibrate closes it; later alerts do not open a
 // second one or change it.
 //
@@ -106,13 +107,13 @@ func summarize(f *rolling.Fit, coverage float64) FitSummary {
 
 // openTicket builds the ticket for an alert of kind k at severity sev,
 // raised at now on a window whose trend fit is f.
-func (t *Tracker) openTicket(now time.Time, sol *rolling.Solution, f *rolling.Fit, k Kind, sev Severity) Ticket {
+func (t *Tracker) openTicket(now time.Time, w rolling.WindowSpec, coverage float64, f *rolling.Fit, k Kind, sev Severity) Ticket {
 	r := &t.rule
 	tk := Ticket{
 		ID: t.sensor + "@" + now.Format("20060102T150405Z"), Sensor: t.sensor, Class: r.Class,
-		Opened: now, Reason: k, Severity: sev, Window: WindowName(sol.Window), Unit: r.Unit,
+		Opened: now, Reason: k, Severity: sev, Window: windowLabel(w), Unit: r.Unit,
 		AsLeft: t.asLeft, Tolerance: r.Tolerance, Span: [2]float64{r.SpanLower, r.SpanUpper},
-		Evidence: summarize(f, sol.Coverage()), Caution: Caution,
+		Evidence: summarize(f, coverage), Caution: Caution,
 	}
 	cr, upper, _ := r.crossing(f, t.asLeft)
 	tk.Crossing, tk.Edge = cr.Kind.String(), "lower"

@@ -24,6 +24,8 @@ type Tracker struct {
 	machines   []machine // in order of first evaluation
 	ticket     Ticket
 	hasTicket  bool
+
+	alpha [][]float64 // per window and kind, from the budget; not state
 }
 
 // machine is the state of the alert of one (window, kind).
@@ -47,6 +49,9 @@ type Decision struct {
 	Opened *Ticket
 	// Closed is the ticket a calibration closed, if any.
 	Closed *Ticket
+	// Judgement says whether Evaluate judged the window, or why not;
+	// zero for Observe and Calibrate.
+	Judgement Judgement
 }
 
 // Status is a snapshot of one alert, as listed by Tracker.Alerts.
@@ -68,13 +73,19 @@ func NewTracker(sensor string, r Rule) (*Tracker, error) {
 		return nil, fmt.Errorf("alert: sensor %s: %w", sensor, err)
 	}
 	rr.Windows = append([]rolling.WindowSpec(nil), rr.Windows...)
-	return &Tracker{sensor: sensor, rule: rr, asLeft: rr.AsLeft, hasAsLeft: rr.HasAsLeft}, nil
+	if rr.TicketKinds != nil {
+		rr.TicketKinds = append([]Kind{}, rr.TicketKinds...)
+	}
+	return &Tracker{sensor: sensor, rule: rr, asLeft: rr.AsLeft, hasAsLeft: rr.HasAsLeft, alpha: rr.alphas()}, nil
 }
 
 // Rule returns the tracker's rule with defaults filled in.
 func (t *Tracker) Rule() Rule {
 	r := t.rule
 	r.Windows = append([]rolling.WindowSpec(nil), r.Windows...)
+	if r.TicketKinds != nil {
+		r.TicketKinds = append([]Kind{}, r.TicketKinds...)
+	}
 	return r
 }
 
@@ -117,9 +128,87 @@ func (t *Tracker) Alerts() []Status {
 // for a window not in the rule, ErrStale for a solution holding readings
 // from before the last calibration. The state is unchanged on error.
 func (t *Tracker) Evaluate(now time.Time, sol *rolling.Solution) (Decision, error) {
+	return t.evaluate(now, sol, nil)
+}
+
+// EvaluatePeers is Evaluate for a peer-group member whose solution is of
+// its deviation from the group's reference: when fewer than need
+// members were usable for the reference (live < need), the window is not
+// judged (PeersIncomplete) and gives no evidence, since the deviation
+// then holds the process changes the group is meant to cancel.
+func (t *Tracker) EvaluatePeers(now time.Time, sol *rolling.Solution, live, need int) (Decision, error) {
+	return t.evaluate(now, sol, &[2]int{live, need})
+}
+
+func (t *Tracker) evaluate(now time.Time, sol *rolling.Solution, peers *[2]int) (Decision, error) {
 	var d Decision
 	if !timeOK(now) {
 		return d, fmt.Errorf("%w: evaluation time %v", ErrBadTime, now)
+	}
+	now = utc(now)
+	r := &t.rule
+	wi := r.window(sol.Window)
+	if wi < 0 {
+		return d, fmt.Errorf("%w: sensor %s window %s", ErrUnknownWindow, t.sensor, WindowName(sol.Window))
+	}
+	if !t.calibrated.IsZero() && sol.N > 0 && sol.First.Before(t.calibrated) {
+		return d, fmt.Errorf("%w: sensor %s window %s first reading %v, calibrated %v",
+			ErrStale, t.sensor, WindowName(sol.Window), utc(sol.First), t.calibrated)
+	}
+	trend := sol.Fit(r.TrendModel)
+	if !r.usable(trend) && r.usable(&sol.Line) {
+		trend = &sol.Line
+	}
+	d.Judgement = r.judgement(sol, trend)
+	if peers != nil && peers[0] < peers[1] && d.Judgement.OK() {
+		d.Judgement.Reason, d.Judgement.Live, d.Judgement.Need = PeersIncomplete, peers[0], peers[1]
+	}
+	judged := d.Judgement.OK()
+	if !t.hasAsLeft && judged {
+		t.asLeft, t.hasAsLeft = trend.Coef[0], true
+	}
+
+	for _, k := range Kinds() {
+		info := k.info()
+		if !info.fit || !info.on(r) {
+			continue
+		}
+		m := t.machine(sol.Window, k)
+		var ev evidence
+		if judged {
+			ev = info.evidence(t, &judging{sol: sol, trend: trend, firing: m.state == Firing, alpha: t.alpha[wi][k] * float64(r.Debounce)})
+		}
+		was := m.sev
+		typ := m.step(now, &ev, uint32(r.Debounce), r.Cooldown)
+		if typ == EventUnknown {
+			continue
+		}
+		e := t.event(typ, now, sol.Window, m, k, &ev)
+		if typ == Cleared {
+			e.Severity = was
+		}
+		d.Events = append(d.Events, e)
+		if typ == Raised && r.opensTicket(k) && !t.hasTicket && t.hasAsLeft && r.usable(trend) {
+			t.ticket, t.hasTicket = t.openTicket(now, sol.Window, sol.Coverage(), trend, k, m.sev), true
+			tk := t.ticket
+			d.Opened = &tk
+		}
+	}
+	return d, nil
+}
+
+// OpenTicket opens the ticket of the firing alert of kind k on sol's
+// window, for a caller that decides on tickets itself: a peer-group
+// member whose rule sets TicketKinds to an empty slice, so that raises
+// of its deviation open none, gets its ticket once Attribute returns
+// PeerAttributed for it. It opens nothing (a zero Decision) when that
+// alert is not firing, a ticket is already open, the as-left value is
+// not known, or the trend fit is not usable. Errors: ErrBadTime,
+// ErrUnknownWindow, ErrStale as for Evaluate.
+func (t *Tracker) OpenTicket(now time.Time, sol *rolling.Solution, k Kind) (Decision, error) {
+	var d Decision
+	if !timeOK(now) {
+		return d, fmt.Errorf("%w: ticket time %v", ErrBadTime, now)
 	}
 	now = utc(now)
 	r := &t.rule
@@ -130,66 +219,23 @@ func (t *Tracker) Evaluate(now time.Time, sol *rolling.Solution) (Decision, erro
 		return d, fmt.Errorf("%w: sensor %s window %s first reading %v, calibrated %v",
 			ErrStale, t.sensor, WindowName(sol.Window), utc(sol.First), t.calibrated)
 	}
-	gated := sol.Panes > 0 && sol.N >= r.MinReadings && sol.Coverage() >= r.MinCoverage
-
 	trend := sol.Fit(r.TrendModel)
 	if !r.usable(trend) && r.usable(&sol.Line) {
 		trend = &sol.Line
 	}
-	if !t.hasAsLeft && gated && r.usable(trend) {
-		t.asLeft, t.hasAsLeft = trend.Coef[0], true
-	}
-
-	for _, k := range kinds {
-		if !r.Limits.on(k) {
-			continue
-		}
-		m := t.machine(sol.Window, k)
-		var ev evidence
-		if gated {
-			ev = t.judge(k, sol, trend, m.state == Firing)
-		}
-		was := m.sev
-		typ := m.step(now, &ev, uint32(r.Debounce), r.Cooldown)
-		if typ == EventUnknown {
-			continue
-		}
-		e := t.event(typ, now, sol, m, k, &ev)
-		if typ == Cleared {
-			e.Severity = was
-		}
-		d.Events = append(d.Events, e)
-		if typ == Raised && (k == Slope || k == LeadTime) && !t.hasTicket && t.hasAsLeft && r.usable(trend) {
-			t.ticket, t.hasTicket = t.openTicket(now, sol, trend, k, m.sev), true
-			tk := t.ticket
-			d.Opened = &tk
+	var m *machine
+	for i := range t.machines {
+		if t.machines[i].window == sol.Window && t.machines[i].kind == k {
+			m = &t.machines[i]
 		}
 	}
+	if m == nil || m.state != Firing || t.hasTicket || !t.hasAsLeft || !r.usable(trend) {
+		return d, nil
+	}
+	t.ticket, t.hasTicket = t.openTicket(now, sol.Window, sol.Coverage(), trend, k, m.sev), true
+	tk := t.ticket
+	d.Opened = &tk
 	return d, nil
-}
-
-// judge computes the evidence of kind k on a gated solution.
-func (t *Tracker) judge(k Kind, sol *rolling.Solution, trend *rolling.Fit, firing bool) evidence {
-	r := &t.rule
-	switch k {
-	case Slope:
-		if r.usable(&sol.Line) {
-			return rateEvidence(&sol.Line, 1, r.Limits.Slope, r.ClearFraction)
-		}
-	case Curvature:
-		if r.usable(&sol.Parabola) {
-			return rateEvidence(&sol.Parabola, 2, r.Limits.Curvature, r.ClearFraction)
-		}
-	case Doubling:
-		if r.usable(&sol.Exp) {
-			return doublingEvidence(&sol.Exp, r.Limits.Doubling, r.ClearFraction)
-		}
-	case LeadTime:
-		if t.hasAsLeft && r.usable(trend) {
-			return r.leadEvidence(trend, t.asLeft, firing)
-		}
-	}
-	return evidence{}
 }
 
 // machine returns the state machine of (w, k), adding it if new.
@@ -265,18 +311,20 @@ func (m *machine) idle(now time.Time, cooldown time.Duration) State {
 }
 
 // event builds the event of a transition of machine m.
-func (t *Tracker) event(typ EventType, now time.Time, sol *rolling.Solution, m *machine, k Kind, ev *evidence) Event {
+func (t *Tracker) event(typ EventType, now time.Time, w rolling.WindowSpec, m *machine, k Kind, ev *evidence) Event {
 	e := Event{
-		Type: typ, Sensor: t.sensor, Class: t.rule.Class, Window: WindowName(sol.Window),
+		Type: typ, Sensor: t.sensor, Class: t.rule.Class, Window: windowLabel(w),
 		Kind: k, Severity: m.sev, State: m.state, At: now,
 		Value: ev.value, CI: ev.ci, Limit: ev.limit, Unit: reportUnit(k, t.rule.Unit),
 		BeyondHorizon: ev.beyond, Caution: Caution,
 	}
-	switch typ {
-	case Cleared:
-		e.Limit = t.rule.level(k, SeverityUnknown)
-	case Raised, Escalated:
-		e.Limit = t.rule.level(k, m.sev)
+	if k.FitKind() {
+		switch typ {
+		case Cleared:
+			e.Limit = t.rule.level(k, SeverityUnknown)
+		case Raised, Escalated:
+			e.Limit = t.rule.level(k, m.sev)
+		}
 	}
 	if f := ev.fit; f != nil {
 		e.Model, e.N, e.First, e.Last = f.Model.String(), f.N, utc(f.First), utc(f.Last)
@@ -310,7 +358,7 @@ func (t *Tracker) Calibrate(c Calibration) (Decision, error) {
 		m := &t.machines[i]
 		if m.state == Firing {
 			d.Events = append(d.Events, Event{
-				Type: Reset, Sensor: t.sensor, Class: t.rule.Class, Window: WindowName(m.window),
+				Type: Reset, Sensor: t.sensor, Class: t.rule.Class, Window: windowLabel(m.window),
 				Kind: m.kind, Severity: m.sev, State: Inactive, At: c.Time,
 				Unit: reportUnit(m.kind, t.rule.Unit), Caution: Caution,
 			})

@@ -112,6 +112,9 @@ var overridable = []string{
 	"unit", "span.lower", "span.upper", "tolerance", "windows", "trend_model", "min_readings",
 	"min_coverage", "debounce", "clear_fraction", "cooldown",
 	"limits.slope", "limits.curvature", "limits.doubling_time", "limits.lead_time",
+	"alarm_budget.false_tickets_per_year", "alarm_budget.alerts_per_year",
+	"detectors.step", "detectors.flatline", "detectors.spike", "detectors.silent", "detectors.out_of_span",
+	"ticket_kinds",
 }
 
 // merge returns a deep copy of class ci with the fields written under
@@ -120,6 +123,9 @@ func (c *Config) merge(ci int, s *Sensor) Class {
 	cl := c.Classes[ci]
 	cl.Match = append([]string(nil), cl.Match...)
 	cl.Windows = append([]Window(nil), cl.Windows...)
+	if cl.TicketKinds != nil {
+		cl.TicketKinds = append([]string{}, cl.TicketKinds...)
+	}
 	if s == nil {
 		return cl
 	}
@@ -160,6 +166,23 @@ func (c *Config) merge(ci int, s *Sensor) Class {
 			cl.Limits.DoublingTime = o.Limits.DoublingTime
 		case "limits.lead_time":
 			cl.Limits.LeadTime = o.Limits.LeadTime
+		case "alarm_budget.false_tickets_per_year":
+			cl.AlarmBudget.FalseTicketsPerYear = o.AlarmBudget.FalseTicketsPerYear
+		case "alarm_budget.alerts_per_year":
+			cl.AlarmBudget.AlertsPerYear = o.AlarmBudget.AlertsPerYear
+		case "detectors.step":
+			cl.Detectors.Step = o.Detectors.Step
+		case "detectors.flatline":
+			cl.Detectors.Flatline = o.Detectors.Flatline
+		case "detectors.spike":
+			cl.Detectors.Spike = o.Detectors.Spike
+		case "detectors.silent":
+			cl.Detectors.Silent = o.Detectors.Silent
+		case "detectors.out_of_span":
+			cl.Detectors.OutOfSpan = o.Detectors.OutOfSpan
+		case "ticket_kinds":
+			cl.TicketKinds = append([]string{}, o.TicketKinds...)
+			cl.HasTicketKinds = true
 		}
 	}
 	return cl

@@ -269,6 +269,19 @@ type Class struct {
 	Cooldown time.Duration
 	// Limits that raise alerts; each is optional.
 	Limits Limits
+	// AlarmBudget is how many alerts and tickets noise alone may raise
+	// per sensor-year; the evidence gates of every limit and window
+	// share it (alert.Budget).
+	AlarmBudget AlarmBudget
+	// Detectors configure the step and data-quality detectors; each is
+	// off unless written.
+	Detectors Detectors
+	// TicketKinds lists the alert kinds whose raise opens a
+	// recalibration ticket, by name (see TicketKindNames). Not written:
+	// slope and lead_time; an empty list written opens none.
+	TicketKinds []string
+	// HasTicketKinds says ticket_kinds was written.
+	HasTicketKinds bool
 
 	// SensorID, AsLeft, HasAsLeft and Group are set only on the copy that
 	// ClassFor returns.
@@ -279,6 +292,68 @@ type Class struct {
 	// Group is the sensor's peer group, empty if none.
 	Group string
 }
+
+// AlarmBudget is the false-alarm budget of a class.
+type AlarmBudget struct {
+	// FalseTicketsPerYear is the accepted rate of tickets opened by
+	// noise alone, per sensor-year, > 0. Default 0.01 (our choice);
+	// zero in a Config built in code means the default.
+	FalseTicketsPerYear float64
+	// AlertsPerYear is the accepted rate of alerts raised by noise
+	// alone, per sensor-year, > 0. Default FalseTicketsPerYear; zero in
+	// a Config built in code means that.
+	AlertsPerYear float64
+}
+
+// Detectors are the step and data-quality detectors of a class. A zero
+// field of a detector that is on takes the alert package's default.
+type Detectors struct {
+	// Step tells a step from drift (CUSUM of one-step prediction
+	// errors); on when detectors.step is written.
+	Step StepDetector
+	// Flatline reports a stuck value; on when For > 0.
+	Flatline Flatline
+	// Spike reports robust outliers, kept out of the fits; on when K > 0.
+	Spike Spike
+	// Silent is how long without a reading makes a sensor silent; 0 off.
+	Silent time.Duration
+	// OutOfSpan reports readings beyond the calibrated span.
+	OutOfSpan bool
+}
+
+// StepDetector configures the step detector.
+type StepDetector struct {
+	On bool
+	// K is the CUSUM reference value in standard deviations, >= 0;
+	// 0: 0.5. H is the decision interval, >= 0; 0: from the alarm
+	// budget.
+	K, H float64
+}
+
+// Flatline configures the stuck-value detector.
+type Flatline struct {
+	// For is how long the readings must stay within Resolution; >= 0.
+	For time.Duration
+	// MinCount is the least number of readings in the run; 0: 10, else
+	// >= 2.
+	MinCount int
+	// Resolution is the largest spread of a stuck run, in the class
+	// unit, >= 0; 0: exactly equal values.
+	Resolution float64
+}
+
+// Spike configures the spike detector.
+type Spike struct {
+	// K is the threshold in robust standard deviations: 0 off, else >= 3.
+	K float64
+	// Count spikes within Within raise the alert; 0: 3 within 1h.
+	Count  int
+	Within time.Duration
+}
+
+// TicketKindNames are the alert kind names ticket_kinds accepts, as the
+// alert package names them.
+var TicketKindNames = []string{"slope", "curvature", "doubling", "lead_time", "step", "flatline", "spike", "silent", "out_of_span"}
 
 // Tolerance is the permitted deviation from the as-left value.
 type Tolerance struct {

@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -93,6 +94,17 @@ var badCases = []struct {
 		`sensor_override.bad.yaml:12:14: sensors[plantA.b1.pt-2].as_left = "about zero": wrong type: expected a finite number`,
 		`sensor_override.bad.yaml:13:5: sensors[plantA.b1.pt-2].name = "name": unknown field`,
 		`sensors[plantA.b*.pt-3] = "plantA.b*.pt-3": value out of range: bad sensor id: a sensor id cannot contain the wildcards`,
+	}},
+	{"alarms.bad.yaml", []string{
+		`alarms.bad.yaml:7:44: classes[0].alarm_budget.false_tickets_per_year = "0": value out of range: must be > 0`,
+		`classes[0].alarm_budget.alerts_per_year = "-1": value out of range`,
+		`alarms.bad.yaml:9:17: classes[0].detectors.step.h = "-2": value out of range: must be >= 0 (0: from the alarm budget)`,
+		`classes[0].detectors.flatline.min_count = "1": value out of range: must be >= 2`,
+		`classes[0].detectors.spike.k = "2": value out of range: must be 0 (off) or >= 3`,
+		`classes[0].detectors.silent = "-1h": value out of range: must be >= 0`,
+		`alarms.bad.yaml:13:20: classes[0].detectors.out_of_span = "yes please": wrong type: expected true or false`,
+		`alarms.bad.yaml:14:27: classes[0].ticket_kinds[1] = "drift": value out of range: unknown alert kind; one of slope, curvature`,
+		`classes[0].ticket_kinds[2] = "slope": duplicate name: repeats ticket_kinds[0]`,
 	}},
 	{"syntax.bad.yaml", []string{`syntax.bad.yaml:4:5: "unit": yaml syntax error: ',' or ']' must be specified`}},
 	{"groups.bad.yaml", []string{
@@ -767,5 +779,46 @@ func BenchmarkClassFor_Demo(b *testing.B) {
 		if _, err := c.ClassFor("qm.u4.compressor.vt-601"); err != nil {
 			b.Fatal(err)
 		}
+	}
+}
+
+func TestLoad_AlarmSettings(t *testing.T) {
+	c, err := configs.Load("testdata/alarms.good.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	cl, err := c.ClassFor("qm.u2.steam.pt-7")
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := configs.Detectors{
+		Step:      configs.StepDetector{On: true, K: 0.5},
+		Flatline:  configs.Flatline{For: 6 * time.Hour, MinCount: 20, Resolution: 0.1},
+		Spike:     configs.Spike{K: 6, Count: 3, Within: time.Hour},
+		Silent:    2 * time.Hour,
+		OutOfSpan: true,
+	}
+	if cl.Detectors != want || cl.AlarmBudget != (configs.AlarmBudget{FalseTicketsPerYear: 0.02, AlertsPerYear: 0.5}) ||
+		!slices.Equal(cl.TicketKinds, []string{"slope", "lead_time", "step"}) || !cl.HasTicketKinds {
+		t.Errorf("class alarms: detectors %+v budget %+v ticket kinds %v", cl.Detectors, cl.AlarmBudget, cl.TicketKinds)
+	}
+	// The sensor replaces silent and the ticket kinds, and keeps the rest.
+	sc, err := c.ClassFor("qm.u1.steam.pt-101")
+	if err != nil {
+		t.Fatal(err)
+	}
+	want.Silent = 30 * time.Minute
+	if sc.Detectors != want || len(sc.TicketKinds) != 0 || !sc.HasTicketKinds {
+		t.Errorf("sensor alarms: detectors %+v ticket kinds %v (written %v)", sc.Detectors, sc.TicketKinds, sc.HasTicketKinds)
+	}
+	// Defaults: a class that writes none gets 0.01 for both budgets, no
+	// detectors and no ticket kinds written.
+	m, err := configs.Load("testdata/minimal.good.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	d := m.Classes[0]
+	if d.AlarmBudget != (configs.AlarmBudget{FalseTicketsPerYear: 0.01, AlertsPerYear: 0.01}) || d.Detectors != (configs.Detectors{}) || d.HasTicketKinds {
+		t.Errorf("defaults: budget %+v detectors %+v ticket kinds written %v", d.AlarmBudget, d.Detectors, d.HasTicketKinds)
 	}
 }

@@ -524,6 +524,59 @@ func (d *decoder) classFields(c *Class) map[string]handler {
 				"lead_time":     d.durationLimit(&c.Limits.LeadTime),
 			})
 		},
+		"alarm_budget": func(n ast.Node, p string) {
+			d.fields(n, p, map[string]handler{
+				"false_tickets_per_year": d.float(&c.AlarmBudget.FalseTicketsPerYear),
+				"alerts_per_year":        d.float(&c.AlarmBudget.AlertsPerYear),
+			})
+		},
+		"detectors": func(n ast.Node, p string) {
+			dt := &c.Detectors
+			d.fields(n, p, map[string]handler{
+				"step": func(n ast.Node, p string) {
+					dt.Step.On = true
+					d.fields(n, p, map[string]handler{
+						"k": d.float(&dt.Step.K),
+						"h": d.float(&dt.Step.H),
+					})
+				},
+				"flatline": func(n ast.Node, p string) {
+					d.fields(n, p, map[string]handler{
+						"for":        d.duration(&dt.Flatline.For),
+						"min_count":  d.integer(&dt.Flatline.MinCount),
+						"resolution": d.float(&dt.Flatline.Resolution),
+					})
+				},
+				"spike": func(n ast.Node, p string) {
+					d.fields(n, p, map[string]handler{
+						"k":      d.float(&dt.Spike.K),
+						"count":  d.integer(&dt.Spike.Count),
+						"within": d.duration(&dt.Spike.Within),
+					})
+				},
+				"silent":      d.duration(&dt.Silent),
+				"out_of_span": d.boolean(&dt.OutOfSpan),
+			})
+		},
+		"ticket_kinds": func(n ast.Node, p string) {
+			before := len(d.errs)
+			d.strList(&c.TicketKinds)(n, p)
+			if len(d.errs) == before {
+				c.HasTicketKinds = true
+			}
+		},
+	}
+}
+
+func (d *decoder) boolean(dst *bool) handler {
+	return func(raw ast.Node, p string) {
+		v, ok := d.resolve(raw).(*ast.BoolNode)
+		if !ok {
+			n := d.resolve(raw)
+			d.errAt(raw, p, text(n), ErrType, "expected true or false, found %s", typeName(n))
+			return
+		}
+		*dst = v.Value
 	}
 }
 

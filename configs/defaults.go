@@ -24,6 +24,9 @@ const (
 	defaultDebounce                 = 3
 	defaultClearFraction            = 0.8
 	defaultCooldown                 = 24 * time.Hour
+	// One false ticket in a hundred sensor-years (our choice): a fleet
+	// of 1,000 sensors then sees one false ticket in about a month.
+	defaultFalseTicketsPerYear = 0.01
 	// Ten seconds is long enough for a receiver that writes the ticket
 	// into a database before answering, short enough that a hung receiver
 	// does not hold up the deliveries queued behind it (our choice).
@@ -112,5 +115,7 @@ func (c *Config) applyDefaults() {
 		num(&cl.Debounce, p+".debounce", defaultDebounce)
 		flt(&cl.ClearFraction, p+".clear_fraction", defaultClearFraction)
 		dur(&cl.Cooldown, p+".cooldown", defaultCooldown)
+		flt(&cl.AlarmBudget.FalseTicketsPerYear, p+".alarm_budget.false_tickets_per_year", defaultFalseTicketsPerYear)
+		flt(&cl.AlarmBudget.AlertsPerYear, p+".alarm_budget.alerts_per_year", cl.AlarmBudget.FalseTicketsPerYear)
 	}
 }

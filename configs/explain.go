@@ -198,7 +198,41 @@ func explainSettings(w io.Writer, cl *Class, in string) {
 		cool = FormatDuration(cl.Cooldown)
 	}
 	p("%s  clears:      below %s × limit; cooldown %s\n", in, fmtNum(cl.ClearFraction), cool)
+	p("%s  budget:      %s false tickets, %s false alerts per sensor-year\n", in,
+		fmtNum(cl.AlarmBudget.FalseTicketsPerYear), fmtNum(cl.AlarmBudget.AlertsPerYear))
+	if dt := explainDetectors(&cl.Detectors); dt != "" {
+		p("%s  detectors:   %s\n", in, dt)
+	}
+	if cl.HasTicketKinds {
+		kinds := "none"
+		if len(cl.TicketKinds) > 0 {
+			kinds = strings.Join(cl.TicketKinds, ", ")
+		}
+		p("%s  tickets on:  %s\n", in, kinds)
+	}
 	explainLimits(w, cl, in+"  ")
+}
+
+// explainDetectors lists the detectors that are on, with their settings
+// as written (zeros take the alert package's defaults).
+func explainDetectors(d *Detectors) string {
+	var out []string
+	if d.Step.On {
+		out = append(out, fmt.Sprintf("step (k %s, h %s)", fmtNum(d.Step.K), fmtNum(d.Step.H)))
+	}
+	if d.Flatline.For > 0 {
+		out = append(out, fmt.Sprintf("flatline over %s", FormatDuration(d.Flatline.For)))
+	}
+	if d.Spike.K > 0 {
+		out = append(out, fmt.Sprintf("spike beyond %s robust SD", fmtNum(d.Spike.K)))
+	}
+	if d.Silent > 0 {
+		out = append(out, fmt.Sprintf("silent after %s", FormatDuration(d.Silent)))
+	}
+	if d.OutOfSpan {
+		out = append(out, "out of span")
+	}
+	return strings.Join(out, "; ")
 }
 
 func explainLimits(w io.Writer, cl *Class, in string) {

@@ -480,6 +480,61 @@ func (v *validator) class(cl *Class, s scope) {
 	v.rateLimit(&cl.Limits.Curvature, 2, s.where("limits.curvature"), cl, convertible)
 	v.durationLimit(cl.Limits.DoublingTime, s.where("limits.doubling_time"), "doubling time")
 	v.durationLimit(cl.Limits.LeadTime, s.where("limits.lead_time"), "lead time")
+	v.alarms(cl, s)
+}
+
+// alarms checks the alarm budget, the detectors and the ticket kinds.
+func (v *validator) alarms(cl *Class, s scope) {
+	// Zero not written (a Config built in code) means the default.
+	pos := func(path string, x float64) {
+		if x == 0 && !v.c.written(s.where(path)) {
+			return
+		}
+		if !(x > 0) || math.IsInf(x, 0) {
+			v.add(s.where(path), fmtFloat(x), ErrRange, "must be > 0 (false alarms per sensor-year)")
+		}
+	}
+	pos("alarm_budget.false_tickets_per_year", cl.AlarmBudget.FalseTicketsPerYear)
+	pos("alarm_budget.alerts_per_year", cl.AlarmBudget.AlertsPerYear)
+	dt := &cl.Detectors
+	if dt.Step.K < 0 {
+		v.add(s.where("detectors.step.k"), fmtFloat(dt.Step.K), ErrRange, "must be >= 0 (0: 0.5)")
+	}
+	if dt.Step.H < 0 {
+		v.add(s.where("detectors.step.h"), fmtFloat(dt.Step.H), ErrRange, "must be >= 0 (0: from the alarm budget)")
+	}
+	if dt.Flatline.For < 0 {
+		v.add(s.where("detectors.flatline.for"), FormatDuration(dt.Flatline.For), ErrRange, "must be >= 0")
+	}
+	if dt.Flatline.MinCount == 1 || dt.Flatline.MinCount < 0 {
+		v.add(s.where("detectors.flatline.min_count"), strconv.Itoa(dt.Flatline.MinCount), ErrRange, "must be >= 2 (0: 10)")
+	}
+	if dt.Flatline.Resolution < 0 {
+		v.add(s.where("detectors.flatline.resolution"), fmtFloat(dt.Flatline.Resolution), ErrRange, "must be >= 0, in the class unit")
+	}
+	if dt.Spike.K != 0 && dt.Spike.K < 3 {
+		v.add(s.where("detectors.spike.k"), fmtFloat(dt.Spike.K), ErrRange,
+			"must be 0 (off) or >= 3: a smaller threshold rejects ordinary readings")
+	}
+	if dt.Spike.Count < 0 {
+		v.add(s.where("detectors.spike.count"), strconv.Itoa(dt.Spike.Count), ErrRange, "must be >= 1 (0: 3)")
+	}
+	if dt.Spike.Within < 0 {
+		v.add(s.where("detectors.spike.within"), FormatDuration(dt.Spike.Within), ErrRange, "must be > 0 (0: 1h)")
+	}
+	if dt.Silent < 0 {
+		v.add(s.where("detectors.silent"), FormatDuration(dt.Silent), ErrRange, "must be >= 0")
+	}
+	seen := map[string]int{}
+	for i, k := range cl.TicketKinds {
+		p := s.where(fmt.Sprintf("ticket_kinds[%d]", i))
+		if !slices.Contains(TicketKindNames, k) {
+			v.add(p, k, ErrRange, "unknown alert kind; one of %s", strings.Join(TicketKindNames, ", "))
+		} else if j, dup := seen[k]; dup {
+			v.add(p, k, ErrDuplicate, "repeats ticket_kinds[%d]", j)
+		}
+		seen[k] = i
+	}
 }
 
 func withValue(err error, value string) error {

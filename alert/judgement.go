@@ -1,0 +1,124 @@
+package alert
+
+import (
+	"fmt"
+
+	"driftfit/rolling"
+)
+
+// Reason says whether a window was judged, or why not. A window not
+// judged gives no evidence: it breaks a pending run but never clears a
+// firing alert.
+type Reason uint8
+
+// The numeric values may be stored or counted by callers: new reasons go
+// at the end.
+const (
+	// ReasonUnknown is the zero Reason: no evaluation yet.
+	ReasonUnknown Reason = iota
+	// Judged: the window passed every gate.
+	Judged
+	// TooFewReadings: N below MinReadings.
+	TooFewReadings
+	// LowCoverage: the fraction of panes holding readings is below
+	// MinCoverage.
+	LowCoverage
+	// IllConditioned: the trend fit failed (singular, no time spread),
+	// is not positive definite, holds non-finite numbers, or its
+	// condition number exceeds MaxCond.
+	IllConditioned
+	// SerialUnknown: the serial-correlation correction of the standard
+	// errors could not be estimated, so no gate can be trusted.
+	SerialUnknown
+	// PeersIncomplete: a peer-group member's deviation while too few
+	// members are live or usable for the reference (see Group).
+	PeersIncomplete
+)
+
+var reasonNames = [...]string{"unknown", "judged", "too_few_readings", "low_coverage", "ill_conditioned",
+	"serial_correlation_unknown", "peer_group_incomplete"}
+
+func (r Reason) String() string { return enumName(reasonNames[:], int(r)) }
+
+// MarshalText encodes the name printed by String.
+func (r Reason) MarshalText() ([]byte, error) { return marshalEnum(reasonNames[:], int(r), "reason") }
+
+// UnmarshalText decodes a name printed by String.
+func (r *Reason) UnmarshalText(b []byte) error {
+	return unmarshalEnum(reasonNames[:], (*uint8)(r), b, "reason")
+}
+
+// Judgement is whether one window was judged at one evaluation, and the
+// numbers behind the verdict, so that callers can show it, count it by
+// Reason and log it when it changes (compare with the previous
+// Judgement of the window using Same).
+type Judgement struct {
+	Window rolling.WindowSpec `json:"-"`
+	Reason Reason             `json:"reason"`
+	// N and MinN: readings in the window and the rule's least.
+	N    int `json:"n"`
+	MinN int `json:"min_n"`
+	// Coverage and MinCoverage: the fraction of panes with readings and
+	// the rule's least.
+	Coverage    float64 `json:"coverage"`
+	MinCoverage float64 `json:"min_coverage"`
+	// Cond and MaxCond: the trend fit's condition number (0 when it
+	// failed) and the rule's largest.
+	Cond    float64 `json:"cond"`
+	MaxCond float64 `json:"max_cond"`
+	// Live and Need: for PeersIncomplete, the group members usable for
+	// the reference and the least needed.
+	Live int `json:"live,omitempty"`
+	Need int `json:"need,omitempty"`
+}
+
+// OK reports whether the window was judged.
+func (j Judgement) OK() bool { return j.Reason == Judged }
+
+// Same reports whether j and o carry the same verdict (window and
+// reason), the change worth logging; the numbers move with every
+// evaluation.
+func (j Judgement) Same(o Judgement) bool { return j.Window == o.Window && j.Reason == o.Reason }
+
+func (j Judgement) String() string {
+	w := WindowName(j.Window)
+	switch j.Reason {
+	case TooFewReadings:
+		return fmt.Sprintf("%s not judged: n %d < %d", w, j.N, j.MinN)
+	case LowCoverage:
+		return fmt.Sprintf("%s not judged: coverage %.2f < %.2f", w, j.Coverage, j.MinCoverage)
+	case IllConditioned:
+		return fmt.Sprintf("%s not judged: ill-conditioned (cond %.3g, max %.3g)", w, j.Cond, j.MaxCond)
+	case SerialUnknown:
+		return w + " not judged: serial correlation unknown"
+	case PeersIncomplete:
+		return fmt.Sprintf("%s not judged: peer group incomplete (%d of %d needed)", w, j.Live, j.Need)
+	}
+	return w + " " + j.Reason.String()
+}
+
+// judge returns the verdict of the window gates on sol with trend fit
+// trend: the first gate that fails, in the order readings, coverage,
+// conditioning, serial correlation.
+func (r *Rule) judgement(sol *rolling.Solution, trend *rolling.Fit) Judgement {
+	j := Judgement{Window: sol.Window, N: sol.N, MinN: r.MinReadings, MinCoverage: r.MinCoverage, MaxCond: r.MaxCond, Reason: Judged}
+	if sol.Panes > 0 {
+		j.Coverage = sol.Coverage()
+	}
+	if trend.OK() {
+		j.Cond = trend.Cond
+	}
+	switch {
+	case sol.N < r.MinReadings:
+		j.Reason = TooFewReadings
+	case sol.Panes == 0 || j.Coverage < r.MinCoverage:
+		j.Reason = LowCoverage
+	case !r.usable(trend):
+		j.Reason = IllConditioned
+	default:
+		if _, ok := seFor(trend, 1); !ok {
+			j.Reason = SerialUnknown
+		}
+	}
+	return j
+}
