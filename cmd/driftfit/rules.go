@@ -2,6 +2,7 @@ package main
 
 import (
 	"errors"
+	"fmt"
 	"os"
 
 	"github.com/rs/zerolog"
@@ -41,6 +42,17 @@ func ruleFor(cfg *configs.Config, id string) (alert.Rule, bool, error) {
 		Curvature: alert.RateLimit{Warning: c.Limits.Curvature.Warning.Value, Critical: c.Limits.Curvature.Critical.Value},
 		Doubling:  alert.DurationLimit{Warning: c.Limits.DoublingTime.Warning, Critical: c.Limits.DoublingTime.Critical},
 		LeadTime:  alert.DurationLimit{Warning: c.Limits.LeadTime.Warning, Critical: c.Limits.LeadTime.Critical},
+	}
+	r.Budget = alert.Budget{FalseTicketsPerYear: c.AlarmBudget.FalseTicketsPerYear, AlertsPerYear: c.AlarmBudget.AlertsPerYear}
+	if c.HasTicketKinds {
+		r.TicketKinds = []alert.Kind{}
+		for _, name := range c.TicketKinds {
+			k, err := alert.ParseKind(name)
+			if err != nil {
+				return alert.Rule{}, false, fmt.Errorf("class %s: ticket_kinds: %w", c.Name, err)
+			}
+			r.TicketKinds = append(r.TicketKinds, k)
+		}
 	}
 	on := r.Limits.Slope.On() || r.Limits.Curvature.On() || r.Limits.Doubling.On() || r.Limits.LeadTime.On()
 	return r, on && r.Tolerance > 0, nil

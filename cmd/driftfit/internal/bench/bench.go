@@ -1029,12 +1029,16 @@ const benchAlertClass = `classes:
     min_readings: %[3]d
     min_coverage: 0
     debounce: 1
+    # The probes measure how fast a decision goes out, not the evidence
+    # behind it: a 1 s pane is judged 31.6 million times a year, and the
+    # default budget would ask for far more than four readings.
+    alarm_budget: {false_tickets_per_year: 1000000}
     limits:
       slope: "1 kPa/s"
 `
 
 // benchAlertNote says what the alert latency is, for the output.
-const benchAlertNote = "alert latency: probe sensors of a class judged on the slope of a 2m window of 1s panes (debounce 1, min_readings 4) publish a reading every 10 ms, stamped with the publish time, on a ramp 50 times the limit; the fourth reading crosses the limit and the alert is raised at the next pane close, which the probe's first reading in the next pane triggers; probes hold that reading 0-240 ms after the boundary, spread evenly, as sensors of different cadences would. close→alert runs from publishing that reading to receiving the raised event on <alert prefix>.<sensor>; cross→alert from publishing the crossing reading, so it also includes the wait for the pane to end (at most the evaluation interval) and the hold. The alerter stores a batch of results and then publishes it; the service runs as serve runs it, with no load besides the probes (idle) and with the publish-to-fit phase's offered load"
+const benchAlertNote = "alert latency: probe sensors of a class judged on the slope of a 2m window of 1s panes (debounce 1, min_readings 4) publish a reading every 10 ms, stamped with the publish time, on a ramp 50 times the limit; the fourth reading crosses the limit and the alert is raised at the next pane close, which the probe's first reading in the next pane triggers; probes hold that reading 0-240 ms after the boundary, spread evenly, as sensors of different cadences would. close→alert runs from publishing that reading to receiving the raised event on <alert prefix>.<sensor>; cross→alert from publishing the crossing reading, so it also includes the wait for the pane to end (at most the evaluation interval) and the hold. A decision is committed with the state of its sensor (a commit of the sensors with a decision waiting), then published from the outbox; the service runs as serve runs it, with no load besides the probes (idle) and with the publish-to-fit phase's offered load"
 
 // alertProbe is one probe sensor of the alert phase.
 type alertProbe struct {
