@@ -48,6 +48,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	natsPort := fs.Int("nats-port", 4222, "port of the embedded NATS server on 127.0.0.1 (-1: any free port)")
 	logFormat := fs.String("log-format", "json", "log format: json or console")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
+	stopTimeout := fs.Duration("stop-timeout", 10*time.Second, "bound of each step of the shutdown (bus drain, publishing the last alerts, listeners)")
 	if pos, err := fs.parse(args); err != nil || len(pos) != 0 {
 		return cmp.Or(err, usageError("unexpected arguments %q", pos))
 	}
@@ -75,14 +76,28 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		return usageError("%v", err)
 	}
 
+	if *stopTimeout <= 0 {
+		return usageError("--stop-timeout %v: must be > 0", *stopTimeout)
+	}
+
 	// A second signal exits at once, whatever shutdown is doing.
+	returned := make(chan struct{})
+	defer close(returned)
 	go func() {
-		<-ctx.Done()
+		select {
+		case <-ctx.Done():
+		case <-returned:
+			return
+		}
 		sig := make(chan os.Signal, 1)
 		signal.Notify(sig, os.Interrupt, syscall.SIGTERM)
-		<-sig
-		log.Warn().Msg("second signal: exiting now")
-		os.Exit(130)
+		defer signal.Stop(sig)
+		select {
+		case <-sig:
+			log.Warn().Msg("second signal: exiting now")
+			os.Exit(130)
+		case <-returned:
+		}
 	}()
 
 	if err := os.MkdirAll(cfg.Store.Dir, 0o700); err != nil {
@@ -95,12 +110,9 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		return err
 	}
 
-	bus, err := connectBus(cfg, *natsPort, log, metrics)
-	if err != nil {
-		return err
-	}
-	defer bus.close()
-
+	// The state file's lock first: a second serve on the same directory
+	// must stop here, before it starts a second NATS server on the same
+	// JetStream store.
 	db, err := store.Open(filepath.Join(cfg.Store.Dir, dbFile), store.Options{})
 	if err != nil {
 		return err
@@ -111,13 +123,31 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		}
 	}()
 
+	bus, err := connectBus(cfg, *natsPort, log, metrics)
+	if err != nil {
+		return err
+	}
+	defer bus.close()
+
 	stopAPI, err := readapi.Serve(bus.nc, db, log)
 	if err != nil {
 		return err
 	}
-	defer stopAPI()
+	// Shutdown order: the read API (with calibrations, which Run stops
+	// first), ingest, the last alerts from the outbox, the database, the
+	// bus. The API stops as soon as shutdown starts, so no request is
+	// answered from a state about to close.
+	runCtx, cancel := context.WithCancel(ctx)
+	apiStopped := make(chan struct{})
+	go func() {
+		defer close(apiStopped)
+		<-runCtx.Done()
+		stopAPI()
+	}()
+	defer func() { cancel(); <-apiStopped }()
 
 	opts := serviceOptions(cfg, bus.nc, db, &log, metrics)
+	opts.StopTimeout = *stopTimeout
 	var board *demoplant.Board
 	if *demo {
 		board = demoplant.NewBoard(classUnit(cfg))
@@ -129,7 +159,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	}
 
 	if cfg.HTTP.Addr != "off" {
-		stop, err := serveHTTP(cfg.HTTP.Addr, promhttp.HandlerFor(reg, promhttp.HandlerOpts{}), log, "metrics")
+		stop, err := serveHTTP(cfg.HTTP.Addr, promhttp.HandlerFor(reg, promhttp.HandlerOpts{}), log, "metrics", *stopTimeout)
 		if err != nil {
 			return err
 		}
@@ -143,15 +173,13 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		mux.HandleFunc("/debug/pprof/", pprof.Index)
 		mux.HandleFunc("/debug/pprof/profile", pprof.Profile)
 		mux.HandleFunc("/debug/pprof/trace", pprof.Trace)
-		stop, err := serveHTTP(*pprofAddr, mux, log, "pprof")
+		stop, err := serveHTTP(*pprofAddr, mux, log, "pprof", *stopTimeout)
 		if err != nil {
 			return err
 		}
 		defer stop()
 	}
 
-	runCtx, cancel := context.WithCancel(ctx)
-	defer cancel()
 	demoDone := make(chan error, 1)
 	boardDone := make(chan struct{})
 	if *demo {
@@ -242,8 +270,9 @@ func isLoopback(host string) bool {
 	return ip != nil && ip.IsLoopback()
 }
 
-// serveHTTP serves h on addr until the returned stop is called.
-func serveHTTP(addr string, h http.Handler, log zerolog.Logger, what string) (stop func(), err error) {
+// serveHTTP serves h on addr until the returned stop is called, which
+// waits up to timeout for requests in flight.
+func serveHTTP(addr string, h http.Handler, log zerolog.Logger, what string, timeout time.Duration) (stop func(), err error) {
 	ln, err := net.Listen("tcp", addr)
 	if err != nil {
 		return nil, fmt.Errorf("%s listener: %w", what, err)
@@ -258,7 +287,7 @@ func serveHTTP(addr string, h http.Handler, log zerolog.Logger, what string) (st
 	}()
 	log.Info().Str("addr", "http://"+ln.Addr().String()).Msg(what + " listening")
 	return func() {
-		ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
+		ctx, cancel := context.WithTimeout(context.Background(), timeout)
 		defer cancel()
 		_ = srv.Shutdown(ctx)
 		<-done

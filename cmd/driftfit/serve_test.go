@@ -579,3 +579,43 @@ func TestServe_CalibrationDurableBeforeReply(t *testing.T) {
 		t.Error("the ticket of crash.s0000 is not closed by the calibration after the kill")
 	}
 }
+
+// TestServe_SecondOnSameDataRefused starts serve twice on one data
+// directory with the embedded bus: the second must stop at the state
+// file's lock, before it starts a NATS server of its own on the same
+// JetStream store (where published readings would vanish).
+func TestServe_SecondOnSameDataRefused(t *testing.T) {
+	if testing.Short() {
+		t.Skip("starts driftfit processes")
+	}
+	dir := t.TempDir()
+	logPath := filepath.Join(dir, "serve.log")
+	args := []string{"serve", "--data", filepath.Join(dir, "data"), "--nats-port", "-1", "--http-addr", "off"}
+	first := startChild(t, logPath, args...)
+	defer func() {
+		_ = first.cmd.Process.Signal(syscall.SIGTERM)
+		<-first.done
+	}()
+	deadline := time.Now().Add(30 * time.Second)
+	for !strings.Contains(readTail(logPath), "ingest started") {
+		if time.Now().After(deadline) {
+			t.Fatalf("first serve did not start; log:\n%s", readTail(logPath))
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	secondLog := filepath.Join(dir, "second.log")
+	second := startChild(t, secondLog, args...)
+	select {
+	case err := <-second.done:
+		if err == nil {
+			t.Fatal("second serve on the same data directory exited 0")
+		}
+	case <-time.After(30 * time.Second):
+		_ = second.cmd.Process.Kill()
+		t.Fatal("second serve on the same data directory kept running")
+	}
+	out := readTail(secondLog)
+	if strings.Contains(out, "embedded NATS server listening") || !strings.Contains(out, "lock") {
+		t.Errorf("second serve: want it stopped at the file lock before any NATS server; log:\n%s", out)
+	}
+}
