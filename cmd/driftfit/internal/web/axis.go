@@ -51,8 +51,8 @@ func robustRange(noisy, anchors []float64) (lo, hi float64) {
 	return lo - m, hi + m
 }
 
-// niceTicks returns ticks at 1, 2 or 5 × 10^k inside [lo, hi], about n
-// of them.
+// niceTicks returns ticks at multiples of 1, 2 or 5 × 10^k inside
+// [lo, hi], the step whose count of ticks comes nearest n.
 func niceTicks(lo, hi float64, n int) []float64 {
 	if !(hi > lo) || n < 1 {
 		return nil
@@ -60,10 +60,10 @@ func niceTicks(lo, hi float64, n int) []float64 {
 	raw := (hi - lo) / float64(n)
 	mag := math.Pow(10, math.Floor(math.Log10(raw)))
 	step := mag
+	best := math.Inf(1)
 	for _, m := range []float64{1, 2, 5, 10} {
-		if m*mag >= raw {
-			step = m * mag
-			break
+		if d := math.Abs((hi-lo)/(m*mag) - float64(n)); d < best {
+			step, best = m*mag, d
 		}
 	}
 	var out []float64
