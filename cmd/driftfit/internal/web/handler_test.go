@@ -98,11 +98,11 @@ type fleetJSON struct {
 }
 
 type rowJSON struct {
-	Rank          int        `json:"rank"`
-	ID            string     `json:"id"`
-	Href          string     `json:"href"`
-	State         string     `json:"state"`
-	Reason        string     `json:"reason"`
+	Rank          int    `json:"rank"`
+	ID            string `json:"id"`
+	Href          string `json:"href"`
+	State         string `json:"state"`
+	Reason        string `json:"reason"`
 	Ticket        *struct{ Due time.Time }
 	Exit          *web.Exit  `json:"exit"`
 	ToleranceUsed *float64   `json:"tolerance_used"`
