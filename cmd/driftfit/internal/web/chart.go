@@ -148,8 +148,8 @@ func (h *handler) buildChart(v *SensorView) *svgChart {
 		drifts = append(drifts, r.Drift)
 	}
 	for _, w := range v.Windows {
-		for _, p := range w.Curve {
-			if in(p.T) {
+		for i, p := range w.Curve {
+			if i < w.Ahead && in(p.T) {
 				anchors = append(anchors, p.Fit)
 			}
 		}

@@ -139,7 +139,7 @@ func (h *handler) renderLogin(w http.ResponseWriter, r *http.Request, status int
 // fleetRowView adds the texts of a row for the template.
 type fleetRowView struct {
 	FleetRow
-	TicketDue, ExitText, ExitWhen, LastText, StateText string
+	TicketDue, TicketWhen, ExitText, ExitWhen, LastText, StateText string
 }
 
 func (h *handler) fleetRowViews(f *Fleet) []fleetRowView {
@@ -147,7 +147,10 @@ func (h *handler) fleetRowViews(f *Fleet) []fleetRowView {
 	for i, r := range f.Sensors {
 		v := fleetRowView{FleetRow: r, LastText: h.fmtTime(r.Last)}
 		if r.Ticket != nil {
-			v.TicketDue = h.fmtTime(r.Ticket.Due)
+			v.TicketDue, v.TicketWhen = h.fmtTime(r.Ticket.Due), fmtIn(r.Ticket.Due, f.AsOf)
+			if r.Ticket.Due.Before(f.AsOf) {
+				v.TicketWhen = "overdue " + strings.TrimSuffix(v.TicketWhen, " ago")
+			}
 		}
 		if r.Exit != nil {
 			v.ExitText, v.ExitWhen = h.fmtTime(r.Exit.At), fmtIn(r.Exit.At, f.AsOf)

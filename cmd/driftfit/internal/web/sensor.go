@@ -1,6 +1,7 @@
 package web
 
 import (
+	"errors"
 	"slices"
 	"strings"
 	"time"
@@ -205,7 +206,8 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 	}
 
 	// The time axis: twice the longest window back from the newest
-	// record, and a sixth of that ahead for the projection.
+	// record (or from the first reading, if later), and a sixth of that
+	// ahead for the projection.
 	var longest time.Duration
 	var newest time.Time
 	for w, sol := range recs {
@@ -221,7 +223,17 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 		longest = 7 * day
 	}
 	v.From = newest.Add(-2 * longest)
-	v.To = newest.Add(2 * longest / 6)
+	// Start where the data start, if later.
+	err = db.History(id, rolling.WindowSpec{}, v.From, after1(asof), func(rec store.HistoryRecord) error {
+		if f := rec.Solution.First; f.After(v.From) {
+			v.From = f.Add(-newest.Sub(f) / 50)
+		}
+		return errStop
+	})
+	if err != nil && !errors.Is(err, errStop) {
+		return nil, err
+	}
+	v.To = newest.Add(newest.Sub(v.From) / 6)
 
 	var reasons []string
 	judgedAny := false
@@ -243,7 +255,13 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 			wv.Reason = "no rule"
 		}
 		if f := sol.Fit(jm); f.OK() && !f.First.IsZero() {
-			wv.Curve, wv.Ahead = curve(f, v.To)
+			// A window's trend says little beyond half its span ahead: a
+			// one-day slope carried ten days would dwarf the data.
+			until := v.To
+			if lim := f.Last.Add(w.Span / 2); lim.Before(until) {
+				until = lim
+			}
+			wv.Curve, wv.Ahead = curve(f, until)
 		}
 		v.Windows = append(v.Windows, wv)
 	}

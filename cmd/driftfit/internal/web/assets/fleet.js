@@ -56,7 +56,12 @@
     tr.appendChild(el("td", null, r.class || ""));
     tr.appendChild(el("td", "state", r.state === "judged" ? "judged" : "not judged because: " + (r.reason || "")));
     var tk = el("td");
-    if (r.ticket) { tk.appendChild(el("span", "due sev-" + r.ticket.severity, when(r.ticket.due))); tk.appendChild(document.createTextNode(" ")); tk.appendChild(el("small", null, r.ticket.reason)); }
+    if (r.ticket) {
+      var rel = inDays(r.ticket.due, asof);
+      if (new Date(r.ticket.due) < new Date(asof)) { rel = "overdue " + rel.replace(/ ago$/, ""); }
+      tk.appendChild(el("span", "due sev-" + r.ticket.severity, rel));
+      tk.appendChild(el("br")); tk.appendChild(el("small", null, when(r.ticket.due) + " · " + r.ticket.reason));
+    }
     tr.appendChild(tk);
     var ex = el("td");
     if (r.exit) {
