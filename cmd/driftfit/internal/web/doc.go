@@ -32,7 +32,8 @@
 //
 // # Concurrency
 //
-// The handler is safe for concurrent use; it keeps no state but a cache
-// of each sensor's first judged level (the as-left the alert rules take
-// when the configuration gives none).
+// The handler is safe for concurrent use. It keeps a cache of each
+// sensor's first judged level (the as-left the alert rules take when the
+// configuration gives none) and the fleet computed for "now", served
+// again for 2 s so that several polling pages share one pass.
 package web

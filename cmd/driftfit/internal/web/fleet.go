@@ -29,6 +29,8 @@ type TicketBrief struct {
 
 // FleetRow is one sensor of the fleet, with what ranks it.
 type FleetRow struct {
+	// Rank is the place in the whole fleet, most urgent 1, whatever the
+	// filter.
 	Rank  int    `json:"rank"`
 	ID    string `json:"id"`
 	Href  string `json:"href"`
@@ -60,7 +62,8 @@ type FleetRow struct {
 }
 
 // FleetCounts are the totals shown at the top of the fleet page, over
-// the whole fleet, before filtering.
+// the whole fleet, before filtering; Shown counts the rows that passed
+// the filter.
 type FleetCounts struct {
 	Sensors     int `json:"sensors"`
 	Judged      int `json:"judged"`
@@ -88,7 +91,45 @@ type fleetFilter struct {
 
 func sensorHref(id string) string { return "/sensors/" + url.PathEscape(id) }
 
-func (h *handler) fleet(asof time.Time, flt fleetFilter) (*Fleet, error) {
+// fleetCacheFor is how long a fleet computed for "now" is served again:
+// several open fleet pages polling share one pass over the store.
+const fleetCacheFor = 2 * time.Second
+
+// fleet returns the rows that pass flt, ranked over the whole fleet.
+func (h *handler) fleet(asof time.Time, live bool, flt fleetFilter) (*Fleet, error) {
+	var all *Fleet
+	if live {
+		h.mu.Lock()
+		if h.cached != nil && asof.Sub(h.cached.AsOf) >= 0 && asof.Sub(h.cached.AsOf) < fleetCacheFor {
+			all = h.cached
+		}
+		h.mu.Unlock()
+	}
+	if all == nil {
+		var err error
+		if all, err = h.fleetAll(asof); err != nil {
+			return nil, err
+		}
+		if live {
+			h.mu.Lock()
+			h.cached = all
+			h.mu.Unlock()
+		}
+	}
+	f := *all
+	f.Sensors = []FleetRow{}
+	for _, row := range all.Sensors {
+		if globMatch(flt.Q, row.ID) && (flt.Class == "" || flt.Class == row.Class) && (flt.State == "" || flt.State == row.State) {
+			f.Sensors = append(f.Sensors, row)
+		}
+	}
+	f.Counts.Shown = len(f.Sensors)
+	return &f, nil
+}
+
+// fleetAll ranks every sensor the store knows of. The result is shared
+// by requests: read only.
+func (h *handler) fleetAll(asof time.Time) (*Fleet, error) {
 	db := h.o.DB
 	log, err := readLog(db, "", asof)
 	if err != nil {
@@ -105,7 +146,7 @@ func (h *handler) fleet(asof time.Time, flt fleetFilter) (*Fleet, error) {
 	for id := range log.events {
 		ids[id] = true
 	}
-	f := &Fleet{AsOf: asof, Unreadable: log.unreadable, Sensors: []FleetRow{}}
+	f := &Fleet{AsOf: asof, Unreadable: log.unreadable, Sensors: []FleetRow{}, Classes: []string{}}
 	classes := map[string]bool{}
 	for id := range ids {
 		row, err := h.fleetRow(id, asof, log)
@@ -133,9 +174,7 @@ func (h *handler) fleet(asof time.Time, flt fleetFilter) (*Fleet, error) {
 		if row.Class != "" {
 			classes[row.Class] = true
 		}
-		if globMatch(flt.Q, row.ID) && (flt.Class == "" || flt.Class == row.Class) && (flt.State == "" || flt.State == row.State) {
-			f.Sensors = append(f.Sensors, row)
-		}
+		f.Sensors = append(f.Sensors, row)
 	}
 	slices.SortFunc(f.Sensors, compareUrgency)
 	for i := range f.Sensors {

@@ -17,6 +17,7 @@ type handler struct {
 
 	mu         sync.Mutex
 	firstLevel map[string]AsLeft // sensor id + 0x00 + calibration time → first judged level
+	cached     *Fleet            // the last fleet computed for "now"
 }
 
 // tokenCookie carries the bearer token for a browser, set by the login
@@ -169,7 +170,7 @@ func (h *handler) fleetFilter(r *http.Request) (fleetFilter, error) {
 }
 
 func (h *handler) fleetAPI(w http.ResponseWriter, r *http.Request) {
-	asof, _, err := h.asOf(r)
+	asof, live, err := h.asOf(r)
 	if err != nil {
 		h.fail(w, r, http.StatusBadRequest, err.Error())
 		return
@@ -179,7 +180,7 @@ func (h *handler) fleetAPI(w http.ResponseWriter, r *http.Request) {
 		h.fail(w, r, http.StatusBadRequest, err.Error())
 		return
 	}
-	f, err := h.fleet(asof, flt)
+	f, err := h.fleet(asof, live, flt)
 	if err != nil {
 		h.internal(w, r, err)
 		return

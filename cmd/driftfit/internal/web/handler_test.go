@@ -297,6 +297,16 @@ func TestFleet_Filters(t *testing.T) {
 			}
 		})
 	}
+	// Rank is the place in the whole fleet, also when filtered.
+	rank := map[string]int{}
+	for _, r := range rows(t, getJSON[fleetJSON](t, srv, "/api/fleet")) {
+		rank[r.ID] = r.Rank
+	}
+	for _, r := range rows(t, getJSON[fleetJSON](t, srv, "/api/fleet?state=not_judged")) {
+		if r.Rank != rank[r.ID] {
+			t.Errorf("%s filtered rank %d, whole-fleet rank %d", r.ID, r.Rank, rank[r.ID])
+		}
+	}
 	st, body := get(t, srv, "/api/fleet?state=maybe")
 	if st != http.StatusBadRequest || !strings.Contains(body, `state=\"maybe\"`) {
 		t.Errorf("state=maybe: %d %s, want 400 naming the parameter", st, body)

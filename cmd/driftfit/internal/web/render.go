@@ -182,7 +182,7 @@ func (h *handler) fleetPage(w http.ResponseWriter, r *http.Request) {
 		h.fail(w, r, http.StatusBadRequest, err.Error())
 		return
 	}
-	f, err := h.fleet(asof, flt)
+	f, err := h.fleet(asof, live, flt)
 	if err != nil {
 		h.internal(w, r, err)
 		return
