@@ -2,6 +2,7 @@ package web_test
 
 import (
 	"context"
+	"encoding/json"
 	"net/http/httptest"
 	"os"
 	"os/exec"
@@ -12,7 +13,9 @@ import (
 
 	"github.com/chromedp/chromedp"
 
+	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/web"
+	"driftfit/store"
 )
 
 // chromiumPath is where Debian's chromium package installs the browser.
@@ -46,8 +49,11 @@ func TestBrowser_FleetToSensor(t *testing.T) {
 	}
 	db := openDB(t)
 	fillDemo(t, db)
-	srv := httptest.NewServer(web.Handler(web.Options{DB: db, Rule: ruleFunc(demoRules()),
-		Now: func() time.Time { return demoEnd }, Refresh: time.Second}))
+	// The clock runs from the end of the demo, so the fleet the pages
+	// share for 2 s expires as it would in service.
+	start := time.Now()
+	now := func() time.Time { return demoEnd.Add(time.Since(start)) }
+	srv := httptest.NewServer(web.Handler(web.Options{DB: db, Rule: ruleFunc(demoRules()), Now: now, Refresh: time.Second}))
 	t.Cleanup(srv.Close)
 	dir := artifactDir(t)
 	t.Logf("screenshots in %s", dir)
@@ -182,4 +188,36 @@ func TestBrowser_FleetToSensor(t *testing.T) {
 		t.Errorf("as-of text %q, want it to name 24 Nov 2026", stamp1)
 	}
 	t.Logf("fleet updated %s; first %s; level now %s, a week back %s", updated, firstID, level0, level1)
+
+	// Back on the fleet, a ticket stored meanwhile (due before every
+	// demo ticket, so the most urgent) reaches the table without a reload: the marker set in the
+	// page survives, and the flow meter's row moves to the top.
+	if err := chromedp.Do(ctx,
+		chromedp.Navigate(srv.URL+"/"),
+		chromedp.WaitVisible(css(`#fleet-body tr`)),
+		chromedp.Evaluate[chromedp.Void](`window.notReloaded = true`),
+	); err != nil {
+		t.Fatal(err)
+	}
+	tk := alert.Ticket{ID: idFM + "@test", Sensor: idFM, Opened: demoStart, Reason: alert.Slope,
+		Severity: alert.Critical, Window: "14d/1d", Due: demoStart.Add(24 * time.Hour)}
+	data, err := json.Marshal(tk)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := db.WriteAlerts([]store.AlertWrite{{Sensor: idFM, Tickets: map[string][]byte{tk.ID: data}}}); err != nil {
+		t.Fatal(err)
+	}
+	if err := chromedp.Do(ctx, chromedp.Poll[chromedp.Void](
+		`document.querySelector('#fleet-body tr:first-child td.id').textContent === `+"`"+idFM+"`",
+		chromedp.WithPollingTimeout(20*time.Second))); err != nil {
+		first, _ := chromedp.Run(ctx, chromedp.Evaluate[string](`document.querySelector('#fleet-body tr:first-child').textContent + ' | ' + document.getElementById('live').textContent`))
+		shot("fleet-not-refreshed.png", true)
+		t.Fatalf("the new ticket did not reach the table: %v; first row %q", err, first)
+	}
+	kept, err := chromedp.Run(ctx, chromedp.Evaluate[bool](`window.notReloaded === true`))
+	if err != nil || !kept {
+		t.Errorf("the page reloaded to show the ticket (marker kept: %v, %v)", kept, err)
+	}
+	shot("fleet-refreshed.png", true)
 }
