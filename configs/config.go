@@ -136,11 +136,15 @@ type Store struct {
 	HistoryRetention time.Duration
 }
 
-// HTTP configures the metrics listener.
+// HTTP configures the listener of /metrics and the engineer's pages.
 type HTTP struct {
-	// Addr is the listen address of /metrics. Default "127.0.0.1:9464"
-	// (loopback, so nothing is exposed unless asked for).
+	// Addr is the listen address of /metrics and the pages. Default
+	// "127.0.0.1:9464" (loopback, so nothing is exposed unless asked for).
 	Addr string
+	// TokenEnv names the environment variable holding the bearer token
+	// the pages and their JSON ask for. Empty (the default): no token, for
+	// a loopback listener. configs never reads the variable; serve does.
+	TokenEnv string
 }
 
 // Tickets configures where recalibration tickets go besides

@@ -137,6 +137,12 @@ var badCases = []struct {
 		`webhook_unused.bad.yaml:5:14: tickets.webhook.timeout = "30s": contradictory settings: has no effect without tickets.webhook.url`,
 		`webhook_unused.bad.yaml:6:17: tickets.webhook.header_env = "DRIFTFIT_TICKET_AUTH": contradictory settings: has no effect without tickets.webhook.url`,
 	}},
+	// The token is a secret: only the name of the variable holding it
+	// belongs in the file.
+	{"http_token.bad.yaml", []string{
+		`http_token.bad.yaml:2:14: http.token_env = "Bearer 5ecret-t0ken": value out of range: must be the name of an environment variable`,
+		`http_token.bad.yaml:3:3: http.auth = "auth": unknown field: allowed here: addr, token_env`,
+	}},
 	{"webhook_type.bad.yaml", []string{
 		`webhook_type.bad.yaml:2:12: tickets.webhook = "https://tickets.example.invalid/in": wrong type: expected a mapping, found text`,
 	}},
@@ -282,6 +288,27 @@ func TestParse_Defaults(t *testing.T) {
 	}
 	if cl.Tolerance.Abs != 0.5 {
 		t.Errorf("tolerance.Abs = %v, want 0.5", cl.Tolerance.Abs)
+	}
+}
+
+func TestParse_HTTPTokenEnv(t *testing.T) {
+	tests := []struct {
+		file      string
+		addr, env string
+	}{
+		{"testdata/minimal.good.yaml", "127.0.0.1:9464", ""},
+		{"testdata/http_token.good.yaml", "0.0.0.0:9464", "DRIFTFIT_WEB_TOKEN"},
+	}
+	for _, tc := range tests {
+		t.Run(filepath.Base(tc.file), func(t *testing.T) {
+			c, err := configs.Load(tc.file)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if c.HTTP.Addr != tc.addr || c.HTTP.TokenEnv != tc.env {
+				t.Errorf("Load(%s) HTTP = %+v, want addr %q, token_env %q", tc.file, c.HTTP, tc.addr, tc.env)
+			}
+		})
 	}
 }
 

@@ -72,7 +72,9 @@ func decode(name string, data []byte) (*Config, *decoder, error) {
 		d.fields(body, "", map[string]handler{
 			"bus":   func(n ast.Node, p string) { d.bus(n, p, &c.Bus) },
 			"store": func(n ast.Node, p string) { d.store(n, p, &c.Store) },
-			"http":  func(n ast.Node, p string) { d.fields(n, p, map[string]handler{"addr": d.str(&c.HTTP.Addr)}) },
+			"http": func(n ast.Node, p string) {
+				d.fields(n, p, map[string]handler{"addr": d.str(&c.HTTP.Addr), "token_env": d.str(&c.HTTP.TokenEnv)})
+			},
 			"defaults": func(n ast.Node, p string) {
 				d.fields(n, p, map[string]handler{"windows": d.windows(&c.Defaults.Windows)})
 			},

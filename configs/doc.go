@@ -16,7 +16,7 @@
 //	bus:       NATS servers (none: embedded server), subjects, delivery mode,
 //	           payload and clock-skew bounds, auth by reference, TLS files
 //	store:     data directory, commit interval and size, history retention
-//	http:      metrics listen address
+//	http:      listen address of metrics and pages, bearer token by reference
 //	defaults:  windows inherited by classes
 //	classes:   sensor classes matched by id pattern: unit, span, tolerance,
 //	           windows, trend model, evidence rules, limits

@@ -91,7 +91,10 @@ func (c *Config) Explain(w io.Writer) {
 		}
 		p("  authorization:   %s\n", authz)
 	}
-	p("\nmetrics on http://%s/metrics\n", c.HTTP.Addr)
+	p("\nmetrics on http://%s/metrics, pages on http://%s/\n", c.HTTP.Addr, c.HTTP.Addr)
+	if c.HTTP.TokenEnv != "" {
+		p("  pages ask for the bearer token in $%s\n", c.HTTP.TokenEnv)
+	}
 	p("\ndefault windows: %s\n", windowList(c.Defaults.Windows))
 
 	p("\nclasses (%d)\n", len(c.Classes))

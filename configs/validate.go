@@ -356,6 +356,7 @@ func (v *validator) store() {
 }
 
 func (v *validator) http() {
+	v.envName("http.token_env", v.c.HTTP.TokenEnv)
 	a := v.c.HTTP.Addr
 	_, port, err := net.SplitHostPort(a)
 	if err != nil {

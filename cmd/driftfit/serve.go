@@ -25,6 +25,7 @@ import (
 
 	"driftfit/alert"
 	demoplant "driftfit/cmd/driftfit/internal/demo"
+	"driftfit/cmd/driftfit/internal/web"
 	"driftfit/configs"
 	"driftfit/ingest"
 	"driftfit/ingest/readapi"
@@ -159,7 +160,21 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	}
 
 	if cfg.HTTP.Addr != "off" {
-		stop, err := serveHTTP(cfg.HTTP.Addr, promhttp.HandlerFor(reg, promhttp.HandlerOpts{}), log, "metrics", *stopTimeout)
+		token := ""
+		if cfg.HTTP.TokenEnv != "" {
+			// An empty variable would open the pages to anyone: refuse.
+			if token = os.Getenv(cfg.HTTP.TokenEnv); token == "" {
+				return fmt.Errorf("http.token_env: environment variable %s is empty or not set", cfg.HTTP.TokenEnv)
+			}
+		}
+		mux := http.NewServeMux()
+		mux.Handle("/metrics", promhttp.HandlerFor(reg, promhttp.HandlerOpts{}))
+		mux.Handle("/", web.Handler(web.Options{DB: db, Token: token, Logger: log,
+			Rule: func(id string) (alert.Rule, bool) {
+				r, ok, err := ruleFor(cfg, id)
+				return r, ok && err == nil
+			}}))
+		stop, err := serveHTTP(cfg.HTTP.Addr, mux, log, "metrics and pages", *stopTimeout)
 		if err != nil {
 			return err
 		}

@@ -1,0 +1,314 @@
+package web
+
+import (
+	"encoding/json"
+	"errors"
+	"math"
+	"slices"
+	"sort"
+	"strings"
+	"time"
+
+	"driftfit/alert"
+	"driftfit/rolling"
+	"driftfit/store"
+)
+
+// errStop ends a store walk early; never returned to callers.
+var errStop = errors.New("web: stop walk")
+
+// after1 is the exclusive end of a walk that includes T itself.
+func after1(t time.Time) time.Time { return t.Add(time.Nanosecond) }
+
+// latestRecords returns, per window, the newest fit record of id at or
+// before asof. It looks back a few days first, then two months, then the
+// whole history, stopping as soon as every window it expects (the rule's,
+// when it has one) has a record: a live sensor writes a record every
+// pane, so the first look is usually enough.
+func latestRecords(db *store.DB, id string, asof time.Time, want []rolling.WindowSpec) (map[rolling.WindowSpec]rolling.Solution, error) {
+	found := map[rolling.WindowSpec]rolling.Solution{}
+	for _, back := range []time.Duration{3 * day, 62 * day, 0} {
+		var since time.Time
+		if back > 0 {
+			since = asof.Add(-back)
+		}
+		clear(found)
+		err := db.History(id, rolling.WindowSpec{}, since, after1(asof), func(r store.HistoryRecord) error {
+			found[r.Solution.Window] = r.Solution
+			return nil
+		})
+		if err != nil {
+			return nil, err
+		}
+		all := len(found) > 0
+		for _, w := range want {
+			if _, ok := found[w]; !ok {
+				all = false
+			}
+		}
+		if all && (len(want) > 0 || back > 3*day) {
+			break
+		}
+	}
+	return found, nil
+}
+
+// eventLog holds the alert events and tickets read from the store, by
+// sensor.
+type eventLog struct {
+	events     map[string][]alert.Event
+	tickets    map[string][]alert.Ticket
+	unreadable int // stored values that did not decode
+}
+
+// readLog reads events up to asof (all sensors, or one when id is not
+// empty) and every ticket.
+func readLog(db *store.DB, id string, asof time.Time) (*eventLog, error) {
+	l := &eventLog{events: map[string][]alert.Event{}, tickets: map[string][]alert.Ticket{}}
+	err := db.Events(time.Time{}, after1(asof), func(_ time.Time, data []byte) error {
+		var ev alert.Event
+		if err := json.Unmarshal(data, &ev); err != nil {
+			l.unreadable++
+			return nil
+		}
+		if id == "" || ev.Sensor == id {
+			l.events[ev.Sensor] = append(l.events[ev.Sensor], ev)
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	err = db.Tickets(func(_ string, data []byte) error {
+		var tk alert.Ticket
+		if err := json.Unmarshal(data, &tk); err != nil {
+			l.unreadable++
+			return nil
+		}
+		if id == "" || tk.Sensor == id {
+			l.tickets[tk.Sensor] = append(l.tickets[tk.Sensor], tk)
+		}
+		return nil
+	})
+	return l, err
+}
+
+// OpenAlert is an alert firing at the time asked for.
+type OpenAlert struct {
+	Class    string    `json:"class,omitempty"`
+	Window   string    `json:"window"`
+	Kind     string    `json:"kind"`
+	Severity string    `json:"severity"`
+	Since    time.Time `json:"since"`
+	Value    float64   `json:"value"`
+	Limit    float64   `json:"limit"`
+	Unit     string    `json:"unit"`
+}
+
+// openAlerts replays events (in time order, all at or before the time
+// asked for) per class, window and kind: raised and escalated alerts are
+// open until cleared or reset.
+func openAlerts(evs []alert.Event) []OpenAlert {
+	type key struct {
+		class, window string
+		kind          alert.Kind
+	}
+	open := map[key]*OpenAlert{}
+	var order []key
+	for _, ev := range evs {
+		k := key{ev.Class, ev.Window, ev.Kind}
+		switch ev.Type {
+		case alert.Raised, alert.Escalated:
+			a, ok := open[k]
+			if !ok {
+				a = &OpenAlert{Class: ev.Class, Window: ev.Window, Kind: ev.Kind.String(), Since: ev.At}
+				open[k] = a
+				order = append(order, k)
+			}
+			a.Severity, a.Value, a.Limit, a.Unit = ev.Severity.String(), ev.Value, ev.Limit, ev.Unit
+		case alert.Cleared, alert.Reset:
+			delete(open, k)
+		}
+	}
+	var out []OpenAlert
+	for _, k := range order {
+		if a, ok := open[k]; ok {
+			out = append(out, *a)
+			delete(open, k) // a key re-raised after clearing is listed once
+		}
+	}
+	return out
+}
+
+// TicketView is a recalibration ticket as it stood at the time asked
+// for: a calibration after that time is not shown, and the ticket is
+// then open.
+type TicketView struct {
+	alert.Ticket
+	Open bool `json:"open"`
+}
+
+// ticketsAt returns the tickets opened at or before asof, newest first.
+func ticketsAt(tks []alert.Ticket, asof time.Time) []TicketView {
+	var out []TicketView
+	for _, tk := range tks {
+		if tk.Opened.After(asof) {
+			continue
+		}
+		if tk.Calibration != nil && tk.Calibration.Time.After(asof) {
+			tk.Calibration = nil
+		}
+		out = append(out, TicketView{Ticket: tk, Open: tk.Calibration == nil})
+	}
+	sort.Slice(out, func(i, j int) bool { return out[i].Opened.After(out[j].Opened) })
+	return out
+}
+
+// CalibrationView is a recorded calibration. AsFound and AsLeft are
+// known only for calibrations that closed a ticket; a calibration seen
+// only through the reset events it caused carries the time alone.
+type CalibrationView struct {
+	Time    time.Time `json:"time"`
+	AsFound *float64  `json:"as_found,omitempty"`
+	AsLeft  *float64  `json:"as_left,omitempty"`
+	Ticket  string    `json:"ticket,omitempty"`
+}
+
+func calibrationsAt(tks []TicketView, evs []alert.Event) []CalibrationView {
+	var out []CalibrationView
+	seen := map[int64]bool{}
+	for _, tk := range tks {
+		if c := tk.Calibration; c != nil {
+			af, al := c.AsFound, c.AsLeft
+			out = append(out, CalibrationView{Time: c.Time, AsFound: &af, AsLeft: &al, Ticket: tk.ID})
+			seen[c.Time.UnixNano()] = true
+		}
+	}
+	for _, ev := range evs {
+		if ev.Type == alert.Reset && !seen[ev.At.UnixNano()] {
+			out = append(out, CalibrationView{Time: ev.At})
+			seen[ev.At.UnixNano()] = true
+		}
+	}
+	sort.Slice(out, func(i, j int) bool { return out[i].Time.Before(out[j].Time) })
+	return out
+}
+
+// AsLeft is the centre of the tolerance band and where it comes from.
+type AsLeft struct {
+	Value float64 `json:"value"`
+	// Source is "calibration", "configuration" or "first judged fit".
+	Source string `json:"source"`
+	// Since is the time of the calibration or of the fit it comes from.
+	Since time.Time `json:"since,omitzero"`
+}
+
+// asLeftAt finds the as-left value at asof as the alert rules take it:
+// the last calibration's, else the configured one, else the level of the
+// first trend fit since the last calibration that passes the gates.
+func (h *handler) asLeftAt(id string, r *alert.Rule, cals []CalibrationView, asof time.Time) (*AsLeft, error) {
+	var from time.Time
+	for i := len(cals) - 1; i >= 0; i-- {
+		if cals[i].AsLeft != nil {
+			return &AsLeft{Value: *cals[i].AsLeft, Source: "calibration", Since: cals[i].Time}, nil
+		}
+		if from.IsZero() {
+			from = cals[i].Time
+		}
+	}
+	if r.HasAsLeft {
+		return &AsLeft{Value: r.AsLeft, Source: "configuration"}, nil
+	}
+	key := id + "\x00" + from.UTC().Format(time.RFC3339Nano)
+	h.mu.Lock()
+	c, ok := h.firstLevel[key]
+	h.mu.Unlock()
+	if ok {
+		if c.Since.After(asof) {
+			return nil, nil
+		}
+		return &c, nil
+	}
+	m := trendModel(r)
+	var got *AsLeft
+	err := h.o.DB.History(id, rolling.WindowSpec{}, from, time.Time{}, func(rec store.HistoryRecord) error {
+		sol := rec.Solution
+		if ok, _ := judge(r, &sol, m); ok {
+			got = &AsLeft{Value: sol.Fit(m).Coef[0], Source: "first judged fit", Since: sol.Last}
+			return errStop
+		}
+		return nil
+	})
+	if err != nil && !errors.Is(err, errStop) {
+		return nil, err
+	}
+	if got == nil {
+		return nil, nil
+	}
+	h.mu.Lock()
+	h.firstLevel[key] = *got
+	h.mu.Unlock()
+	if got.Since.After(asof) {
+		return nil, nil
+	}
+	return got, nil
+}
+
+// finite returns a pointer to v, or nil for NaN and infinities, which
+// JSON cannot carry.
+func finite(v float64) *float64 {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return nil
+	}
+	return &v
+}
+
+// globMatch matches id against a pattern with * (any run) and ? (one
+// character); an empty pattern matches everything, and a pattern without
+// wildcards matches ids containing it.
+func globMatch(pattern, id string) bool {
+	if pattern == "" {
+		return true
+	}
+	if !strings.ContainsAny(pattern, "*?") {
+		return strings.Contains(id, pattern)
+	}
+	p, s := []rune(pattern), []rune(id)
+	// Iterative matching with one backtrack point for the last star.
+	pi, si, star, mark := 0, 0, -1, 0
+	for si < len(s) {
+		switch {
+		case pi < len(p) && (p[pi] == '?' || p[pi] == s[si]):
+			pi++
+			si++
+		case pi < len(p) && p[pi] == '*':
+			star, mark = pi, si
+			pi++
+		case star >= 0:
+			pi = star + 1
+			mark++
+			si = mark
+		default:
+			return false
+		}
+	}
+	for pi < len(p) && p[pi] == '*' {
+		pi++
+	}
+	return pi == len(p)
+}
+
+// sortedWindows returns the windows of m, shortest span first.
+func sortedWindows(m map[rolling.WindowSpec]rolling.Solution) []rolling.WindowSpec {
+	ws := make([]rolling.WindowSpec, 0, len(m))
+	for w := range m {
+		ws = append(ws, w)
+	}
+	slices.SortFunc(ws, func(a, b rolling.WindowSpec) int {
+		if a.Span != b.Span {
+			return int(a.Span - b.Span)
+		}
+		return int(a.Pane - b.Pane)
+	})
+	return ws
+}

@@ -1,0 +1,39 @@
+// Package web serves the engineer's pages of driftfit serve: the fleet
+// ranked by urgency, one sensor's fits for review (also as they stood at
+// an earlier time), and the JSON and CSV behind them.
+//
+// # Routes
+//
+//	GET /                      the fleet; ?q=pattern&class=name&state=judged|not_judged|no_rule
+//	GET /api/fleet             the same as JSON; the fleet page polls it
+//	GET /sensors/{id}          one sensor; ?asof=RFC3339 for the page as it stood then
+//	GET /sensors/{id}.csv      what the page shows, as CSV (or ?format=csv)
+//	GET /sensors/{id}.json     the same as JSON (or ?format=json)
+//	GET /api/sensors/{id}      the JSON of the sensor page; ?asof=
+//
+// A sensor id may contain dots; a trailing ".csv" or ".json" is read as
+// the format unless ?format= is given, so a sensor named "x.json" is
+// /sensors/x.json?format=html. Ids are validated (400 naming the
+// problem); a valid id the store knows nothing of is 404.
+//
+// # What the numbers are
+//
+// Fits come from the store's fit history: for each window, the newest
+// record at or before the time asked for. The band around the fitted
+// model is the 95% confidence band of the fitted mean,
+// ŷ(τ) ± t·√(xᵀ·Cov·x) with x = (1, τ, τ²) and t the fit's Student t
+// (Draper and Smith, Applied Regression Analysis, 3rd ed., section 5.3);
+// for the exponential model it is taken on ln y and exponentiated.
+// Alerts are the alert events up to that time replayed per window and
+// kind; a ticket is open at T when opened at or before T and not closed
+// by a calibration at or before T. The evidence gates (min readings,
+// coverage, positive definite, condition number) are those the alert
+// package applies, restated here to say why a window is not judged.
+//
+// # Concurrency
+//
+// The handler is safe for concurrent use. It keeps a cache of each
+// sensor's first judged level (the as-left the alert rules take when the
+// configuration gives none) and the fleet computed for "now", served
+// again for 2 s so that several polling pages share one pass.
+package web

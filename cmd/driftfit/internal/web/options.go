@@ -1,0 +1,54 @@
+package web
+
+import (
+	"time"
+
+	"github.com/rs/zerolog"
+
+	"driftfit/alert"
+	"driftfit/store"
+)
+
+// Options are what the pages read besides the store. Only DB is required.
+type Options struct {
+	// DB is the open state file. The pages only read it (bbolt read
+	// transactions, which run beside the service's commits). Required:
+	// Handler panics without it, a wiring mistake.
+	DB *store.DB
+
+	// Rule returns the alert rule of a sensor: class, unit, tolerance,
+	// as-left, windows, trend model, limits and the evidence gates. ok
+	// false means the sensor has no rule (fitted, never judged). Nil: no
+	// sensor has a rule. Called concurrently from request goroutines.
+	Rule func(id string) (r alert.Rule, ok bool)
+
+	// Now is the clock: the time of "as of now" and of the page stamp.
+	// Nil means time.Now.
+	Now func() time.Time
+
+	// Token, when not empty, is the bearer token every page and API
+	// request must carry (Authorization: Bearer, or the cookie the login
+	// form sets). Empty: no token asked for, for a loopback listener.
+	Token string
+
+	// Refresh is how often the fleet page fetches /api/fleet to redraw
+	// its table in place. Zero means 15s; negative is treated as zero.
+	Refresh time.Duration
+
+	// Location is the time zone dates are shown in. Nil means UTC.
+	Location *time.Location
+
+	// Logger receives request failures (as warnings). The zero value
+	// logs nothing.
+	Logger zerolog.Logger
+}
+
+const defaultRefresh = 15 * time.Second
+
+// Defaults of alert.Rule's zero fields, as documented there; a rule from
+// the configuration has them set already, a hand-made one may not.
+const (
+	defaultMinReadings = 30
+	defaultMaxCond     = 1e4
+	defaultHorizon     = 365 * 24 * time.Hour
+)
