@@ -1,6 +1,47 @@
-// Package ingest turns bytes from the outside world into rolling.Reading
-// values: times (ParseTime), replay files (CSVReader) and NATS message
+// Package ingest owns the per-reading flow of the service, from the bytes
+// on the bus to the decisions on it: decode → validate → fold into the
+// sensor's windows → pane close → fit → alert decision → commit → publish
+// → acknowledge. It is the only importer of the NATS client (besides the
+// tools under cmd/driftfit/internal), and it also holds the decoders of
+// outside bytes: times (ParseTime), replay files (CSVReader) and NATS
 // payloads (Decoder).
+//
+// # The flow
+//
+// A Service routes each message by its subject's sensor id to one of a
+// fixed set of workers; every member of a peer group goes to the group's
+// worker. A worker owns its sensors outright — windows, alert trackers,
+// peer groups — so nothing on the hot path takes a lock. Calibrations
+// (and Restart) enter through the same dispatcher, behind the readings
+// already routed to the sensor.
+//
+// Every commit is one bbolt transaction written by the one committer
+// goroutine: the changed panes of the sensors it takes, their alert
+// state, events, tickets and outbox items, the fit records of the pane
+// closes, each sensor's stream sequence and the stream position. A
+// decision is therefore stored with the state it derives from: after a
+// crash a restart from the stored position makes exactly the decisions
+// not yet committed, none twice. A commit takes every sensor with a
+// decision or a calibration waiting (such a commit starts as soon as the
+// committer is free) and at most Options.CommitMaxSensors others, so a
+// decision never waits behind a commit of the whole fleet.
+//
+// Everything published about alerts goes out from the stored outbox after
+// its commit: alert events and tickets on NATS with Nats-Msg-Id set to a
+// stable id (a stream capturing those subjects drops a re-send after a
+// crash; a core subscriber keeps the ids it has seen), ticket revisions
+// to the webhook with an Idempotency-Key. Sent items are deleted by a
+// later commit. A calibration's reply is sent once its commit is done.
+//
+// # Where to add things
+//
+//   - A payload shape: Decoder.Decode in payload.go (with a case in
+//     payload_test.go, payload_ref_test.go against encoding/json, and a
+//     seed for FuzzDecodePayload in testdata/fuzz).
+//   - A reason for refusing input: reason.go, then the README's list.
+//   - Something the flow decides per pane close: worker.judge in
+//     alerts.go; what it stores goes through worker.decided, so it lands
+//     in the sensor's next commit.
 //
 // # Decoding contract
 //
@@ -10,7 +51,8 @@
 // reading: returned byte slices alias the input or an internal buffer, and
 // each type documents how long they stay valid.
 //
-// None of the types here are safe for concurrent use; give each goroutine
-// its own CSVReader or Decoder. ParseTime and the Append functions are
-// safe to call from any goroutine.
+// Decoders are not safe for concurrent use; give each goroutine its own
+// CSVReader or Decoder. ParseTime and the Append functions are safe to
+// call from any goroutine. A Service is safe for concurrent use through
+// its methods (Stats, Restart, Calibrate); Run is called once.
 package ingest
