@@ -42,10 +42,30 @@ type Fit struct {
 	// the coefficients are the unique minimum of the squared error.
 	Cond   float64
 	PosDef bool
+
+	// Serial correlation of the residuals and the standard errors that
+	// allow for it (see SetSerial). R1 is the lag-1 autocorrelation of
+	// the residuals over Pairs pairs of consecutive readings in time
+	// order (for Exp: the parabola's, see SetSerial); NEff the effective
+	// count of independent readings N(1 − r)/(1 + r), r = max(R1, 0);
+	// Inflation = √((N − p)/(NEff − p)) the factor on SE; SEAdj =
+	// Inflation·SE and CIAdj = Coef ± TCritAdj·SEAdj, TCritAdj the 97.5%
+	// Student's t quantile with ⌊NEff⌋ − p degrees of freedom. When
+	// SerialErr is not nil (ErrSerialUnknown) the correction could not be
+	// estimated and NEff, Inflation, TCritAdj, SEAdj and CIAdj are zero.
+	R1        float64
+	Pairs     int
+	NEff      float64
+	Inflation float64
+	TCritAdj  float64
+	SEAdj     [3]float64
+	CIAdj     [3][2]float64
+	SerialErr error
 }
 
-// OK reports whether the fit can be used: no error, or ErrConstant.
-func (f *Fit) OK() bool { return f.Err == nil || f.Err == ErrConstant }
+// OK reports whether the fit can be used: no error, ErrConstant or
+// ErrUnresolved.
+func (f *Fit) OK() bool { return f.Err == nil || f.Err == ErrConstant || f.Err == ErrUnresolved }
 
 // Solution holds the three fits of one window at one moment.
 type Solution struct {
@@ -85,6 +105,16 @@ type normal struct {
 	rss float64 // residual sum of squares, filled by the second pass
 	css float64 // Σ(y − ȳ)², filled by the second pass
 	det float64 // det G, from the Cholesky factor
+	// bound, times ε, bounds the rounding error of rss: each pane's sum
+	// Σỹ² − 2Σq·ỹ + Σq² of about ten products, from sums of m terms
+	// each, errs by at most about (m + 10)·ε·(Σỹ² + Σq²) (Higham,
+	// Accuracy and Stability of Numerical Algorithms, 2nd ed., §3.1 and
+	// §4.2: recursive summation errs by (m − 1)·u·Σ|xᵢ|), Σ|q·ỹ| being
+	// at most (Σỹ² + Σq²)/2.
+	bound float64
+	// varied: some value differs from another (the data are not
+	// constant), told from the pane sums.
+	varied bool
 }
 
 // Solve fits the three models over window i.
@@ -158,7 +188,7 @@ func (s *Sensor) Solve(i int) Solution {
 		return sol
 	}
 
-	// z = a_k + bz·u for pane k, with a_k = (2(k·w − tfirst) + w − span)/span
+	// z = a_k + bz·u for pane k, with a_k = (2(tmin_k − tfirst) − span)/span
 	// and bz = 2w/span: the integer parts are exact, only the final
 	// scaling rounds, the same way in both passes.
 	span := tlast - tfirst
@@ -181,7 +211,7 @@ func (s *Sensor) Solve(i int) Solution {
 		if p.n == 0 {
 			continue
 		}
-		a := float64(2*(k*rg.width-tfirst)+rg.width-span) * invSpan
+		a := float64(2*(p.tmin-tfirst)-span) * invSpan
 		a2 := a * a
 		pn := float64(p.n)
 		// Σzʲ = Σₘ C(j,m)·a^(j−m)·(bz^m·Σuᵐ), in Horner form.
@@ -243,12 +273,15 @@ func (s *Sensor) Solve(i int) Solution {
 		}
 	}
 
-	// Residual pass, pane by pane in pane coordinates.
+	// Residual pass, pane by pane in pane coordinates, with the rounding
+	// bound of each residual sum and the lag-1 products of the residuals
+	// (see serialSums).
 	ybar := par.r[0] / par.n
 	var lbar float64
 	if ex.n > 0 {
 		lbar = ex.r[0] / ex.n
 	}
+	var sl, sp serialSums
 	for k, j := oldest, first; k <= rg.newest; k, j = k+1, j+1 {
 		if j == P {
 			j = 0
@@ -257,47 +290,129 @@ func (s *Sensor) Solve(i int) Solution {
 		if p.n == 0 {
 			continue
 		}
-		a := float64(2*(k*rg.width-tfirst)+rg.width-span) * invSpan
+		a := float64(2*(p.tmin-tfirst)-span) * invSpan
 		pn := float64(p.n)
 		d := p.y0 - anchorY
 		c := d - ybar
 		css := p.syy + 2*c*p.sy + pn*c*c
 		par.css += css
-		lin.css += css
-		lin.rss += paneRSSLine(p, bl[0]+bl[1]*a-d, bz*bl[1])
-		par.rss += paneRSS(p, bp[0]+bp[1]*a+bp[2]*a*a-d, bz*(bp[1]+2*bp[2]*a), bz2*bp[2])
+		if p.syy != 0 || p.sy != 0 || d != 0 {
+			par.varied = true
+		}
+		w := pn + 10 // rounding bound weight, see normal.bound
+		q0, q1 := bl[0]+bl[1]*a-d, bz*bl[1]
+		rl, fl := paneRSSLine(p, q0, q1)
+		lin.rss += rl
+		lin.bound += w * (p.syy + fl)
+		r0, r1, r2 := bp[0]+bp[1]*a+bp[2]*a*a-d, bz*(bp[1]+2*bp[2]*a), bz2*bp[2]
+		rp, fp := paneRSS(p, r0, r1, r2)
+		par.rss += rp
+		par.bound += w * (p.syy + fp)
+		if p.ordered() {
+			u1 := float64(p.tmax-p.tmin) * rg.invW
+			dy := p.ylast - p.y0
+			sl.add(pn, rl, -q0, dy-(q0+q1*u1), p.sdd-q1*(2*p.sddu-q1*p.sdu2))
+			ap := r1 + r2*u1 // the parabola's slope across the pane
+			sp.add(pn, rp, -r0, dy-(r0+u1*(r1+r2*u1)), p.sdd-ap*(2*p.sddu-ap*p.sdu2))
+		} else {
+			sl.gap()
+			sp.gap()
+		}
 		if p.npos > 0 {
 			sup, su2p := rg.posMoments(j)
 			qn := float64(p.npos)
 			dl := p.l0 - anchorL
 			c := dl - lbar
 			ex.css += p.sll + 2*c*p.sl + qn*c*c
+			if p.sll != 0 || p.sl != 0 || dl != 0 {
+				ex.varied = true
+			}
 			q0, q1 := be[0]+be[1]*a-dl, bz*be[1]
-			ex.rss += p.sll - 2*(q0*p.sl+q1*p.sul) + q0*q0*qn + 2*q0*q1*sup + q1*q1*su2p
+			fe := q0*q0*qn + 2*q0*q1*sup + q1*q1*su2p
+			ex.rss += p.sll - 2*(q0*p.sl+q1*p.sul) + fe
+			ex.bound += (qn + 10) * (p.sll + fe)
 		}
 	}
+	lin.css, lin.varied = par.css, par.varied
 
 	// τ in days: z = 1 + g·τ at the newest reading, since tlast maps to z = 1.
 	g := 2 * nanosPerDay / fspan
 	lin.finish(&sol.Line, bl, il, g, anchorY)
 	par.finish(&sol.Parabola, bp, ip, g, anchorY)
+	sol.Line.SetSerial(sl.r1(lin.rss, sol.Line.N), sl.pairs)
+	r1p := sp.r1(par.rss, sol.Parabola.N)
+	sol.Parabola.SetSerial(r1p, sp.pairs)
 	if npos == 0 {
 		sol.Exp.Err = ErrNotEnoughData
 	} else {
 		ex.finish(&sol.Exp, be, ie, g, anchorL)
 	}
+	// The exp fit borrows the parabola's estimate: see Fit.R1.
+	sol.Exp.SetSerial(r1p, sp.pairs)
 	return sol
 }
 
-// paneRSS returns Σ(ỹ − q(u))² over a pane for q(u) = q0 + q1·u + q2·u².
-func paneRSS(p *pane, q0, q1, q2 float64) float64 {
-	return p.syy - 2*(q0*p.sy+q1*p.suy+q2*p.su2y) +
-		q0*q0*float64(p.n) + 2*q0*q1*p.su + (q1*q1+2*q0*q2)*p.su2 + 2*q1*q2*p.su3 + q2*q2*p.su4
+// serialSums collects, pane by pane in time order, the lag-1 products of
+// a fit's residuals e over consecutive readings in time order: Σe_i·e_{i−1}
+// and the count of pairs.
+//
+// Within an ordered pane of m readings, with eF and eL the residuals of
+// its first and last reading, Σ_pairs (e_i − e_{i−1})² = Σe² + Σe² − 2Σe_i·e_{i−1}
+// where the first Σe² leaves out eF² and the second eL², so
+//
+//	Σ e_i·e_{i−1} = (2·RSS_pane − eF² − eL² − Σ(Δe)²)/2,
+//
+// and Δe = d − Δq with d the change of the reading and Δq that of the
+// fitted curve, Δq = A·Δu for a line (A its slope in pane units), giving
+// Σ(Δe)² = Σd² − 2A·Σd·Δu + A²·ΣΔu² from the pane's sums. For the
+// parabola A is its slope at the middle of the pane's readings; the
+// change of slope within one pane is left out of Δq, which for the
+// curvatures a window resolves changes Σ(Δe)² by far less than its
+// noise. Between consecutive ordered panes (also across empty ones) the
+// pair (last of one, first of the next) is added as eL·eF. An unordered
+// pane contributes no pair and breaks the chain.
+type serialSums struct {
+	prod  float64
+	pairs int
+	prevE float64
+	prev  bool
+}
+
+// add records an ordered pane of n readings with residual sum of squares
+// rss, first and last residual ef, el, and Σ(Δe)² dd.
+func (s *serialSums) add(n, rss, ef, el, dd float64) {
+	s.prod += (2*rss - ef*ef - el*el - dd) / 2
+	s.pairs += int(n) - 1
+	if s.prev {
+		s.prod += s.prevE * ef
+		s.pairs++
+	}
+	s.prevE, s.prev = el, true
+}
+
+// gap records an unordered pane.
+func (s *serialSums) gap() { s.prev = false }
+
+// r1 returns the lag-1 autocorrelation estimate (Σe_i·e_{i−1}/pairs) /
+// (RSS/n): the mean lag product over the mean square.
+func (s *serialSums) r1(rss float64, n int) float64 {
+	if s.pairs == 0 || !(rss > 0) {
+		return 0
+	}
+	return s.prod / float64(s.pairs) / (rss / float64(n))
+}
+
+// paneRSS returns Σ(ỹ − q(u))² over a pane for q(u) = q0 + q1·u + q2·u²,
+// and Σq(u)², the size of the terms it cancels.
+func paneRSS(p *pane, q0, q1, q2 float64) (rss, fitsq float64) {
+	fitsq = q0*q0*float64(p.n) + 2*q0*q1*p.su + (q1*q1+2*q0*q2)*p.su2 + 2*q1*q2*p.su3 + q2*q2*p.su4
+	return p.syy - 2*(q0*p.sy+q1*p.suy+q2*p.su2y) + fitsq, fitsq
 }
 
 // paneRSSLine is paneRSS with q2 = 0.
-func paneRSSLine(p *pane, q0, q1 float64) float64 {
-	return p.syy - 2*(q0*p.sy+q1*p.suy) + q0*q0*float64(p.n) + 2*q0*q1*p.su + q1*q1*p.su2
+func paneRSSLine(p *pane, q0, q1 float64) (rss, fitsq float64) {
+	fitsq = q0*q0*float64(p.n) + 2*q0*q1*p.su + q1*q1*p.su2
+	return p.syy - 2*(q0*p.sy+q1*p.suy) + fitsq, fitsq
 }
 
 // pdTol is the smallest Cholesky pivot, relative to its diagonal entry,
@@ -396,7 +511,11 @@ func (ne *normal) finish(f *Fit, beta [3]float64, inv [3][3]float64, g, anchor f
 		return
 	}
 	f.DF = f.N - p
-	rss := max(ne.rss, 0)
+	rss := ne.rss
+	unresolved := false
+	if bound := ne.bound * 0x1p-52; rss < bound {
+		rss, unresolved = bound, true
+	}
 	s2 := rss / float64(f.DF)
 	if p == 2 {
 		// T = [[1, 1], [0, g]]: written out, the hot case of two fits.
@@ -429,15 +548,31 @@ func (ne *normal) finish(f *Fit, beta [3]float64, inv [3][3]float64, g, anchor f
 	}
 	f.ResidSD = math.Sqrt(s2)
 	f.Cond = ne.cond()
-	if !(ne.css > 0) {
+	switch {
+	case !ne.varied:
 		f.Err = ErrConstant
-	} else {
+		f.SE, f.Cov, f.ResidSD = [3]float64{}, [3][3]float64{}, 0
+		for r := 0; r < p; r++ {
+			f.CI[r] = [2]float64{f.Coef[r], f.Coef[r]}
+		}
+	case !(ne.css >= f.scaleFloor()):
+		// Squared differences among the subnormals: no digit to trust.
+		f.Err = ErrNumeric
+	default:
 		f.R2 = 1 - rss/ne.css
+		if unresolved {
+			f.Err = ErrUnresolved
+		}
 	}
-	if !f.finite() {
+	if f.Err == ErrNumeric || !f.finite() {
 		*f = Fit{Model: f.Model, Err: ErrNumeric, N: f.N, Excluded: f.Excluded, First: f.First, Last: f.Last}
 	}
 }
+
+// scaleFloor is the least Σ(y − ȳ)² whose squares keep full precision:
+// N mean squares of 2⁻⁹⁶⁸, deviations of about 1e-146 or more. Below it
+// the squared differences approach the subnormal range (below 2⁻¹⁰²²).
+func (f *Fit) scaleFloor() float64 { return float64(f.N) * 0x1p-968 }
 
 // finite reports whether every number of the fit is finite.
 func (f *Fit) finite() bool {

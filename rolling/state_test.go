@@ -99,8 +99,8 @@ func TestSensor_LoadPane_Rejects(t *testing.T) {
 	}
 	key := rolling.PaneKey{Width: time.Hour, Index: t2026/int64(time.Hour) + 29}
 	good := s.AppendPane(nil, key)
-	if len(good) != 128 {
-		t.Fatalf("pane encoding is %d bytes, want 128", len(good))
+	if len(good) != 160 {
+		t.Fatalf("pane encoding is %d bytes, want 160", len(good))
 	}
 	flip := func(off int, b byte) []byte { d := slices.Clone(good); d[off] ^= b; return d }
 	nan := slices.Clone(good)
@@ -149,6 +149,7 @@ func FuzzLoadPane(f *testing.F) {
 	}
 	key := rolling.PaneKey{Width: time.Hour, Index: t2026 / int64(time.Hour)}
 	f.Add(int64(key.Index), s.AppendPane(nil, key))
+	f.Add(int64(0), make([]byte, 160))
 	f.Add(int64(0), make([]byte, 128))
 	f.Fuzz(func(t *testing.T, index int64, data []byte) {
 		d, _ := rolling.NewSensor(defaultSpecs...)
