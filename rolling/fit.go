@@ -110,7 +110,8 @@ type normal struct {
 	// each, errs by at most about (m + 10)·ε·(Σỹ² + Σq²) (Higham,
 	// Accuracy and Stability of Numerical Algorithms, 2nd ed., §3.1 and
 	// §4.2: recursive summation errs by (m − 1)·u·Σ|xᵢ|), Σ|q·ỹ| being
-	// at most (Σỹ² + Σq²)/2.
+	// at most (Σỹ² + Σq²)/2. It is formed from window totals, with m the
+	// largest pane count.
 	bound float64
 	// varied: some value differs from another (the data are not
 	// constant), told from the pane sums.
@@ -203,6 +204,9 @@ func (s *Sensor) Solve(i int) Solution {
 	// uses every reading and shares the line's normal matrix.
 	mixed := false
 	invSpan := 1 / fspan
+	var vbits, ebits uint64
+	var sumSyy, sumSll float64
+	var maxN uint32
 	for k, j := oldest, first; k <= rg.newest; k, j = k+1, j+1 {
 		if j == P {
 			j = 0
@@ -221,6 +225,11 @@ func (s *Sensor) Solve(i int) Solution {
 		m3 := a*(a*(pn*a+3*t1)+3*t2) + t3
 		m4 := a*(a*(a*(pn*a+4*t1)+6*t2)+4*t3) + t4
 		d := p.y0 - anchorY
+		// Some value differs from the anchor: ỹ or the pane's offset is
+		// not zero (sign bits shifted out).
+		vbits |= (math.Float64bits(p.syy) | math.Float64bits(p.sy) | math.Float64bits(d)) << 1
+		sumSyy += p.syy
+		maxN = max(maxN, p.n)
 		par.n += pn
 		par.g[0][1] += m1
 		par.g[0][2] += m2
@@ -241,6 +250,8 @@ func (s *Sensor) Solve(i int) Solution {
 				q1 = qn*a + bz*sup
 				q2 = qn*a2 + 2*a*bz*sup + bz2*su2p
 			}
+			ebits |= (math.Float64bits(p.sll) | math.Float64bits(p.sl) | math.Float64bits(dl)) << 1
+			sumSll += p.sll
 			ex.n += qn
 			ex.g[0][1] += q1
 			ex.g[1][1] += q2
@@ -296,24 +307,18 @@ func (s *Sensor) Solve(i int) Solution {
 		c := d - ybar
 		css := p.syy + 2*c*p.sy + pn*c*c
 		par.css += css
-		if p.syy != 0 || p.sy != 0 || d != 0 {
-			par.varied = true
-		}
-		w := pn + 10 // rounding bound weight, see normal.bound
 		q0, q1 := bl[0]+bl[1]*a-d, bz*bl[1]
-		rl, fl := paneRSSLine(p, q0, q1)
+		rl := paneRSSLine(p, q0, q1)
 		lin.rss += rl
-		lin.bound += w * (p.syy + fl)
 		r0, r1, r2 := bp[0]+bp[1]*a+bp[2]*a*a-d, bz*(bp[1]+2*bp[2]*a), bz2*bp[2]
-		rp, fp := paneRSS(p, r0, r1, r2)
+		rp := paneRSS(p, r0, r1, r2)
 		par.rss += rp
-		par.bound += w * (p.syy + fp)
 		if p.ordered() {
 			u1 := float64(p.tmax-p.tmin) * rg.invW
 			dy := p.ylast - p.y0
-			sl.add(pn, rl, -q0, dy-(q0+q1*u1), p.sdd-q1*(2*p.sddu-q1*p.sdu2))
+			sl.add(p.n, rl, -q0, dy-(q0+q1*u1), p.sdd-q1*(2*p.sddu-q1*p.sdu2))
 			ap := r1 + r2*u1 // the parabola's slope across the pane
-			sp.add(pn, rp, -r0, dy-(r0+u1*(r1+r2*u1)), p.sdd-ap*(2*p.sddu-ap*p.sdu2))
+			sp.add(p.n, rp, -r0, dy-(r0+u1*(r1+r2*u1)), p.sdd-ap*(2*p.sddu-ap*p.sdu2))
 		} else {
 			sl.gap()
 			sp.gap()
@@ -324,16 +329,18 @@ func (s *Sensor) Solve(i int) Solution {
 			dl := p.l0 - anchorL
 			c := dl - lbar
 			ex.css += p.sll + 2*c*p.sl + qn*c*c
-			if p.sll != 0 || p.sl != 0 || dl != 0 {
-				ex.varied = true
-			}
 			q0, q1 := be[0]+be[1]*a-dl, bz*be[1]
-			fe := q0*q0*qn + 2*q0*q1*sup + q1*q1*su2p
-			ex.rss += p.sll - 2*(q0*p.sl+q1*p.sul) + fe
-			ex.bound += (qn + 10) * (p.sll + fe)
+			ex.rss += p.sll - 2*(q0*p.sl+q1*p.sul) + q0*q0*qn + 2*q0*q1*sup + q1*q1*su2p
 		}
 	}
-	lin.css, lin.varied = par.css, par.varied
+	lin.css, ex.varied = par.css, ebits != 0
+	lin.varied, par.varied = vbits != 0, vbits != 0
+	// Rounding bounds (see normal.bound): with Σq² ≤ 2Σỹ² + 2·RSS_pane,
+	// Σ(Σỹ² + Σq²) ≤ 3Σỹ² + 2·RSS over the window.
+	bw := float64(maxN) + 10
+	lin.bound = bw * (3*sumSyy + 2*max(lin.rss, 0))
+	par.bound = bw * (3*sumSyy + 2*max(par.rss, 0))
+	ex.bound = bw * (3*sumSll + 2*max(ex.rss, 0))
 
 	// τ in days: z = 1 + g·τ at the newest reading, since tlast maps to z = 1.
 	g := 2 * nanosPerDay / fspan
@@ -374,24 +381,21 @@ func (s *Sensor) Solve(i int) Solution {
 type serialSums struct {
 	prod  float64
 	pairs int
-	prevE float64
-	prev  bool
+	prevE float64 // residual of the last reading of the previous ordered pane; 0 after a gap
+	prev  int     // 1 when prevE belongs to a pane chained to the next, else 0
 }
 
 // add records an ordered pane of n readings with residual sum of squares
-// rss, first and last residual ef, el, and Σ(Δe)² dd.
-func (s *serialSums) add(n, rss, ef, el, dd float64) {
-	s.prod += (2*rss - ef*ef - el*el - dd) / 2
-	s.pairs += int(n) - 1
-	if s.prev {
-		s.prod += s.prevE * ef
-		s.pairs++
-	}
-	s.prevE, s.prev = el, true
+// rss, first and last residual ef, el, and Σ(Δe)² dd. The bridge to the
+// previous pane is added without a branch: prevE is 0 after a gap.
+func (s *serialSums) add(n uint32, rss, ef, el, dd float64) {
+	s.prod += rss - 0.5*(ef*ef+el*el+dd) + s.prevE*ef
+	s.pairs += int(n) - 1 + s.prev
+	s.prevE, s.prev = el, 1
 }
 
 // gap records an unordered pane.
-func (s *serialSums) gap() { s.prev = false }
+func (s *serialSums) gap() { s.prevE, s.prev = 0, 0 }
 
 // r1 returns the lag-1 autocorrelation estimate (Σe_i·e_{i−1}/pairs) /
 // (RSS/n): the mean lag product over the mean square.
@@ -402,17 +406,15 @@ func (s *serialSums) r1(rss float64, n int) float64 {
 	return s.prod / float64(s.pairs) / (rss / float64(n))
 }
 
-// paneRSS returns Σ(ỹ − q(u))² over a pane for q(u) = q0 + q1·u + q2·u²,
-// and Σq(u)², the size of the terms it cancels.
-func paneRSS(p *pane, q0, q1, q2 float64) (rss, fitsq float64) {
-	fitsq = q0*q0*float64(p.n) + 2*q0*q1*p.su + (q1*q1+2*q0*q2)*p.su2 + 2*q1*q2*p.su3 + q2*q2*p.su4
-	return p.syy - 2*(q0*p.sy+q1*p.suy+q2*p.su2y) + fitsq, fitsq
+// paneRSS returns Σ(ỹ − q(u))² over a pane for q(u) = q0 + q1·u + q2·u².
+func paneRSS(p *pane, q0, q1, q2 float64) float64 {
+	return p.syy - 2*(q0*p.sy+q1*p.suy+q2*p.su2y) +
+		q0*q0*float64(p.n) + 2*q0*q1*p.su + (q1*q1+2*q0*q2)*p.su2 + 2*q1*q2*p.su3 + q2*q2*p.su4
 }
 
 // paneRSSLine is paneRSS with q2 = 0.
-func paneRSSLine(p *pane, q0, q1 float64) (rss, fitsq float64) {
-	fitsq = q0*q0*float64(p.n) + 2*q0*q1*p.su + q1*q1*p.su2
-	return p.syy - 2*(q0*p.sy+q1*p.suy) + fitsq, fitsq
+func paneRSSLine(p *pane, q0, q1 float64) float64 {
+	return p.syy - 2*(q0*p.sy+q1*p.suy) + q0*q0*float64(p.n) + 2*q0*q1*p.su + q1*q1*p.su2
 }
 
 // pdTol is the smallest Cholesky pivot, relative to its diagonal entry,
