@@ -213,3 +213,35 @@ func TestSolution_WithSerial(t *testing.T) {
 		t.Errorf("r1 0.9 on 24 readings (n_e 1.3): SerialErr %v, want ErrSerialUnknown", g.SerialErr)
 	}
 }
+
+// A sensor with a one-day window of hourly panes and a 30-day window:
+// the one-day window's 23 pairs are too few for its own estimate, so it
+// is judged with the 30-day window's. The noise is AR(1) with φ = 0.5
+// from a fixed pseudo-random sequence.
+func ExampleSolution_WithSerial() {
+	s, err := rolling.NewSensor(
+		rolling.WindowSpec{Span: 24 * time.Hour, Pane: time.Hour},
+		rolling.WindowSpec{Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour})
+	if err != nil {
+		panic(err)
+	}
+	start := time.Date(2026, 4, 1, 0, 0, 0, 0, time.UTC)
+	rng := rand.New(rand.NewPCG(3, 4))
+	x := 0.0
+	for i := range 30 * 24 {
+		x = 0.5*x + rng.NormFloat64()
+		if err := s.Add(rolling.Reading{UnixNano: start.Add(time.Duration(i) * time.Hour).UnixNano(), Value: 20 + x}); err != nil {
+			panic(err)
+		}
+	}
+	day, month := s.Solve(0), s.Solve(1)
+	fmt.Println("1-day window alone:", day.Line.SerialErr)
+	long := month.Parabola
+	fmt.Printf("30-day window: r1 %.2f over %d pairs\n", long.R1, long.Pairs)
+	adj := day.WithSerial(long.R1, long.Pairs)
+	fmt.Printf("1-day slope SE %.2f, corrected %.2f\n", adj.Line.SE[1], adj.Line.SEAdj[1])
+	// Output:
+	// 1-day window alone: rolling: serial correlation unknown
+	// 30-day window: r1 0.53 over 719 pairs
+	// 1-day slope SE 0.61, corrected 1.25
+}
