@@ -116,6 +116,9 @@ type normal struct {
 	// varied: some value differs from another (the data are not
 	// constant), told from the pane sums.
 	varied bool
+	// condOf, when positive, is the condition number of this very matrix,
+	// already computed for another fit (the exp fit shares the line's).
+	condOf float64
 }
 
 // Solve fits the three models over window i.
@@ -352,6 +355,9 @@ func (s *Sensor) Solve(i int) Solution {
 	if npos == 0 {
 		sol.Exp.Err = ErrNotEnoughData
 	} else {
+		if !mixed {
+			ex.condOf = sol.Line.Cond
+		}
 		ex.finish(&sol.Exp, be, ie, g, anchorL)
 	}
 	// The exp fit borrows the parabola's estimate: see Fit.R1.
@@ -549,7 +555,9 @@ func (ne *normal) finish(f *Fit, beta [3]float64, inv [3][3]float64, g, anchor f
 		f.CI[r] = [2]float64{f.Coef[r] - f.TCrit*f.SE[r], f.Coef[r] + f.TCrit*f.SE[r]}
 	}
 	f.ResidSD = math.Sqrt(s2)
-	f.Cond = ne.cond()
+	if f.Cond = ne.condOf; !(f.Cond > 0) {
+		f.Cond = ne.cond()
+	}
 	switch {
 	case !ne.varied:
 		f.Err = ErrConstant
@@ -603,7 +611,8 @@ func (f *Fit) finite() bool {
 // positive definite normal matrix. λmax is the largest root of the
 // characteristic polynomial, found by Newton's method from Gershgorin's
 // upper bound (the cubic is convex and rising there, so the iterates fall
-// monotonically onto the root); the other two eigenvalues then have a
+// monotonically onto the root; the Frobenius norm bounds it from above
+// as well); the other two eigenvalues then have a
 // known sum and product, and λmin comes from the determinant, which the
 // Cholesky factor gives accurately even for a nearly singular matrix.
 func (ne *normal) cond() float64 {
@@ -620,6 +629,10 @@ func (ne *normal) cond() float64 {
 	c1 := a00*a11 - a01*a01 + a00*a22 - a02*a02 + a11*a22 - a12*a12
 	c0 := ne.det
 	l := max(a00+math.Abs(a01)+math.Abs(a02), math.Abs(a01)+a11+math.Abs(a12), math.Abs(a02)+math.Abs(a12)+a22)
+	// The Frobenius norm is an upper bound too, and for normal matrices in
+	// z ∈ [−1, 1], whose largest eigenvalue dominates, the closer one
+	// (about 5% above it against 20% for Gershgorin's): fewer steps.
+	l = min(l, math.Sqrt(a00*a00+a11*a11+a22*a22+2*(a01*a01+a02*a02+a12*a12)))
 	for range 64 {
 		f := ((l-c2)*l+c1)*l - c0
 		df := (3*l-2*c2)*l + c1
