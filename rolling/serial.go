@@ -28,14 +28,15 @@ const MinPairs = 30
 // never narrows an interval.
 //
 // SerialErr is ErrSerialUnknown, and the corrected numbers zero, when the
-// fit is not OK, pairs < MinPairs, r1 is not within (−1, 1), or n_e leaves
+// fit is not OK or its residuals are unresolved (ErrUnresolved: their
+// correlation is rounding), pairs < MinPairs, r1 is not within (−1, 1), or n_e leaves
 // no degree of freedom (n_e < p + 1).
 func (f *Fit) SetSerial(r1 float64, pairs int) {
 	f.R1, f.Pairs = r1, pairs
 	f.NEff, f.Inflation, f.TCritAdj = 0, 0, 0
 	f.SEAdj, f.CIAdj = [3]float64{}, [3][2]float64{}
 	f.SerialErr = ErrSerialUnknown
-	if !f.OK() || pairs < MinPairs || !(r1 > -1 && r1 < 1) {
+	if !f.OK() || f.Err == ErrUnresolved || pairs < MinPairs || !(r1 > -1 && r1 < 1) {
 		return
 	}
 	p := f.Model.Coefs()
