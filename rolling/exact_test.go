@@ -171,7 +171,9 @@ func checkDigits(t *testing.T, f *rolling.Fit, ref exactResult, minLRE float64) 
 
 // TestSolve_ExactRational_EdgeCases puts readings where float64 sums lose
 // digits and checks the fits against exact rational least squares to 10
-// significant digits.
+// significant digits. With time measured from the pane's centre (the
+// earlier layout) the first four cases kept 6 to 7 digits (Norris) and
+// 3 (1-ns steps), and the fifth had the wrong slope.
 func TestSolve_ExactRational_EdgeCases(t *testing.T) {
 	norris, _ := loadNIST(t, "Norris")
 	dayStart := time.Date(2026, 6, 15, 0, 0, 0, 0, time.UTC).UnixNano()
@@ -189,13 +191,17 @@ func TestSolve_ExactRational_EdgeCases(t *testing.T) {
 		// 1e-6 per ns and noise of 1e-4 on a level of 50.
 		nsSteps = append(nsSteps, rolling.Reading{UnixNano: dayStart + 3e8 + k, Value: 50 + 1e-6*float64(k) + 1e-4*rng.NormFloat64()})
 	}
+	// 5000 readings at one instant 100 s before the end of a one-day
+	// pane, and two more 50 s and 1 s before it: with time measured from
+	// the pane's centre this gave a slope of 173 ± 16 against the exact
+	// −543, an "ok" fit whose interval excluded the truth.
 	var instant []rolling.Reading
 	for range 5000 {
-		instant = append(instant, rolling.Reading{UnixNano: dayStart + int64(10*time.Minute) + 17, Value: 20 + 0.01*rng.NormFloat64()})
+		instant = append(instant, rolling.Reading{UnixNano: dayStart + day - 100e9, Value: 20 + 0.01*rng.NormFloat64()})
 	}
 	instant = append(instant,
-		rolling.Reading{UnixNano: dayStart + int64(5*time.Hour) + 3, Value: 20.25},
-		rolling.Reading{UnixNano: dayStart + int64(9*time.Hour) + 5, Value: 20.125})
+		rolling.Reading{UnixNano: dayStart + day - 50e9, Value: 20.25},
+		rolling.Reading{UnixNano: dayStart + day - 1e9, Value: 20.125})
 	cases := []struct {
 		name  string
 		spec  rolling.WindowSpec
@@ -206,8 +212,8 @@ func TestSolve_ExactRational_EdgeCases(t *testing.T) {
 		{"Norris parabola in the last 1000 s of a 1-day pane", rolling.WindowSpec{Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}, bunched, rolling.Parabola},
 		{"1-ns steps in a 1-s pane", rolling.WindowSpec{Span: time.Minute, Pane: time.Second}, nsSteps, rolling.Line},
 		{"1-ns steps in a 1-s pane, parabola", rolling.WindowSpec{Span: time.Minute, Pane: time.Second}, nsSteps, rolling.Parabola},
-		{"5000 readings at one instant plus 2", rolling.WindowSpec{Span: 24 * time.Hour, Pane: time.Hour}, instant, rolling.Parabola},
-		{"5000 readings at one instant plus 2, line", rolling.WindowSpec{Span: 24 * time.Hour, Pane: time.Hour}, instant, rolling.Line},
+		{"5000 readings at one instant plus 2", rolling.WindowSpec{Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}, instant, rolling.Parabola},
+		{"5000 readings at one instant plus 2, line", rolling.WindowSpec{Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}, instant, rolling.Line},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
