@@ -37,10 +37,10 @@ func (ws WindowSpec) validate() error {
 // totals Solve forms over many panes. The log sums need no bound: ln y of
 // a finite positive float64 lies within [−745, 710]. A value of 1e200,
 // whose square overflows, would otherwise make a pane unrestorable.
-const MaxValue = maxValue
+const MaxValue = 1e145
 
 const (
-	maxValue = 1e145
+	maxValue = MaxValue
 	maxDiff2 = 4 * maxValue * maxValue // largest (y − y0)² and d²
 )
 
