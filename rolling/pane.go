@@ -57,22 +57,21 @@ func (p *pane) ordered() bool { return p.sdu2 >= 0 }
 func (p *pane) add(t int64, invW, y, ly float64, pos bool, side *posMoments) {
 	if p.n == 0 {
 		p.tmin, p.tmax, p.y0, p.ylast = t, t, y, y
+	} else if t >= p.tmax {
+		// In time order, the common case.
+		if p.ordered() {
+			d, du := y-p.ylast, float64(t-p.tmax)*invW
+			p.sdd += d * d
+			p.sddu += d * du
+			p.sdu2 += du * du
+			p.ylast = y
+		}
+		p.tmax = t
 	} else {
+		p.sdu2 = -1
 		if t < p.tmin {
 			p.shift(float64(p.tmin-t)*invW, side)
 			p.tmin = t
-		}
-		if t >= p.tmax {
-			if p.ordered() {
-				d, du := y-p.ylast, float64(t-p.tmax)*invW
-				p.sdd += d * d
-				p.sddu += d * du
-				p.sdu2 += du * du
-				p.ylast = y
-			}
-			p.tmax = t
-		} else {
-			p.sdu2 = -1
 		}
 	}
 	u := float64(t-p.tmin) * invW
