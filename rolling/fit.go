@@ -360,8 +360,13 @@ func (s *Sensor) Solve(i int) Solution {
 		}
 		ex.finish(&sol.Exp, be, ie, g, anchorL)
 	}
-	// The exp fit borrows the parabola's estimate: see Fit.R1.
-	sol.Exp.SetSerial(r1p, sp.pairs)
+	// The exp fit borrows the parabola's estimate (see SetSerial), or the
+	// line's when the parabola has none (readings at two instants).
+	if sol.Parabola.OK() {
+		sol.Exp.SetSerial(r1p, sp.pairs)
+	} else {
+		sol.Exp.SetSerial(sol.Line.R1, sol.Line.Pairs)
+	}
 	return sol
 }
 

@@ -27,6 +27,13 @@ const MinPairs = 30
 // A negative r1 (residuals alternating) is taken as 0: the correction
 // never narrows an interval.
 //
+// Solve gives each fit the estimate from its own residuals, except Exp,
+// which takes the parabola's (the line's when the parabola is singular):
+// the lag sums are kept for y, not ln y. For noise small against the
+// level, ln y's residuals are y's divided by the level, with the same
+// correlation; the parabola follows the bend of a growth curve, so the
+// bend is not taken for correlation.
+//
 // SerialErr is ErrSerialUnknown, and the corrected numbers zero, when the
 // fit is not OK or its residuals are unresolved (ErrUnresolved: their
 // correlation is rounding), pairs < MinPairs, r1 is not within (−1, 1), or n_e leaves
