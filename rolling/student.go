@@ -35,8 +35,13 @@ func t975(df int) float64 {
 		})
 		return tTable[df]
 	}
-	return cornishFisherAt(z975, float64(df))
+	v := 1 / float64(df)
+	return z975 + v*(g975[0]+v*(g975[1]+v*(g975[2]+v*g975[3])))
 }
+
+// g975 are the coefficients g1…g4 of cornishFisherAt for the normal
+// quantile z975, computed once: Solve needs t975 for every fit.
+var g975 = cornishFisherCoefs(z975)
 
 // cfMinDF is the least ν for which StudentQuantile uses cornishFisher.
 const cfMinDF = 1000
@@ -58,13 +63,19 @@ func cornishFisher(p, nu float64) float64 {
 // cornishFisherAt is t ≈ x + g1/ν + g2/ν² + g3/ν³ + g4/ν⁴ with x the
 // normal quantile (A&S 26.7.5).
 func cornishFisherAt(x, nu float64) float64 {
-	x2 := x * x
-	g1 := (x2 + 1) * x / 4
-	g2 := ((5*x2+16)*x2 + 3) * x / 96
-	g3 := (((3*x2+19)*x2+17)*x2 - 15) * x / 384
-	g4 := ((((79*x2+776)*x2+1482)*x2-1920)*x2 - 945) * x / 92160
+	g := cornishFisherCoefs(x)
 	v := 1 / nu
-	return x + v*(g1+v*(g2+v*(g3+v*g4)))
+	return x + v*(g[0]+v*(g[1]+v*(g[2]+v*g[3])))
+}
+
+func cornishFisherCoefs(x float64) [4]float64 {
+	x2 := x * x
+	return [4]float64{
+		(x2 + 1) * x / 4,
+		((5*x2+16)*x2 + 3) * x / 96,
+		(((3*x2+19)*x2+17)*x2 - 15) * x / 384,
+		((((79*x2+776)*x2+1482)*x2-1920)*x2 - 945) * x / 92160,
+	}
 }
 
 // StudentQuantile returns the p quantile of Student's t distribution
