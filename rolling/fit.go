@@ -296,6 +296,10 @@ func (s *Sensor) Solve(i int) Solution {
 		lbar = ex.r[0] / ex.n
 	}
 	var sl, sp serialSums
+	// Ordered panes' lag sums for the line, whose slope in pane units q1
+	// is the same in every pane: Σ(Δe)² = Σd² − 2q1·ΣdΔu + q1²·ΣΔu².
+	var lagDD, lagDDU, lagDU2 float64
+	pairs, chained := 0, 0
 	for k, j := oldest, first; k <= rg.newest; k, j = k+1, j+1 {
 		if j == P {
 			j = 0
@@ -319,10 +323,16 @@ func (s *Sensor) Solve(i int) Solution {
 		if p.ordered() {
 			u1 := float64(p.tmax-p.tmin) * rg.invW
 			dy := p.ylast - p.y0
-			sl.add(p.n, rl, -q0, dy-(q0+q1*u1), p.sdd-q1*(2*p.sddu-q1*p.sdu2))
+			lagDD += p.sdd
+			lagDDU += p.sddu
+			lagDU2 += p.sdu2
+			pairs += int(p.n) - 1 + chained
+			chained = 1
+			sl.add(rl, -q0, dy-(q0+q1*u1), 0)
 			ap := r1 + r2*u1 // the parabola's slope across the pane
-			sp.add(p.n, rp, -r0, dy-(r0+u1*(r1+r2*u1)), p.sdd-ap*(2*p.sddu-ap*p.sdu2))
+			sp.add(rp, -r0, dy-(r0+u1*(r1+r2*u1)), p.sdd-ap*(2*p.sddu-ap*p.sdu2))
 		} else {
+			chained = 0
 			sl.gap()
 			sp.gap()
 		}
@@ -349,9 +359,11 @@ func (s *Sensor) Solve(i int) Solution {
 	g := 2 * nanosPerDay / fspan
 	lin.finish(&sol.Line, bl, il, g, anchorY)
 	par.finish(&sol.Parabola, bp, ip, g, anchorY)
-	sol.Line.SetSerial(sl.r1(lin.rss, sol.Line.N), sl.pairs)
-	r1p := sp.r1(par.rss, sol.Parabola.N)
-	sol.Parabola.SetSerial(r1p, sp.pairs)
+	ql := bz * bl[1]
+	sl.prod -= 0.5 * (lagDD - ql*(2*lagDDU-ql*lagDU2))
+	sol.Line.SetSerial(sl.r1(lin.rss, sol.Line.N, pairs), pairs)
+	r1p := sp.r1(par.rss, sol.Parabola.N, pairs)
+	sol.Parabola.SetSerial(r1p, pairs)
 	if npos == 0 {
 		sol.Exp.Err = ErrNotEnoughData
 	} else {
@@ -363,7 +375,7 @@ func (s *Sensor) Solve(i int) Solution {
 	// The exp fit borrows the parabola's estimate (see SetSerial), or the
 	// line's when the parabola has none (readings at two instants).
 	if sol.Parabola.OK() {
-		sol.Exp.SetSerial(r1p, sp.pairs)
+		sol.Exp.SetSerial(r1p, pairs)
 	} else {
 		sol.Exp.SetSerial(sol.Line.R1, sol.Line.Pairs)
 	}
@@ -391,30 +403,30 @@ func (s *Sensor) Solve(i int) Solution {
 // pane contributes no pair and breaks the chain.
 type serialSums struct {
 	prod  float64
-	pairs int
 	prevE float64 // residual of the last reading of the previous ordered pane; 0 after a gap
-	prev  int     // 1 when prevE belongs to a pane chained to the next, else 0
 }
 
-// add records an ordered pane of n readings with residual sum of squares
-// rss, first and last residual ef, el, and Σ(Δe)² dd. The bridge to the
-// previous pane is added without a branch: prevE is 0 after a gap.
-func (s *serialSums) add(n uint32, rss, ef, el, dd float64) {
+// add records an ordered pane with residual sum of squares rss, first
+// and last residual ef, el, and Σ(Δe)² dd (for the line, 0: its Σ(Δe)²
+// is subtracted once from window totals). The bridge to the previous
+// pane is added without a branch: prevE is 0 after a gap. The pair count,
+// the same for every fit, is kept by Solve: m − 1 within a pane of m
+// readings, plus one for each bridge.
+func (s *serialSums) add(rss, ef, el, dd float64) {
 	s.prod += rss - 0.5*(ef*ef+el*el+dd) + s.prevE*ef
-	s.pairs += int(n) - 1 + s.prev
-	s.prevE, s.prev = el, 1
+	s.prevE = el
 }
 
 // gap records an unordered pane.
-func (s *serialSums) gap() { s.prevE, s.prev = 0, 0 }
+func (s *serialSums) gap() { s.prevE = 0 }
 
 // r1 returns the lag-1 autocorrelation estimate (Σe_i·e_{i−1}/pairs) /
 // (RSS/n): the mean lag product over the mean square.
-func (s *serialSums) r1(rss float64, n int) float64 {
-	if s.pairs == 0 || !(rss > 0) {
+func (s *serialSums) r1(rss float64, n, pairs int) float64 {
+	if pairs == 0 || !(rss > 0) {
 		return 0
 	}
-	return s.prod / float64(s.pairs) / (rss / float64(n))
+	return s.prod / float64(pairs) / (rss / float64(n))
 }
 
 // paneRSS returns Σ(ỹ − q(u))² over a pane for q(u) = q0 + q1·u + q2·u².
