@@ -23,7 +23,7 @@ import (
 var batchSeed = flag.Uint64("seed", 20260615, "seed of the randomised windows of TestSolve_MatchesBatchQR and TestSolve_LongRun")
 
 // batchTol is the agreement required between the windowed fit and the
-// batch reference (issue 2: "agreement to 1e-9 relative").
+// batch reference: the project's target of agreement to 1e-9 relative.
 const batchTol = 1e-9
 
 // batchObs is one reading as the reference sees it.
@@ -395,7 +395,7 @@ func feedBatch(t *testing.T, s *rolling.Sensor, specs []rolling.WindowSpec, arri
 
 // TestSolve_MatchesBatchQR checks every model of randomised windows
 // against an independent batch least-squares fit (gonum QR) over exactly
-// the readings the window retains (issue 2, "Numerical fidelity").
+// the readings the window retains.
 func TestSolve_MatchesBatchQR(t *testing.T) {
 	seed := *batchSeed
 	t.Logf("seed %d (replay with -seed %d)", seed, seed)
@@ -440,9 +440,8 @@ func TestSolve_MatchesBatchQR(t *testing.T) {
 // hour of one-minute panes, a reading every 10 ms with up to 30 ms of
 // jitter (so some arrive out of order), about 28 hours in all, and checks
 // that the final fit equals the batch fit over the readings the window
-// holds: the panes are dropped whole, so no error may accumulate (issue 2,
-// "Long run"). Only readings that can still be in the final window are
-// kept.
+// holds: the panes are dropped whole, so no error may accumulate. Only
+// readings that can still be in the final window are kept.
 //
 // It takes about 1 s, and 5.5 s of CPU with -race (8 to 21 s of wall time
 // on a loaded two-core machine), so -short skips it.

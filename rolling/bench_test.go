@@ -11,7 +11,7 @@ import (
 	"driftfit/rolling"
 )
 
-// Targets from issue 2 ("Speed"): Add into three windows ≤ 100 ns and 0
+// The project's speed targets: Add into three windows ≤ 100 ns and 0
 // allocations; Solve of one window ≤ 1 µs; the windowed update at least
 // 1000× cheaper than a batch refit at N = 10 000; ≤ 8 KiB a sensor with
 // the default windows.

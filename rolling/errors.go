@@ -1,6 +1,9 @@
 package rolling
 
-import "errors"
+import (
+	"errors"
+	"fmt"
+)
 
 var (
 	// ErrBadSpec is returned by NewSensor for a window whose span or pane
@@ -10,6 +13,10 @@ var (
 
 	// ErrNonFinite is returned by Sensor.Add for a NaN or infinite value.
 	ErrNonFinite = errors.New("rolling: value is not finite")
+
+	// ErrOutOfRange is returned, wrapped in a *RangeError, by Sensor.Add
+	// for a value beyond ±MaxValue; nothing was stored.
+	ErrOutOfRange = errors.New("rolling: value out of range")
 
 	// ErrTooOld is returned by Sensor.Add when the reading's pane is older
 	// than every window of the sensor; nothing was stored.
@@ -38,10 +45,41 @@ var (
 	// zero) and the standard errors zero, but R² is undefined and left 0.
 	ErrConstant = errors.New("rolling: all values equal")
 
-	// ErrNumeric is set in Fit.Err when the fit's numbers are not finite:
-	// the sums are beyond float64's range (values near 1e150 or more).
+	// ErrNumeric is set in Fit.Err when the fit's numbers leave
+	// float64's range: a result overflows (values near MaxValue changing
+	// within nanoseconds), or the values differ by so little (below about
+	// 1e-146, as values near 1e-154 do) that their squared differences
+	// fall among the subnormal numbers and lose their digits.
 	ErrNumeric = errors.New("rolling: sums out of floating-point range")
+
+	// ErrUnresolved is set in Fit.Err when the residual sum of squares is
+	// below the rounding error of the sums it is computed from, so its
+	// value is not known, only that it is tiny: readings on an exact
+	// curve, or a change across a pane 10⁸ times the noise. The fit stays
+	// usable (OK reports true) and its coefficients are as precise as
+	// ever, but the residual sum is taken at its rounding bound: ResidSD,
+	// SE, CI and Cov are upper bounds and R² a lower bound. It replaces a
+	// residual sum clamped to zero, which claimed SE = 0 and R² = 1.
+	ErrUnresolved = errors.New("rolling: residuals below rounding resolution")
+
+	// ErrSerialUnknown is set in Fit.SerialErr when the serial correlation
+	// of the residuals cannot be estimated: fewer than MinPairs pairs of
+	// consecutive readings in time order, or an effective sample size of
+	// no more readings than coefficients. SEAdj and CIAdj are then zero.
+	ErrSerialUnknown = errors.New("rolling: serial correlation unknown")
 
 	// ErrModel is returned for a Model value the operation does not support.
 	ErrModel = errors.New("rolling: unsupported model")
 )
+
+// RangeError is the error of Sensor.Add for a value beyond ±MaxValue.
+// It unwraps to ErrOutOfRange.
+type RangeError struct {
+	Value float64
+}
+
+func (e *RangeError) Error() string {
+	return fmt.Sprintf("rolling: value out of range: %g beyond ±%g", e.Value, MaxValue)
+}
+
+func (e *RangeError) Unwrap() error { return ErrOutOfRange }

@@ -42,10 +42,30 @@ type Fit struct {
 	// the coefficients are the unique minimum of the squared error.
 	Cond   float64
 	PosDef bool
+
+	// Serial correlation of the residuals and the standard errors that
+	// allow for it (see SetSerial). R1 is the lag-1 autocorrelation of
+	// the residuals over Pairs pairs of consecutive readings in time
+	// order (for Exp: the parabola's, see SetSerial); NEff the effective
+	// count of independent readings N(1 − r)/(1 + r), r = max(R1, 0);
+	// Inflation = √((N − p)/(NEff − p)) the factor on SE; SEAdj =
+	// Inflation·SE and CIAdj = Coef ± TCritAdj·SEAdj, TCritAdj the 97.5%
+	// Student's t quantile with ⌊NEff⌋ − p degrees of freedom. When
+	// SerialErr is not nil (ErrSerialUnknown) the correction could not be
+	// estimated and NEff, Inflation, TCritAdj, SEAdj and CIAdj are zero.
+	R1        float64
+	Pairs     int
+	NEff      float64
+	Inflation float64
+	TCritAdj  float64
+	SEAdj     [3]float64
+	CIAdj     [3][2]float64
+	SerialErr error
 }
 
-// OK reports whether the fit can be used: no error, or ErrConstant.
-func (f *Fit) OK() bool { return f.Err == nil || f.Err == ErrConstant }
+// OK reports whether the fit can be used: no error, ErrConstant or
+// ErrUnresolved.
+func (f *Fit) OK() bool { return f.Err == nil || f.Err == ErrConstant || f.Err == ErrUnresolved }
 
 // Solution holds the three fits of one window at one moment.
 type Solution struct {
@@ -85,6 +105,20 @@ type normal struct {
 	rss float64 // residual sum of squares, filled by the second pass
 	css float64 // Σ(y − ȳ)², filled by the second pass
 	det float64 // det G, from the Cholesky factor
+	// bound, times ε, bounds the rounding error of rss: each pane's sum
+	// Σỹ² − 2Σq·ỹ + Σq² of about ten products, from sums of m terms
+	// each, errs by at most about (m + 10)·ε·(Σỹ² + Σq²) (Higham,
+	// Accuracy and Stability of Numerical Algorithms, 2nd ed., §3.1 and
+	// §4.2: recursive summation errs by (m − 1)·u·Σ|xᵢ|), Σ|q·ỹ| being
+	// at most (Σỹ² + Σq²)/2. It is formed from window totals, with m the
+	// largest pane count.
+	bound float64
+	// varied: some value differs from another (the data are not
+	// constant), told from the pane sums.
+	varied bool
+	// condOf, when positive, is the condition number of this very matrix,
+	// already computed for another fit (the exp fit shares the line's).
+	condOf float64
 }
 
 // Solve fits the three models over window i.
@@ -158,7 +192,7 @@ func (s *Sensor) Solve(i int) Solution {
 		return sol
 	}
 
-	// z = a_k + bz·u for pane k, with a_k = (2(k·w − tfirst) + w − span)/span
+	// z = a_k + bz·u for pane k, with a_k = (2(tmin_k − tfirst) − span)/span
 	// and bz = 2w/span: the integer parts are exact, only the final
 	// scaling rounds, the same way in both passes.
 	span := tlast - tfirst
@@ -173,6 +207,9 @@ func (s *Sensor) Solve(i int) Solution {
 	// uses every reading and shares the line's normal matrix.
 	mixed := false
 	invSpan := 1 / fspan
+	var vbits, ebits uint64
+	var sumSyy, sumSll float64
+	var maxN uint32
 	for k, j := oldest, first; k <= rg.newest; k, j = k+1, j+1 {
 		if j == P {
 			j = 0
@@ -181,7 +218,7 @@ func (s *Sensor) Solve(i int) Solution {
 		if p.n == 0 {
 			continue
 		}
-		a := float64(2*(k*rg.width-tfirst)+rg.width-span) * invSpan
+		a := float64(2*(p.tmin-tfirst)-span) * invSpan
 		a2 := a * a
 		pn := float64(p.n)
 		// Σzʲ = Σₘ C(j,m)·a^(j−m)·(bz^m·Σuᵐ), in Horner form.
@@ -191,6 +228,11 @@ func (s *Sensor) Solve(i int) Solution {
 		m3 := a*(a*(pn*a+3*t1)+3*t2) + t3
 		m4 := a*(a*(a*(pn*a+4*t1)+6*t2)+4*t3) + t4
 		d := p.y0 - anchorY
+		// Some value differs from the anchor: ỹ or the pane's offset is
+		// not zero (sign bits shifted out).
+		vbits |= (math.Float64bits(p.syy) | math.Float64bits(p.sy) | math.Float64bits(d)) << 1
+		sumSyy += p.syy
+		maxN = max(maxN, p.n)
 		par.n += pn
 		par.g[0][1] += m1
 		par.g[0][2] += m2
@@ -211,6 +253,8 @@ func (s *Sensor) Solve(i int) Solution {
 				q1 = qn*a + bz*sup
 				q2 = qn*a2 + 2*a*bz*sup + bz2*su2p
 			}
+			ebits |= (math.Float64bits(p.sll) | math.Float64bits(p.sl) | math.Float64bits(dl)) << 1
+			sumSll += p.sll
 			ex.n += qn
 			ex.g[0][1] += q1
 			ex.g[1][1] += q2
@@ -243,12 +287,19 @@ func (s *Sensor) Solve(i int) Solution {
 		}
 	}
 
-	// Residual pass, pane by pane in pane coordinates.
+	// Residual pass, pane by pane in pane coordinates, with the rounding
+	// bound of each residual sum and the lag-1 products of the residuals
+	// (see serialSums).
 	ybar := par.r[0] / par.n
 	var lbar float64
 	if ex.n > 0 {
 		lbar = ex.r[0] / ex.n
 	}
+	var sl, sp serialSums
+	// Ordered panes' lag sums for the line, whose slope in pane units q1
+	// is the same in every pane: Σ(Δe)² = Σd² − 2q1·ΣdΔu + q1²·ΣΔu².
+	var lagDD, lagDDU, lagDU2 float64
+	pairs, chained := 0, 0
 	for k, j := oldest, first; k <= rg.newest; k, j = k+1, j+1 {
 		if j == P {
 			j = 0
@@ -257,15 +308,34 @@ func (s *Sensor) Solve(i int) Solution {
 		if p.n == 0 {
 			continue
 		}
-		a := float64(2*(k*rg.width-tfirst)+rg.width-span) * invSpan
+		a := float64(2*(p.tmin-tfirst)-span) * invSpan
 		pn := float64(p.n)
 		d := p.y0 - anchorY
 		c := d - ybar
 		css := p.syy + 2*c*p.sy + pn*c*c
 		par.css += css
-		lin.css += css
-		lin.rss += paneRSSLine(p, bl[0]+bl[1]*a-d, bz*bl[1])
-		par.rss += paneRSS(p, bp[0]+bp[1]*a+bp[2]*a*a-d, bz*(bp[1]+2*bp[2]*a), bz2*bp[2])
+		q0, q1 := bl[0]+bl[1]*a-d, bz*bl[1]
+		rl := paneRSSLine(p, q0, q1)
+		lin.rss += rl
+		r0, r1, r2 := bp[0]+bp[1]*a+bp[2]*a*a-d, bz*(bp[1]+2*bp[2]*a), bz2*bp[2]
+		rp := paneRSS(p, r0, r1, r2)
+		par.rss += rp
+		if p.ordered() {
+			u1 := float64(p.tmax-p.tmin) * rg.invW
+			dy := p.ylast - p.y0
+			lagDD += p.sdd
+			lagDDU += p.sddu
+			lagDU2 += p.sdu2
+			pairs += int(p.n) - 1 + chained
+			chained = 1
+			sl.add(rl, -q0, dy-(q0+q1*u1), 0)
+			ap := r1 + r2*u1 // the parabola's slope across the pane
+			sp.add(rp, -r0, dy-(r0+u1*(r1+r2*u1)), p.sdd-ap*(2*p.sddu-ap*p.sdu2))
+		} else {
+			chained = 0
+			sl.gap()
+			sp.gap()
+		}
 		if p.npos > 0 {
 			sup, su2p := rg.posMoments(j)
 			qn := float64(p.npos)
@@ -276,17 +346,87 @@ func (s *Sensor) Solve(i int) Solution {
 			ex.rss += p.sll - 2*(q0*p.sl+q1*p.sul) + q0*q0*qn + 2*q0*q1*sup + q1*q1*su2p
 		}
 	}
+	lin.css, ex.varied = par.css, ebits != 0
+	lin.varied, par.varied = vbits != 0, vbits != 0
+	// Rounding bounds (see normal.bound): with Σq² ≤ 2Σỹ² + 2·RSS_pane,
+	// Σ(Σỹ² + Σq²) ≤ 3Σỹ² + 2·RSS over the window.
+	bw := float64(maxN) + 10
+	lin.bound = bw * (3*sumSyy + 2*max(lin.rss, 0))
+	par.bound = bw * (3*sumSyy + 2*max(par.rss, 0))
+	ex.bound = bw * (3*sumSll + 2*max(ex.rss, 0))
 
 	// τ in days: z = 1 + g·τ at the newest reading, since tlast maps to z = 1.
 	g := 2 * nanosPerDay / fspan
 	lin.finish(&sol.Line, bl, il, g, anchorY)
 	par.finish(&sol.Parabola, bp, ip, g, anchorY)
+	ql := bz * bl[1]
+	sl.prod -= 0.5 * (lagDD - ql*(2*lagDDU-ql*lagDU2))
+	sol.Line.SetSerial(sl.r1(lin.rss, sol.Line.N, pairs), pairs)
+	r1p := sp.r1(par.rss, sol.Parabola.N, pairs)
+	sol.Parabola.SetSerial(r1p, pairs)
 	if npos == 0 {
 		sol.Exp.Err = ErrNotEnoughData
 	} else {
+		if !mixed {
+			ex.condOf = sol.Line.Cond
+		}
 		ex.finish(&sol.Exp, be, ie, g, anchorL)
 	}
+	// The exp fit borrows the parabola's estimate (see SetSerial), or the
+	// line's when the parabola has none (readings at two instants).
+	if sol.Parabola.OK() {
+		sol.Exp.SetSerial(r1p, pairs)
+	} else {
+		sol.Exp.SetSerial(sol.Line.R1, sol.Line.Pairs)
+	}
 	return sol
+}
+
+// serialSums collects, pane by pane in time order, the lag-1 products of
+// a fit's residuals e over consecutive readings in time order: Σe_i·e_{i−1}
+// and the count of pairs.
+//
+// Within an ordered pane of m readings, with eF and eL the residuals of
+// its first and last reading, Σ_pairs (e_i − e_{i−1})² = Σe² + Σe² − 2Σe_i·e_{i−1}
+// where the first Σe² leaves out eF² and the second eL², so
+//
+//	Σ e_i·e_{i−1} = (2·RSS_pane − eF² − eL² − Σ(Δe)²)/2,
+//
+// and Δe = d − Δq with d the change of the reading and Δq that of the
+// fitted curve, Δq = A·Δu for a line (A its slope in pane units), giving
+// Σ(Δe)² = Σd² − 2A·Σd·Δu + A²·ΣΔu² from the pane's sums. For the
+// parabola A is its slope at the middle of the pane's readings; the
+// change of slope within one pane is left out of Δq, which for the
+// curvatures a window resolves changes Σ(Δe)² by far less than its
+// noise. Between consecutive ordered panes (also across empty ones) the
+// pair (last of one, first of the next) is added as eL·eF. An unordered
+// pane contributes no pair and breaks the chain.
+type serialSums struct {
+	prod  float64
+	prevE float64 // residual of the last reading of the previous ordered pane; 0 after a gap
+}
+
+// add records an ordered pane with residual sum of squares rss, first
+// and last residual ef, el, and Σ(Δe)² dd (for the line, 0: its Σ(Δe)²
+// is subtracted once from window totals). The bridge to the previous
+// pane is added without a branch: prevE is 0 after a gap. The pair count,
+// the same for every fit, is kept by Solve: m − 1 within a pane of m
+// readings, plus one for each bridge.
+func (s *serialSums) add(rss, ef, el, dd float64) {
+	s.prod += rss - 0.5*(ef*ef+el*el+dd) + s.prevE*ef
+	s.prevE = el
+}
+
+// gap records an unordered pane.
+func (s *serialSums) gap() { s.prevE = 0 }
+
+// r1 returns the lag-1 autocorrelation estimate (Σe_i·e_{i−1}/pairs) /
+// (RSS/n): the mean lag product over the mean square.
+func (s *serialSums) r1(rss float64, n, pairs int) float64 {
+	if pairs == 0 || !(rss > 0) {
+		return 0
+	}
+	return s.prod / float64(pairs) / (rss / float64(n))
 }
 
 // paneRSS returns Σ(ỹ − q(u))² over a pane for q(u) = q0 + q1·u + q2·u².
@@ -396,7 +536,11 @@ func (ne *normal) finish(f *Fit, beta [3]float64, inv [3][3]float64, g, anchor f
 		return
 	}
 	f.DF = f.N - p
-	rss := max(ne.rss, 0)
+	rss := ne.rss
+	unresolved := false
+	if bound := ne.bound * 0x1p-52; rss < bound {
+		rss, unresolved = bound, true
+	}
 	s2 := rss / float64(f.DF)
 	if p == 2 {
 		// T = [[1, 1], [0, g]]: written out, the hot case of two fits.
@@ -428,16 +572,34 @@ func (ne *normal) finish(f *Fit, beta [3]float64, inv [3][3]float64, g, anchor f
 		f.CI[r] = [2]float64{f.Coef[r] - f.TCrit*f.SE[r], f.Coef[r] + f.TCrit*f.SE[r]}
 	}
 	f.ResidSD = math.Sqrt(s2)
-	f.Cond = ne.cond()
-	if !(ne.css > 0) {
-		f.Err = ErrConstant
-	} else {
-		f.R2 = 1 - rss/ne.css
+	if f.Cond = ne.condOf; !(f.Cond > 0) {
+		f.Cond = ne.cond()
 	}
-	if !f.finite() {
+	switch {
+	case !ne.varied:
+		f.Err = ErrConstant
+		f.SE, f.Cov, f.ResidSD = [3]float64{}, [3][3]float64{}, 0
+		for r := 0; r < p; r++ {
+			f.CI[r] = [2]float64{f.Coef[r], f.Coef[r]}
+		}
+	case !(ne.css >= f.scaleFloor()):
+		// Squared differences among the subnormals: no digit to trust.
+		f.Err = ErrNumeric
+	default:
+		f.R2 = 1 - rss/ne.css
+		if unresolved {
+			f.Err = ErrUnresolved
+		}
+	}
+	if f.Err == ErrNumeric || !f.finite() {
 		*f = Fit{Model: f.Model, Err: ErrNumeric, N: f.N, Excluded: f.Excluded, First: f.First, Last: f.Last}
 	}
 }
+
+// scaleFloor is the least Σ(y − ȳ)² whose squares keep full precision:
+// N mean squares of 2⁻⁹⁶⁸, deviations of about 1e-146 or more. Below it
+// the squared differences approach the subnormal range (below 2⁻¹⁰²²).
+func (f *Fit) scaleFloor() float64 { return float64(f.N) * 0x1p-968 }
 
 // finite reports whether every number of the fit is finite.
 func (f *Fit) finite() bool {
@@ -466,7 +628,8 @@ func (f *Fit) finite() bool {
 // positive definite normal matrix. λmax is the largest root of the
 // characteristic polynomial, found by Newton's method from Gershgorin's
 // upper bound (the cubic is convex and rising there, so the iterates fall
-// monotonically onto the root); the other two eigenvalues then have a
+// monotonically onto the root; the Frobenius norm bounds it from above
+// as well); the other two eigenvalues then have a
 // known sum and product, and λmin comes from the determinant, which the
 // Cholesky factor gives accurately even for a nearly singular matrix.
 func (ne *normal) cond() float64 {
@@ -483,6 +646,10 @@ func (ne *normal) cond() float64 {
 	c1 := a00*a11 - a01*a01 + a00*a22 - a02*a02 + a11*a22 - a12*a12
 	c0 := ne.det
 	l := max(a00+math.Abs(a01)+math.Abs(a02), math.Abs(a01)+a11+math.Abs(a12), math.Abs(a02)+math.Abs(a12)+a22)
+	// The Frobenius norm is an upper bound too, and for normal matrices in
+	// z ∈ [−1, 1], whose largest eigenvalue dominates, the closer one
+	// (about 5% above it against 20% for Gershgorin's): fewer steps.
+	l = min(l, math.Sqrt(a00*a00+a11*a11+a22*a22+2*(a01*a01+a02*a02+a12*a12)))
 	for range 64 {
 		f := ((l-c2)*l+c1)*l - c0
 		df := (3*l-2*c2)*l + c1

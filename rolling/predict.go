@@ -119,7 +119,9 @@ type Crossing struct {
 // TimeToLimit returns when a Line or Parabola trend reaches limit: from
 // below for an upper limit (upper true), from above for a lower one, looking
 // no further ahead than horizon. The interval comes from the 95% prediction
-// band (see Prediction).
+// band (see Prediction): when a single reading, noise included, may be
+// found beyond the limit, the as-found estimate. For when the mean itself
+// gets there (a due date), see MeanTimeToLimit.
 func (f *Fit) TimeToLimit(limit float64, upper bool, horizon time.Duration) (Crossing, error) {
 	if f.Model != Line && f.Model != Parabola {
 		return Crossing{}, ErrModel

@@ -75,8 +75,7 @@ func (r *ring) add(t, k int64, y, ly float64, pos bool) error {
 	if r.side != nil && (p.mixed() || !pos) {
 		side = &r.side[i]
 	}
-	u := float64(t-k*r.width)*r.invW - 0.5
-	p.add(t, u, y, ly, pos, side)
+	p.add(t, r.invW, y, ly, pos, side)
 	r.dirty[i>>6] |= 1 << uint(i&63)
 	return nil
 }

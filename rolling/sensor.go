@@ -27,6 +27,23 @@ func (ws WindowSpec) validate() error {
 	return nil
 }
 
+// MaxValue is the largest magnitude of a value Sensor.Add accepts.
+//
+// The pane sums that grow fastest are the squares of differences, Σỹ²
+// with ỹ = y − y0 (the pane's first value) and Σd² over consecutive
+// readings: each term is at most (2·MaxValue)² = 4e290, and a pane holds
+// fewer than 2³² readings, so every pane sum stays below 1.8e300, inside
+// float64's range (1.8e308) with a factor 10⁸ to spare for the window
+// totals Solve forms over many panes. The log sums need no bound: ln y of
+// a finite positive float64 lies within [−745, 710]. A value of 1e200,
+// whose square overflows, would otherwise make a pane unrestorable.
+const MaxValue = 1e145
+
+const (
+	maxValue = MaxValue
+	maxDiff2 = 4 * maxValue * maxValue // largest (y − y0)² and d²
+)
+
 type window struct {
 	spec  WindowSpec
 	ring  int   // index into Sensor.rings
@@ -91,12 +108,15 @@ func (s *Sensor) Late(i int) uint64 { return s.wins[i].late }
 //
 // A reading whose pane is older than a window is not part of that window
 // and is counted in Late. Add returns ErrTooOld when no window took the
-// reading, ErrNonFinite for a NaN or infinite value; in both cases nothing
-// was stored.
+// reading, ErrNonFinite for a NaN or infinite value, ErrOutOfRange for a
+// value beyond ±MaxValue; in each case nothing was stored.
 func (s *Sensor) Add(r Reading) error {
 	y := r.Value
 	if math.IsNaN(y) || math.IsInf(y, 0) {
 		return ErrNonFinite
+	}
+	if !(math.Abs(y) <= maxValue) {
+		return &RangeError{Value: y}
 	}
 	pos := y > 0
 	var ly float64

@@ -16,13 +16,21 @@ type PaneKey struct {
 	Index int64
 }
 
-// Pane encodings: 128 bytes, or 144 for a pane holding readings with
+// Pane encodings: 160 bytes, or 176 for a pane holding readings with
 // y ≤ 0 (the positive readings' time moments follow). Little endian:
 // tmin, tmax int64; n, npos uint32; y0, l0, su, su2, su3, su4, sy, suy,
-// su2y, syy, sl, sul, sll as IEEE 754 bits.
+// su2y, syy, sl, sul, sll, ylast, sdd, sddu, sdu2 as IEEE 754 bits.
+//
+// LoadPane also reads the earlier layout of 128 (144) bytes, which ends
+// at sll and measured time from the pane's centre: its sums are shifted
+// onto the pane's earliest reading and its serial-correlation sums are
+// marked unknown (the pane counts as unordered), so a restart after an
+// upgrade keeps every window.
 const (
-	paneSize      = 128
-	mixedPaneSize = paneSize + 16
+	paneSize            = 160
+	mixedPaneSize       = paneSize + 16
+	legacyPaneSize      = 128
+	legacyMixedPaneSize = legacyPaneSize + 16
 )
 
 // ErrBadPane is returned by LoadPane for data that is not a valid pane
@@ -159,8 +167,9 @@ func (s *Sensor) LoadPane(key PaneKey, data []byte) error {
 	return nil
 }
 
-func (p *pane) floats() [13]*float64 {
-	return [13]*float64{&p.y0, &p.l0, &p.su, &p.su2, &p.su3, &p.su4, &p.sy, &p.suy, &p.su2y, &p.syy, &p.sl, &p.sul, &p.sll}
+func (p *pane) floats() [17]*float64 {
+	return [17]*float64{&p.y0, &p.l0, &p.su, &p.su2, &p.su3, &p.su4, &p.sy, &p.suy, &p.su2y, &p.syy, &p.sl, &p.sul, &p.sll,
+		&p.ylast, &p.sdd, &p.sddu, &p.sdu2}
 }
 
 func decodePane(p *pane, side *posMoments, key PaneKey, data []byte) error {
@@ -170,7 +179,11 @@ func decodePane(p *pane, side *posMoments, key PaneKey, data []byte) error {
 	if key.Width <= 0 {
 		return bad("width not positive")
 	}
-	if len(data) != paneSize && len(data) != mixedPaneSize {
+	size, mixedSize := paneSize, mixedPaneSize
+	legacy := len(data) == legacyPaneSize || len(data) == legacyMixedPaneSize
+	if legacy {
+		size, mixedSize = legacyPaneSize, legacyMixedPaneSize
+	} else if len(data) != paneSize && len(data) != mixedPaneSize {
 		return bad(fmt.Sprintf("length %d", len(data)))
 	}
 	le := binary.LittleEndian
@@ -180,6 +193,9 @@ func decodePane(p *pane, side *posMoments, key PaneKey, data []byte) error {
 	p.npos = le.Uint32(data[20:])
 	off := 24
 	for _, v := range p.floats() {
+		if off == size {
+			break
+		}
 		*v = math.Float64frombits(le.Uint64(data[off:]))
 		if math.IsNaN(*v) || math.IsInf(*v, 0) {
 			return bad("non-finite sum")
@@ -195,19 +211,40 @@ func decodePane(p *pane, side *posMoments, key PaneKey, data []byte) error {
 		return bad("first reading after last")
 	case floorDiv(p.tmin, int64(key.Width)) != key.Index || floorDiv(p.tmax, int64(key.Width)) != key.Index:
 		return bad("reading times outside the pane")
-	case p.mixed() != (len(data) == mixedPaneSize):
+	case p.mixed() != (len(data) == mixedSize):
 		return bad("positive moments present iff the pane has readings ≤ 0")
-	case !momentsPlausible(float64(p.n), p.su, p.su2, p.su3, p.su4):
-		return bad("time moments impossible for positions in [−½, ½)")
-	case !spreadPlausible(float64(p.n), p.sy, p.syy, p.su2, p.suy) || !spreadPlausible(float64(p.npos), p.sl, p.sll, p.su2, p.sul):
-		return bad("value sums impossible (negative square sum or Cauchy–Schwarz violated)")
 	}
 	if p.mixed() {
-		side.su = math.Float64frombits(le.Uint64(data[paneSize:]))
-		side.su2 = math.Float64frombits(le.Uint64(data[paneSize+8:]))
-		if !momentsPlausible(float64(p.npos), side.su, side.su2, 0, 0) {
+		side.su = math.Float64frombits(le.Uint64(data[size:]))
+		side.su2 = math.Float64frombits(le.Uint64(data[size+8:]))
+		if math.IsNaN(side.su) || math.IsNaN(side.su2) || math.IsInf(side.su, 0) || math.IsInf(side.su2, 0) {
 			return bad("non-finite sum")
 		}
+	}
+	if legacy {
+		// u was (t − k·w)/w − ½: shift onto u = (t − tmin)/w.
+		w := int64(key.Width)
+		var sp *posMoments
+		if p.mixed() {
+			sp = side
+		}
+		p.shift(0.5-float64(p.tmin-key.Index*w)/float64(w), sp)
+		p.ylast, p.sdd, p.sddu, p.sdu2 = p.y0, 0, 0, -1
+	}
+	switch {
+	case !momentsPlausible(float64(p.n), p.su, p.su2, p.su3, p.su4):
+		return bad("time moments impossible for positions in [0, 1)")
+	case p.mixed() && !momentsPlausible(float64(p.npos), side.su, side.su2, 0, 0):
+		return bad("positive readings' time moments impossible for positions in [0, 1)")
+	case !spreadPlausible(float64(p.n), p.sy, p.syy, p.su2, p.suy) || !spreadPlausible(float64(p.npos), p.sl, p.sll, p.su2, p.sul):
+		return bad("value sums impossible (negative square sum or Cauchy–Schwarz violated)")
+	case !(math.Abs(p.y0) <= maxValue) || !(math.Abs(p.ylast) <= maxValue):
+		return bad(fmt.Sprintf("first or last value beyond ±%g", maxValue))
+	case !(p.syy <= float64(p.n)*maxDiff2*(1+plausTol)) || !(p.sdd <= float64(p.n)*maxDiff2*(1+plausTol)):
+		return bad(fmt.Sprintf("square sums beyond what values within ±%g give", maxValue))
+	case p.sdu2 != -1 && !(p.sdu2 >= 0 && p.sdd >= 0 && p.sdu2 <= float64(p.n)*(1+plausTol) &&
+		p.sddu*p.sddu <= p.sdd*p.sdu2*(1+plausTol)+1e-300):
+		return bad("serial-correlation sums impossible")
 	}
 	return nil
 }
@@ -244,11 +281,11 @@ func (s *Sensor) Closes(t int64) uint64 {
 const plausTol = 1e-9
 
 // momentsPlausible reports whether Σu, Σu², Σu³, Σu⁴ over n positions u
-// in [−½, ½) can be: |Σuᵏ| ≤ n/2ᵏ, even powers non-negative. NaN fails.
+// in [0, 1) can be: 0 ≤ Σuᵏ ≤ n, up to rounding. NaN fails.
 func momentsPlausible(n, su, su2, su3, su4 float64) bool {
-	lim := n * (1 + plausTol)
-	return math.Abs(su) <= lim/2 && su2 >= 0 && su2 <= lim/4 &&
-		math.Abs(su3) <= lim/8 && su4 >= 0 && su4 <= lim/16
+	lo, hi := -n*plausTol, n*(1+plausTol)
+	in := func(v float64) bool { return v >= lo && v <= hi }
+	return in(su) && in(su2) && in(su3) && in(su4)
 }
 
 // spreadPlausible reports whether value sums over n readings can be:

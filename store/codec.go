@@ -66,6 +66,7 @@ var errCodes = [...]error{
 	3: rolling.ErrSingular,
 	4: rolling.ErrConstant,
 	5: rolling.ErrNumeric,
+	6: rolling.ErrUnresolved,
 }
 
 func errCode(err error) (byte, bool) {
@@ -91,11 +92,18 @@ const (
 	tagExplicit = 2 // Unix ns as a zigzag varint follows
 )
 
-// fitFloats is the count of float64 fields of a rolling.Fit, in the
-// order of (*fitFields).each: Coef[3], SE[3], CI[3][2], Cov[3][3],
-// ResidSD, R2, TCrit, Cond.
-const fitFloats = 3 + 3 + 6 + 9 + 4
+// fitFloats is the count of float64 slots of a rolling.Fit record:
+// Coef[3], SE[3], CI[3][2], Cov[3][3], ResidSD, R2, TCrit, Cond, then R1
+// and Pairs (see fitFloatPtrs).
+const fitFloats = 3 + 3 + 6 + 9 + 4 + 2
 
+// fitFloatPtrs returns the float64 fields of f in record order and,
+// last, a slot for f.Pairs, which the caller copies to and from f (see
+// pairsSlot). R1 and Pairs came after the first records of format 1 were
+// written: those decode with both zero, a fit whose serial correlation
+// is unknown, which is what they are. The corrected standard errors
+// (rolling.Fit.SEAdj and the rest) are not stored: decodeRecord rebuilds
+// them from R1 and Pairs with rolling.Fit.SetSerial, as Solve made them.
 func fitFloatPtrs(f *rolling.Fit) [fitFloats]*float64 {
 	return [fitFloats]*float64{
 		&f.Coef[0], &f.Coef[1], &f.Coef[2],
@@ -105,8 +113,13 @@ func fitFloatPtrs(f *rolling.Fit) [fitFloats]*float64 {
 		&f.Cov[1][0], &f.Cov[1][1], &f.Cov[1][2],
 		&f.Cov[2][0], &f.Cov[2][1], &f.Cov[2][2],
 		&f.ResidSD, &f.R2, &f.TCrit, &f.Cond,
+		&f.R1, new(float64),
 	}
 }
+
+// pairsSlot is the index in fitFloatPtrs of Pairs, stored as a float64
+// (exact for any count below 2⁵³) so that format 1 keeps its layout.
+const pairsSlot = fitFloats - 1
 
 // appendRecord encodes a solution (everything but Window, which the key
 // holds) in record format 1:
@@ -118,7 +131,7 @@ func fitFloatPtrs(f *rolling.Fit) [fitFloats]*float64 {
 //	  model byte, error code byte,
 //	  flags byte: PosDef (bit 0), First tag (bits 1–2), Last tag (bits 3–4)
 //	  varint N, Excluded, DF; [varint First ns]; [varint Last ns]
-//	  uint32 LE bitmap of the 25 float fields whose bits are not zero,
+//	  uint32 LE bitmap of the 27 float slots whose bits are not zero,
 //	  then those floats as IEEE 754 bits, uint64 LE.
 //
 // Only non-zero floats are written: a Line fit leaves its third
@@ -165,6 +178,7 @@ func appendRecord(dst []byte, sol *rolling.Solution) ([]byte, error) {
 		dst = appendTime(dst, ff, f.First)
 		dst = appendTime(dst, fl, f.Last)
 		ptrs := fitFloatPtrs(f)
+		*ptrs[pairsSlot] = float64(f.Pairs)
 		var mask uint32
 		for i, p := range ptrs {
 			if math.Float64bits(*p) != 0 {
@@ -244,7 +258,8 @@ func decodeRecord(b []byte, sol *rolling.Solution) error {
 		if d.err == nil && mask>>fitFloats != 0 {
 			return d.fail("fit %d: float mask %#x", slot, mask)
 		}
-		for i, p := range fitFloatPtrs(f) {
+		ptrs := fitFloatPtrs(f)
+		for i, p := range ptrs {
 			if mask&(1<<i) != 0 {
 				bits := d.uint64()
 				if d.err == nil && bits == 0 {
@@ -253,6 +268,12 @@ func decodeRecord(b []byte, sol *rolling.Solution) error {
 				*p = math.Float64frombits(bits)
 			}
 		}
+		pairs := *ptrs[pairsSlot]
+		if d.err == nil && !(pairs >= 0 && pairs < 1<<53 && pairs == math.Trunc(pairs)) {
+			return d.fail("fit %d: pair count %v", slot, pairs)
+		}
+		f.Pairs = int(pairs)
+		f.SetSerial(f.R1, f.Pairs)
 	}
 	return d.end()
 }

@@ -91,13 +91,15 @@ func sampleSolutions(t testing.TB) []rolling.Solution {
 		{{UnixNano: base, Value: 1}, {UnixNano: base, Value: 2}, {UnixNano: base + 6e11, Value: 3}, {UnixNano: base + 6e11, Value: 5}},
 	}
 	rng := rand.New(rand.NewPCG(3, 3))
-	var drift, mixed []rolling.Reading
+	var drift, mixed, exact []rolling.Reading
 	for i := range 300 {
 		tt := base + int64(i)*int64(4*time.Minute)
 		drift = append(drift, rolling.Reading{UnixNano: tt, Value: 50 + 1e-3*float64(i) + 0.01*rng.NormFloat64()})
 		mixed = append(mixed, rolling.Reading{UnixNano: tt, Value: math.Sin(float64(i) / 20)})
+		// On a line to rounding: residuals below resolution.
+		exact = append(exact, rolling.Reading{UnixNano: tt, Value: 50 + 1e-3*float64(i)})
 	}
-	cases = append(cases, drift, mixed)
+	cases = append(cases, drift, mixed, exact)
 	var out []rolling.Solution
 	for _, rs := range cases {
 		s, err := rolling.NewSensor(specs...)
@@ -140,8 +142,21 @@ func goldenSolutions() []rolling.Solution {
 
 func sameFitBits(a, b *rolling.Fit) bool {
 	if a.Model != b.Model || a.Err != b.Err || a.N != b.N || a.Excluded != b.Excluded || a.DF != b.DF ||
-		a.PosDef != b.PosDef || a.First != b.First || a.Last != b.Last {
+		a.PosDef != b.PosDef || a.First != b.First || a.Last != b.Last ||
+		a.Pairs != b.Pairs || a.SerialErr != b.SerialErr {
 		return false
+	}
+	for _, v := range [][2]float64{{a.NEff, b.NEff}, {a.Inflation, b.Inflation}, {a.TCritAdj, b.TCritAdj}} {
+		if math.Float64bits(v[0]) != math.Float64bits(v[1]) {
+			return false
+		}
+	}
+	for i := range 3 {
+		if math.Float64bits(a.SEAdj[i]) != math.Float64bits(b.SEAdj[i]) ||
+			math.Float64bits(a.CIAdj[i][0]) != math.Float64bits(b.CIAdj[i][0]) ||
+			math.Float64bits(a.CIAdj[i][1]) != math.Float64bits(b.CIAdj[i][1]) {
+			return false
+		}
 	}
 	pa, pb := fitFloatPtrs(a), fitFloatPtrs(b)
 	for i := range pa {
@@ -173,6 +188,11 @@ func TestRecord_RoundTrip(t *testing.T) {
 	sols = append(sols, out)
 	codes := map[error]bool{}
 	for i, sol := range sols {
+		// The corrected errors are rebuilt from R1 and Pairs on decode, as
+		// Solve builds them; complete the hand-made solutions likewise.
+		for _, f := range []*rolling.Fit{&sol.Line, &sol.Parabola, &sol.Exp} {
+			f.SetSerial(f.R1, f.Pairs)
+		}
 		codes[sol.Line.Err], codes[sol.Parabola.Err], codes[sol.Exp.Err] = true, true, true
 		b, err := appendRecord(nil, &sol)
 		if err != nil {
