@@ -236,7 +236,7 @@ func (d *StepDetector) Restart() {
 // usable, count < 1, the inputs are not finite, or the variance is not
 // positive.
 func OneStepError(f *rolling.Fit, at time.Time, value float64, count int) (z, e float64, ok bool) {
-	if f == nil || !f.OK() || count < 1 || !finite(value) || f.DF < 1 {
+	if f == nil || !f.OK() || count < 1 || !finite(value) || dfFor(f) < 1 {
 		return 0, 0, false
 	}
 	scale, ok := covScale(f)

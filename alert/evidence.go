@@ -94,9 +94,9 @@ func rateEvidence(f *rolling.Fit, i int, l RateLimit, frac float64, tails int, p
 		return evidence{}
 	}
 	c := f.Coef[i]
-	half := f.TCrit * se
+	half := tFor(f) * se
 	lo, hi := c-half, c+half
-	floor := gateMultiple(p, tails, f.DF, f.TCrit) * se
+	floor := gateMultiple(p, tails, dfFor(f), tFor(f)) * se
 	b := max(lo, -hi, 0)
 	ev := evidence{valid: true, fit: f, value: c, ci: [2]float64{lo, hi}, limit: l.lowest()}
 	for _, lv := range rateLevels(l) {
@@ -121,9 +121,9 @@ func doublingEvidence(f *rolling.Fit, l DurationLimit, frac float64, p float64) 
 		return evidence{}
 	}
 	c := f.Coef[1]
-	half := f.TCrit * se
+	half := tFor(f) * se
 	lo, hi := c-half, c+half
-	floor := gateMultiple(p, 1, f.DF, f.TCrit) * se
+	floor := gateMultiple(p, 1, dfFor(f), tFor(f)) * se
 	lowest := math.Ln2 / days(l.lowest())
 	ev := evidence{valid: true, fit: f, value: c, ci: [2]float64{lo, hi}, limit: lowest}
 	for _, lv := range durationLevels(l) {
@@ -168,14 +168,14 @@ func (r *Rule) leadEvidence(f *rolling.Fit, asLeft float64, needCross bool, p fl
 	if !ok {
 		return evidence{}
 	}
-	q := schefféMultiple(p, f.Model.Coefs(), f.DF, f.TCrit)
+	q := schefféMultiple(p, f.Model.Coefs(), dfFor(f), tFor(f))
 	for k := 0; k <= leadSteps; k++ {
 		tau := longest * float64(k) / leadSteps
 		m, h := b.at(tau)
 		h *= scale
 		dist := math.Abs(m - asLeft)
 		dev := dist - h // bound nearest the as-left value
-		if dev >= r.Tolerance && dist >= q*h/f.TCrit {
+		if dev >= r.Tolerance && dist >= q*h/tFor(f) {
 			for _, lv := range durationLevels(l) {
 				if tau <= lv.v {
 					ev.sev, ev.limit = lv.sev, lv.v
@@ -222,7 +222,7 @@ type band struct {
 }
 
 func newBand(f *rolling.Fit) band {
-	b := band{t: f.TCrit}
+	b := band{t: tFor(f)}
 	p := f.Model.Coefs()
 	for a := range p {
 		b.m[a] = f.Coef[a]

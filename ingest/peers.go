@@ -144,7 +144,17 @@ func (w *worker) compare(g *peerGroup, k int64) {
 		if mask := m.sensor.Closes(at); mask != 0 {
 			for win := range m.sensor.Windows() {
 				if mask&(1<<uint(win)) != 0 {
-					sol := m.sensor.Solve(win)
+					sol := m.sensor.SolveJudged(win)
+					if sol.Parabola.SerialErr != nil && m.ref.st.sensor != nil {
+						// A deviation fit of one value a bucket has too few
+						// pairs of its own: take the estimate of the
+						// member's own readings, whose correlation includes
+						// the process swings the deviation cancels, so the
+						// correction errs on the wide side.
+						if own := m.ref.st.sensor.SolveJudged(m.ref.st.sensor.Windows() - 1); own.Parabola.SerialErr == nil {
+							sol = sol.WithSerial(own.Parabola.R1, own.Parabola.Pairs)
+						}
+					}
 					w.judge(m.ref, true, &sol)
 				}
 			}

@@ -298,8 +298,15 @@ func (w *worker) closePanes(ref *sensorRef, mask uint64) {
 		if f := w.s.o.OnPaneClose; f != nil {
 			f(ref.id, i, sol)
 		}
-		if !ref.st.comparing() {
-			w.judge(ref, false, sol) // else judged on its deviation from the group
+		if !ref.st.comparing() { // else judged on its deviation from the group
+			if sol.Parabola.Pairs < rolling.MinPairs {
+				// Too few readings to estimate their serial correlation:
+				// judge with the estimate of a longer window.
+				j := ref.st.sensor.SolveJudged(i)
+				w.judge(ref, false, &j)
+			} else {
+				w.judge(ref, false, sol)
+			}
 		}
 	}
 }

@@ -78,3 +78,31 @@ func (s *Solution) WithSerial(r1 float64, pairs int) Solution {
 	c.Exp.SetSerial(r1, pairs)
 	return c
 }
+
+// SolveJudged is Solve for judging window i: when the window cannot
+// estimate its own serial correlation (its Parabola fit has fewer than
+// MinPairs pairs, as a window of 24 hourly readings does), it carries the
+// estimate of the sensor's window with the most pairs (WithSerial), and
+// without one stays ErrSerialUnknown. It costs a Solve of each other
+// window when it borrows.
+func (s *Sensor) SolveJudged(i int) Solution {
+	sol := s.Solve(i)
+	if sol.Parabola.Pairs >= MinPairs {
+		return sol
+	}
+	best := -1
+	var r1 float64
+	for j := range s.Windows() {
+		if j == i {
+			continue
+		}
+		o := s.Solve(j)
+		if f := &o.Parabola; f.SerialErr == nil && f.Pairs > best {
+			best, r1 = f.Pairs, f.R1
+		}
+	}
+	if best < 0 {
+		return sol
+	}
+	return sol.WithSerial(r1, best)
+}

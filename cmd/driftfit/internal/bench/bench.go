@@ -1000,12 +1000,13 @@ func (e *benchEnv) latency(ctx context.Context, pool *benchPool, offered float64
 
 // The alert phase. Each probe is a sensor of a class that judges the
 // slope of a line over a window of 1-second panes, with debounce 1 (off)
-// and min_readings 4 (the least alert.Tracker accepts). A probe
-// publishes a reading every benchAlertGap, stamped with the wall-clock
-// time of publishing, on a ramp 50 times as steep as the limit, so any
-// four of its readings put the fit over the limit: its fourth reading is
-// the crossing one, and the alert must be raised at the first pane close
-// after it. Probes start one every benchAlertGap, so the crossings fall
+// and min_readings 32: the gates judge a window only once its readings
+// can estimate their own serial correlation (rolling.MinPairs pairs). A
+// probe publishes a reading every benchAlertGap, stamped with the
+// wall-clock time of publishing, on a ramp 50 times as steep as the
+// limit, so any 32 of its readings put the fit over the limit: its 32nd
+// reading is the crossing one, and the alert must be raised at the first
+// pane close after it. Probes start one every benchAlertGap, so the crossings fall
 // evenly over the pane; each holds its first reading after a pane
 // boundary for probeHold, and stops once its raised event is on the bus.
 const (
@@ -1013,7 +1014,7 @@ const (
 	benchAlertGap  = 10 * time.Millisecond
 	benchAlertRate = 50.0 // kPa/s, against a limit of 1 kPa/s
 	benchAlertWait = 10 * time.Second
-	benchAlertMin  = 4 // min_readings; the crossing reading is the 4th
+	benchAlertMin  = rolling.MinPairs + 2 // min_readings; the crossing reading is this one
 )
 
 // benchAlertClass is the probes' class; %[1]s is the probe id prefix,
@@ -1038,7 +1039,7 @@ const benchAlertClass = `classes:
 `
 
 // benchAlertNote says what the alert latency is, for the output.
-const benchAlertNote = "alert latency: probe sensors of a class judged on the slope of a 2m window of 1s panes (debounce 1, min_readings 4) publish a reading every 10 ms, stamped with the publish time, on a ramp 50 times the limit; the fourth reading crosses the limit and the alert is raised at the next pane close, which the probe's first reading in the next pane triggers; probes hold that reading 0-240 ms after the boundary, spread evenly, as sensors of different cadences would. close→alert runs from publishing that reading to receiving the raised event on <alert prefix>.<sensor>; cross→alert from publishing the crossing reading, so it also includes the wait for the pane to end (at most the evaluation interval) and the hold. A decision is committed with the state of its sensor (a commit of the sensors with a decision waiting), then published from the outbox; the service runs as serve runs it, with no load besides the probes (idle) and with the publish-to-fit phase's offered load"
+const benchAlertNote = "alert latency: probe sensors of a class judged on the slope of a 2m window of 1s panes (debounce 1, min_readings 32, the least whose readings estimate their own serial correlation) publish a reading every 10 ms, stamped with the publish time, on a ramp 50 times the limit; the 32nd reading crosses the limit and the alert is raised at the next pane close, which the probe's first reading in the next pane triggers; probes hold that reading 0-240 ms after the boundary, spread evenly, as sensors of different cadences would. close→alert runs from publishing that reading to receiving the raised event on <alert prefix>.<sensor>; cross→alert from publishing the crossing reading, so it also includes the wait for the pane to end (at most the evaluation interval) and the hold. A decision is committed with the state of its sensor (a commit of the sensors with a decision waiting), then published from the outbox; the service runs as serve runs it, with no load besides the probes (idle) and with the publish-to-fit phase's offered load"
 
 // alertProbe is one probe sensor of the alert phase.
 type alertProbe struct {
@@ -1188,8 +1189,8 @@ func runProbes(ctx context.Context, nc *nats.Conn, probes []*alertProbe, rng *ra
 				now.Before(begin.Add(probeHold(i))) {
 				continue // the reading that closes the pane comes later
 			}
-			// 0.01 kPa of noise keeps the residuals of a fit of four
-			// readings from being exactly zero.
+			// 0.01 kPa of noise keeps the residuals of the fit from
+			// being exactly zero.
 			v := 100 + benchAlertRate*now.Sub(pr.start).Seconds() + 0.02*(rng.Float64()-0.5)
 			buf = ingest.AppendReading(buf[:0], ingest.Decoded{Reading: rolling.Reading{UnixNano: now.UnixNano(), Value: v}})
 			if err := nc.Publish(pr.subject, buf); err != nil {
