@@ -24,6 +24,10 @@ func Status(err error) string {
 		return "constant"
 	case errors.Is(err, rolling.ErrNumeric):
 		return "out_of_range"
+	case errors.Is(err, rolling.ErrUnresolved):
+		// The residuals are below their rounding bound: the standard
+		// errors are upper bounds (an exact line, or nearly).
+		return "unresolved"
 	}
 	return "error"
 }

@@ -1,13 +1,13 @@
 package web
 
 import (
-	"errors"
 	"fmt"
 	"math"
 	"slices"
 	"time"
 
 	"driftfit/alert"
+	"driftfit/cmd/driftfit/internal/report"
 	"driftfit/rolling"
 )
 
@@ -39,23 +39,7 @@ func band(f *rolling.Fit, tau float64) (y, lo, hi float64) {
 }
 
 // fitStatus names a fit's error as replay and history print it.
-func fitStatus(f *rolling.Fit) string {
-	switch {
-	case f.Err == nil:
-		return "ok"
-	case errors.Is(f.Err, rolling.ErrConstant):
-		return "constant"
-	case errors.Is(f.Err, rolling.ErrNotEnoughData):
-		return "not_enough_data"
-	case errors.Is(f.Err, rolling.ErrNoTimeSpread):
-		return "no_time_spread"
-	case errors.Is(f.Err, rolling.ErrSingular):
-		return "singular"
-	case errors.Is(f.Err, rolling.ErrNumeric):
-		return "numeric"
-	}
-	return "error"
-}
+func fitStatus(f *rolling.Fit) string { return report.Status(f.Err) }
 
 // judgedModel is the model the rule's limits are judged on, for the
 // chart: the trend model when lead time is limited, else the model of
