@@ -2,6 +2,7 @@ package demo
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"slices"
 	"sync"
@@ -48,10 +49,13 @@ func (b *Board) PaneClosed(id string, _ int, sol *rolling.Solution) {
 	b.latest[id] = boardEntry{window: sol.Window, fit: sol.Line}
 }
 
-// Run logs the top drifting sensors every interval until ctx is done.
+// Run logs the top drifting sensors every interval until ctx is done;
+// a rank whose line would read as the last one logged for it is not
+// logged again.
 func (b *Board) Run(ctx context.Context, interval time.Duration, top int, log zerolog.Logger) {
 	tick := time.NewTicker(interval)
 	defer tick.Stop()
+	shown := make([]string, top) // per rank, what was logged last
 	type ranked struct {
 		id    string
 		e     boardEntry
@@ -88,11 +92,18 @@ func (b *Board) Run(ctx context.Context, interval time.Duration, top int, log ze
 			// Rounded to the digits the 95% interval leaves meaningful.
 			u := f.TCrit * f.SE[1]
 			unit := b.unit(r.id)
+			slope, ci := report.RoundTo(f.Coef[1], u), report.RoundTo(u, u)
+			now := report.RoundTo(f.Coef[0], f.TCrit*f.SE[0])
+			line := fmt.Sprint(r.id, r.e.window, slope, ci, now)
+			if shown[i] == line {
+				continue
+			}
+			shown[i] = line
 			log.Info().Int("rank", i+1).Str("sensor", r.id).
 				Str("window", report.WindowLabel(r.e.window)).
-				Float64("slope", report.RoundTo(f.Coef[1], u)).Float64("slope_ci95", report.RoundTo(u, u)).
+				Float64("slope", slope).Float64("slope_ci95", ci).
 				Str("slope_unit", unit+"/d").
-				Float64("value_now", report.RoundTo(f.Coef[0], f.TCrit*f.SE[0])).Str("unit", unit).
+				Float64("value_now", now).Str("unit", unit).
 				Int("n", f.N).Float64("se_ratio", report.RoundTo(r.score, 0.1)).
 				Msg("drift standing out")
 		}
