@@ -125,6 +125,11 @@ func (s *Service) reply(m *nats.Msg, err error) {
 	}
 }
 
+// Subjects lists the subject prefixes the service reads or writes
+// (readings, calibrations, alerts, tickets): no reply it sends goes
+// under them.
+func (s *Service) Subjects() []string { return s.ownPrefixes() }
+
 // ownPrefixes lists the subjects the service reads or writes.
 func (s *Service) ownPrefixes() []string {
 	return []string{s.o.SubjectPrefix, s.o.CalibrationSubjectPrefix, strings.TrimSuffix(s.alertPrefix, "."), s.o.TicketSubject}

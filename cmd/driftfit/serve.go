@@ -130,7 +130,19 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	}
 	defer bus.close()
 
-	stopAPI, err := readapi.Serve(bus.nc, db, log)
+	opts := serviceOptions(cfg, bus.nc, db, &log, metrics)
+	opts.StopTimeout = *stopTimeout
+	var board *demoplant.Board
+	if *demo {
+		board = demoplant.NewBoard(classUnit(cfg))
+		opts.OnPaneClose = board.PaneClosed
+	}
+	svc, err := ingest.New(opts)
+	if err != nil {
+		return err
+	}
+
+	stopAPI, err := readapi.Serve(bus.nc, db, log, svc.Subjects()...)
 	if err != nil {
 		return err
 	}
@@ -146,18 +158,6 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		stopAPI()
 	}()
 	defer func() { cancel(); <-apiStopped }()
-
-	opts := serviceOptions(cfg, bus.nc, db, &log, metrics)
-	opts.StopTimeout = *stopTimeout
-	var board *demoplant.Board
-	if *demo {
-		board = demoplant.NewBoard(classUnit(cfg))
-		opts.OnPaneClose = board.PaneClosed
-	}
-	svc, err := ingest.New(opts)
-	if err != nil {
-		return err
-	}
 
 	if cfg.HTTP.Addr != "off" {
 		token := ""

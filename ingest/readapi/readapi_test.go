@@ -256,3 +256,36 @@ func TestClient_MalformedReply(t *testing.T) {
 		t.Errorf("Tickets on a truncated frame = %v, want ErrMalformedReply", err)
 	}
 }
+
+// TestServe_NoReplyOntoOwnSubjects: a request whose reply subject lies
+// under the API's own subjects gets no answer, while the same request
+// with an inbox is answered.
+func TestServe_NoReplyOntoOwnSubjects(t *testing.T) {
+	f := newFixture(t)
+	sub, err := f.nc.SubscribeSync("driftfit.api.>")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := f.nc.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	msg := nats.NewMsg(readapi.TicketsSubject)
+	msg.Reply = "driftfit.api.tickets"
+	msg.Data = []byte(`{}`)
+	if err := f.nc.PublishMsg(msg); err != nil {
+		t.Fatal(err)
+	}
+	// The subscription sees the request itself; an answer would follow.
+	for {
+		m, err := sub.NextMsg(500 * time.Millisecond)
+		if err != nil {
+			break
+		}
+		if m.Header.Get(readapi.HeaderMore) != "" || (m.Reply == "" && string(m.Data) != `{}`) {
+			t.Fatalf("the service answered onto its own subject: %q", m.Data)
+		}
+	}
+	if _, err := f.nc.Request(readapi.TicketsSubject, []byte(`{}`), readapi.Timeout); err != nil {
+		t.Errorf("the same request with an inbox: %v", err)
+	}
+}

@@ -4,6 +4,7 @@ import (
 	"encoding/binary"
 	"encoding/json"
 	"fmt"
+	"strings"
 	"time"
 
 	"github.com/nats-io/nats.go"
@@ -16,9 +17,20 @@ import (
 // Serve answers history, sensor-list, event and ticket requests from db
 // on nc until the returned stop is called; stop unsubscribes. Handlers
 // run on nc's delivery goroutine, each inside one read transaction of db.
-func Serve(nc *nats.Conn, db *store.DB, log zerolog.Logger) (stop func(), err error) {
+// A request whose reply subject lies under the API's own subjects or
+// under one of own (the service's other subjects) gets no answer:
+// answering there would let a client publish where NATS permissions may
+// not let it.
+func Serve(nc *nats.Conn, db *store.DB, log zerolog.Logger, own ...string) (stop func(), err error) {
 	log = log.With().Str("component", "api").Logger()
+	own = append(own, strings.TrimSuffix(HistorySubject, ".history"))
 	send := func(m *nats.Msg, data []byte, more bool, err error) {
+		for _, p := range own {
+			if m.Reply == p || strings.HasPrefix(m.Reply, p+".") {
+				log.Warn().Str("subject", m.Subject).Str("reply", m.Reply).Msg("reply onto the service's own subjects refused")
+				return
+			}
+		}
 		out := nats.NewMsg(m.Reply)
 		out.Data = data
 		if more {
