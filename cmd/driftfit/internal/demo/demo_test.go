@@ -101,7 +101,7 @@ func TestBoard_LogsRounded(t *testing.T) {
 	wantSlope, _ := strconv.ParseFloat(strconv.FormatFloat(sol.Line.Coef[1], 'f', decimals, 64), 64)
 	if line.CI != wantCI || line.Slope != wantSlope || line.SlopeUnit != "kPa/d" {
 		t.Errorf("log %s: want slope %v ±%v kPa/d (from %v ±%v)", first, wantSlope, wantCI, sol.Line.Coef[1], u)
-	}	// Run ticks about four times; the line does not change, so it is
+	} // Run ticks about four times; the line does not change, so it is
 	// logged once.
 	if n := bytes.Count(logs.Bytes(), []byte("drift standing out")); n != 1 {
 		t.Errorf("%d board lines for one unchanged ranking, want 1:\n%s", n, logs.String())
