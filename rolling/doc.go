@@ -38,6 +38,13 @@
 // fitted mean reaches it, with Fieller's interval and a one-sided lower
 // confidence bound (a due date).
 //
+// To add a model: a Model constant and its name and coefficient count in
+// model.go (Models lists them in report order), its normal equations from
+// the pane sums in the solve of fit.go (a model on a transform of y, like
+// Exp, needs its sums kept per pane in pane.go and encoded in state.go,
+// with a format version), a Fit field in Solution, and a reference check
+// in fit_test.go against gonum's batch least squares.
+//
 // # Serial correlation
 //
 // Plant noise is autocorrelated, and the standard errors above assume it
