@@ -1,36 +1,17 @@
 package report
 
 import (
-	"errors"
 	"math"
 	"time"
 
+	"driftfit/cmd/driftfit/internal/chart"
 	"driftfit/configs"
 	"driftfit/rolling"
 )
 
-// Status names the state of a fit in output: "ok" or why there is none.
-func Status(err error) string {
-	switch {
-	case err == nil:
-		return "ok"
-	case errors.Is(err, rolling.ErrNotEnoughData):
-		return "not_enough_data"
-	case errors.Is(err, rolling.ErrNoTimeSpread):
-		return "no_time_spread"
-	case errors.Is(err, rolling.ErrSingular):
-		return "singular"
-	case errors.Is(err, rolling.ErrConstant):
-		return "constant"
-	case errors.Is(err, rolling.ErrNumeric):
-		return "out_of_range"
-	case errors.Is(err, rolling.ErrUnresolved):
-		// The residuals are below their rounding bound: the standard
-		// errors are upper bounds (an exact line, or nearly).
-		return "unresolved"
-	}
-	return "error"
-}
+// Status names the state of a fit in output: "ok" or why there is none
+// (see chart.Status).
+func Status(err error) string { return chart.Status(err) }
 
 // WindowLabel writes a window as SPAN/PANE in the duration syntax of the
 // config file and the --window flags ("30d/1d", "1d/1h").

@@ -2,54 +2,8 @@ package web
 
 import (
 	"math"
-	"slices"
 	"time"
 )
-
-// percentile returns the p-quantile (0..1) of xs by linear interpolation
-// between order statistics (Hyndman and Fan 1996, definition 7, R's
-// default). xs is sorted in place.
-func percentile(xs []float64, p float64) float64 {
-	slices.Sort(xs)
-	if len(xs) == 0 {
-		return math.NaN()
-	}
-	h := p * float64(len(xs)-1)
-	lo := int(math.Floor(h))
-	hi := min(lo+1, len(xs)-1)
-	return xs[lo] + (h-float64(lo))*(xs[hi]-xs[lo])
-}
-
-// robustRange is the value axis: the 2nd to 98th percentiles of the
-// noisy values (so a few wild records do not flatten the rest), widened
-// to hold the anchors (tolerance edges, limits, fitted curves), plus a
-// margin of 8% either side.
-func robustRange(noisy, anchors []float64) (lo, hi float64) {
-	lo, hi = math.Inf(1), math.Inf(-1)
-	var xs []float64
-	for _, v := range noisy {
-		if !math.IsNaN(v) && !math.IsInf(v, 0) {
-			xs = append(xs, v)
-		}
-	}
-	if len(xs) > 0 {
-		lo, hi = percentile(xs, 0.02), percentile(xs, 0.98)
-	}
-	for _, v := range anchors {
-		if !math.IsNaN(v) && !math.IsInf(v, 0) {
-			lo, hi = min(lo, v), max(hi, v)
-		}
-	}
-	if math.IsInf(lo, 0) {
-		return 0, 1
-	}
-	if hi-lo <= 0 {
-		d := max(math.Abs(lo)*0.01, 1e-9)
-		lo, hi = lo-d, hi+d
-	}
-	m := 0.08 * (hi - lo)
-	return lo - m, hi + m
-}
 
 // niceTicks returns ticks at multiples of 1, 2 or 5 × 10^k inside
 // [lo, hi], the step whose count of ticks comes nearest n.

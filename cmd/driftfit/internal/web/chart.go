@@ -8,19 +8,21 @@ import (
 	"strconv"
 	"strings"
 	"time"
+
+	"driftfit/cmd/driftfit/internal/chart"
 )
 
 // Okabe–Ito colours (Okabe and Ito, "Color Universal Design", 2008),
 // distinguishable with the common colour-vision deficiencies. Fills use
 // them with opacity in the style sheet.
-var windowColours = []string{"#0072B2", "#E69F00", "#CC79A7", "#009E73", "#56B4E9", "#D55E00"}
+var windowColours = chart.WindowColours
 
 const (
-	colourWarning  = "#E69F00"
-	colourCritical = "#D55E00"
-	colourBand     = "#009E73"
-	colourTicket   = "#0072B2"
-	colourCal      = "#009E73"
+	colourWarning  = chart.WarningColour
+	colourCritical = chart.CriticalColour
+	colourBand     = chart.ToleranceColour
+	colourTicket   = chart.TicketColour
+	colourCal      = chart.CalibrationColour
 )
 
 // Chart geometry, in SVG user units.
@@ -157,7 +159,7 @@ func (h *handler) buildChart(v *SensorView) *svgChart {
 	if v.Band != nil {
 		anchors = append(anchors, v.Band[0], v.Band[1])
 	}
-	lo, hi := robustRange(levels, anchors)
+	lo, hi := chart.RobustRange(levels, anchors)
 	ys := scale{lo, hi, levelTop + levelH, levelTop}
 	unit := v.Unit
 	if unit == "" {
@@ -177,7 +179,7 @@ func (h *handler) buildChart(v *SensorView) *svgChart {
 			danchors = append(danchors, l, -l)
 		}
 	}
-	dlo, dhi := robustRange(drifts, danchors)
+	dlo, dhi := chart.RobustRange(drifts, danchors)
 	ds := scale{dlo, dhi, driftTop + driftH, driftTop}
 	drift := svgPanel{ID: "drift", Title: "Drift rate of the line fit", Top: driftTop, Height: driftH, ClipID: "clip-drift",
 		Left: marginL, Width: chartW - marginL - marginR, Bottom: driftTop + driftH, UnitLabel: unit + "/day",

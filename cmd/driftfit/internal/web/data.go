@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"driftfit/alert"
+	"driftfit/cmd/driftfit/internal/chart"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -164,34 +165,17 @@ func ticketsAt(tks []alert.Ticket, asof time.Time) []TicketView {
 	return out
 }
 
-// CalibrationView is a recorded calibration. AsFound and AsLeft are
-// known only for calibrations that closed a ticket; a calibration seen
-// only through the reset events it caused carries the time alone.
-type CalibrationView struct {
-	Time    time.Time `json:"time"`
-	AsFound *float64  `json:"as_found,omitempty"`
-	AsLeft  *float64  `json:"as_left,omitempty"`
-	Ticket  string    `json:"ticket,omitempty"`
-}
+// CalibrationView is a recorded calibration (see chart.Calibration).
+type CalibrationView = chart.Calibration
 
+// calibrationsAt returns the calibrations of the tickets as they stood
+// at the time asked for, and of the reset events, in time order.
 func calibrationsAt(tks []TicketView, evs []alert.Event) []CalibrationView {
-	var out []CalibrationView
-	seen := map[int64]bool{}
-	for _, tk := range tks {
-		if c := tk.Calibration; c != nil {
-			af, al := c.AsFound, c.AsLeft
-			out = append(out, CalibrationView{Time: c.Time, AsFound: &af, AsLeft: &al, Ticket: tk.ID})
-			seen[c.Time.UnixNano()] = true
-		}
+	plain := make([]alert.Ticket, len(tks))
+	for i := range tks {
+		plain[i] = tks[i].Ticket
 	}
-	for _, ev := range evs {
-		if ev.Type == alert.Reset && !seen[ev.At.UnixNano()] {
-			out = append(out, CalibrationView{Time: ev.At})
-			seen[ev.At.UnixNano()] = true
-		}
-	}
-	sort.Slice(out, func(i, j int) bool { return out[i].Time.Before(out[j].Time) })
-	return out
+	return chart.Calibrations(plain, evs)
 }
 
 // AsLeft is the centre of the tolerance band and where it comes from.
@@ -229,11 +213,11 @@ func (h *handler) asLeftAt(id string, r *alert.Rule, cals []CalibrationView, aso
 		}
 		return &c, nil
 	}
-	m := trendModel(r)
+	m := chart.TrendModel(r)
 	var got *AsLeft
 	err := h.o.DB.History(id, rolling.WindowSpec{}, from, time.Time{}, func(rec store.HistoryRecord) error {
 		sol := rec.Solution
-		if ok, _ := judge(r, &sol, m); ok {
+		if ok, _ := chart.Judge(r, &sol, m); ok {
 			got = &AsLeft{Value: sol.Fit(m).Coef[0], Source: "first judged fit", Since: sol.Last}
 			return errStop
 		}

@@ -1,9 +1,7 @@
 package web
 
 import (
-	"fmt"
 	"math"
-	"slices"
 	"time"
 
 	"driftfit/alert"
@@ -40,73 +38,6 @@ func band(f *rolling.Fit, tau float64) (y, lo, hi float64) {
 
 // fitStatus names a fit's error as replay and history print it.
 func fitStatus(f *rolling.Fit) string { return report.Status(f.Err) }
-
-// judgedModel is the model the rule's limits are judged on, for the
-// chart: the trend model when lead time is limited, else the model of
-// the first limit set in the order slope (line), curvature (parabola),
-// doubling (exp); the trend model when none is.
-func judgedModel(r *alert.Rule) rolling.Model {
-	trend := r.TrendModel
-	if trend == rolling.ModelUnknown {
-		trend = rolling.Line
-	}
-	switch {
-	case r.Limits.LeadTime.On():
-		return trend
-	case r.Limits.Slope.On():
-		return rolling.Line
-	case r.Limits.Curvature.On():
-		return rolling.Parabola
-	case r.Limits.Doubling.On():
-		return rolling.Exp
-	}
-	return trend
-}
-
-func trendModel(r *alert.Rule) rolling.Model {
-	if r.TrendModel == rolling.Parabola {
-		return rolling.Parabola
-	}
-	return rolling.Line
-}
-
-// judge says whether the alert rules judge this solution, and if not,
-// why. The gates restate alert.Tracker.Evaluate's (see alert.Rule for
-// the defaults of zero fields): a window in the rule, MinReadings
-// readings, MinCoverage of its panes filled, and a fit that is usable,
-// positive definite, has MinReadings readings and a condition number at
-// most MaxCond.
-func judge(r *alert.Rule, sol *rolling.Solution, m rolling.Model) (bool, string) {
-	if !slices.Contains(r.Windows, sol.Window) {
-		return false, "window not in the rule"
-	}
-	minN := r.MinReadings
-	if minN == 0 {
-		minN = defaultMinReadings
-	}
-	maxCond := r.MaxCond
-	if maxCond == 0 {
-		maxCond = defaultMaxCond
-	}
-	if sol.N < minN {
-		return false, fmt.Sprintf("too few readings %d < %d", sol.N, minN)
-	}
-	if c := sol.Coverage(); c < r.MinCoverage {
-		return false, fmt.Sprintf("coverage %.2f < %.2f", c, r.MinCoverage)
-	}
-	f := sol.Fit(m)
-	switch {
-	case !f.OK():
-		return false, "fit not usable: " + fitStatus(f)
-	case !f.PosDef:
-		return false, "fit not positive definite"
-	case f.N < minN:
-		return false, fmt.Sprintf("too few readings in the %s fit %d < %d", m, f.N, minN)
-	case f.Cond > maxCond:
-		return false, fmt.Sprintf("condition number %.3g > %.3g", f.Cond, maxCond)
-	}
-	return true, ""
-}
 
 // horizon is how far ahead the trend is followed for exits, as
 // alert.Rule.Horizon defines its zero value.

@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"driftfit/alert"
+	"driftfit/cmd/driftfit/internal/chart"
 	"driftfit/rolling"
 )
 
@@ -228,7 +229,7 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog) (FleetRow, 
 	if err != nil {
 		return row, err
 	}
-	jm, tm := judgedModel(&r), trendModel(&r)
+	jm, tm := chart.JudgedModel(&r), chart.TrendModel(&r)
 	var reasons []string
 	var longest *rolling.Solution
 	for _, w := range r.Windows {
@@ -237,7 +238,7 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog) (FleetRow, 
 			reasons = append(reasons, alert.WindowName(w)+": no fit record yet")
 			continue
 		}
-		if ok, why := judge(&r, &sol, jm); !ok {
+		if ok, why := chart.Judge(&r, &sol, jm); !ok {
 			reasons = append(reasons, alert.WindowName(w)+": "+why)
 			continue
 		}
@@ -253,7 +254,7 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog) (FleetRow, 
 			}
 		}
 		if asLeft != nil && r.Tolerance > 0 {
-			if ok, _ := judge(&r, &sol, tm); ok && trending(sol.Fit(tm)) {
+			if ok, _ := chart.Judge(&r, &sol, tm); ok && trending(sol.Fit(tm)) {
 				if e := exitOf(sol.Fit(tm), asLeft.Value, r.Tolerance, horizon(&r)); e != nil && (row.Exit == nil || e.At.Before(row.Exit.At)) {
 					row.Exit, row.ExitWindow = e, alert.WindowName(w)
 				}

@@ -45,10 +45,6 @@ type Options struct {
 
 const defaultRefresh = 15 * time.Second
 
-// Defaults of alert.Rule's zero fields, as documented there; a rule from
-// the configuration has them set already, a hand-made one may not.
-const (
-	defaultMinReadings = 30
-	defaultMaxCond     = 1e4
-	defaultHorizon     = 365 * 24 * time.Hour
-)
+// defaultHorizon is alert.Rule's Horizon when it and the lead-time
+// limits are zero, as documented there.
+const defaultHorizon = 365 * 24 * time.Hour

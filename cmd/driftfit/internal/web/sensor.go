@@ -7,6 +7,7 @@ import (
 	"time"
 
 	"driftfit/alert"
+	"driftfit/cmd/driftfit/internal/chart"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -150,7 +151,7 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 		History: []HistoryRow{}, Windows: []WindowView{}}
 	jm, tm := rolling.Line, rolling.Line
 	if hasRule {
-		jm, tm = judgedModel(&r), trendModel(&r)
+		jm, tm = chart.JudgedModel(&r), chart.TrendModel(&r)
 	}
 	v.Model = jm.String()
 
@@ -242,13 +243,13 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 		wv := WindowView{Window: alert.WindowName(w), Record: sol.Last, N: sol.N, Panes: sol.Panes, Filled: sol.Filled,
 			Coverage: sol.Coverage(), Fit: fitView(sol.Fit(jm)), Line: fitView(&sol.Line), spec: w}
 		if hasRule {
-			wv.Judged, wv.Reason = judge(&r, &sol, jm)
+			wv.Judged, wv.Reason = chart.Judge(&r, &sol, jm)
 			if wv.Judged {
 				judgedAny = true
 			} else {
 				reasons = append(reasons, wv.Window+": "+wv.Reason)
 			}
-			if ok, _ := judge(&r, &sol, tm); ok && v.AsLeft != nil && r.Tolerance > 0 {
+			if ok, _ := chart.Judge(&r, &sol, tm); ok && v.AsLeft != nil && r.Tolerance > 0 {
 				wv.Exit = exitOf(sol.Fit(tm), v.AsLeft.Value, r.Tolerance, horizon(&r))
 			}
 		} else {
