@@ -13,6 +13,7 @@ import (
 	"strings"
 	"time"
 
+	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/query"
 	"driftfit/cmd/driftfit/internal/report"
 	"driftfit/configs"
@@ -198,11 +199,33 @@ func history(ctx context.Context, now time.Time, args []string, stdout, stderr i
 		*unit = classUnit(cfg)(q.Sensor)
 	}
 	if *unit == "" {
-		if *unit, err = query.TicketUnit(db, q.Sensor); err != nil {
+		if *unit, err = query.StoredUnit(db, q.Sensor); err != nil {
 			return err
 		}
 	}
 	opts := report.Options{Unit: func(string) string { return *unit }}
+	if *plotPath != "" {
+		// The class's rule, when --config names one: its tolerance,
+		// as-left, limits and models. A class without limits still
+		// gives its tolerance and as-left.
+		var rule *alert.Rule
+		if cfg != nil {
+			r, _, err := ruleFor(cfg, q.Sensor)
+			if err != nil {
+				return fmt.Errorf("--config: %w", err)
+			}
+			if r.Class != "" {
+				rule = &r
+			}
+		}
+		var models []rolling.Model
+		if set["model"] {
+			models = q.Models
+		}
+		opts.Annotate = func(sensor string, from, to time.Time) (*report.Annotations, error) {
+			return query.Annotate(db, sensor, rule, models, from, to)
+		}
+	}
 	var outs []report.Writer
 	if *plotPath == "" || set["format"] {
 		out, _ := report.New(*format, report.History, stdout, opts)

@@ -42,9 +42,9 @@ func Events(src Source, f Filter) ([]alert.Event, error) {
 	type key struct{ sensor, window, kind string }
 	firing := map[key]int{}
 	err := src.Events(f.Since, f.Until, func(_ time.Time, data []byte) error {
-		var ev alert.Event
-		if err := json.Unmarshal(data, &ev); err != nil {
-			return fmt.Errorf("stored event: %w", err)
+		ev, err := decodeEvent(data)
+		if err != nil {
+			return err
 		}
 		if !f.match(ev.Sensor) {
 			return nil
@@ -71,6 +71,14 @@ func Events(src Source, f Filter) ([]alert.Event, error) {
 		}
 	}
 	return keep, nil
+}
+
+func decodeEvent(data []byte) (alert.Event, error) {
+	var ev alert.Event
+	if err := json.Unmarshal(data, &ev); err != nil {
+		return ev, fmt.Errorf("stored event: %w", err)
+	}
+	return ev, nil
 }
 
 func decodeTicket(data []byte) (alert.Ticket, error) {

@@ -9,6 +9,7 @@ import (
 	"strings"
 	"time"
 
+	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/report"
 	"driftfit/rolling"
 	"driftfit/store"
@@ -171,9 +172,11 @@ func noSensorError(src Source, sensor string) error {
 	return fmt.Errorf("%w; %d sensors have history, such as %s", msg, len(cands), strings.Join(ids, ", "))
 }
 
-// TicketUnit returns the class unit recorded in the newest ticket of
-// sensor, or "" when it has none: fit records carry no unit, tickets do.
-func TicketUnit(src Source, sensor string) (string, error) {
+// StoredUnit returns the unit of sensor's readings as its newest
+// ticket records it, else as its newest alert event of a kind whose
+// unit names it (slope: "kPa/d" is kPa), or "" when neither does: fit
+// records carry no unit.
+func StoredUnit(src Source, sensor string) (string, error) {
 	unit := ""
 	var newest time.Time
 	err := src.Tickets(func(_ string, data []byte) error {
@@ -186,5 +189,41 @@ func TicketUnit(src Source, sensor string) (string, error) {
 		}
 		return nil
 	})
+	if err != nil || unit != "" {
+		return unit, err
+	}
+	err = src.Events(time.Time{}, time.Time{}, func(_ time.Time, data []byte) error {
+		ev, err := decodeEvent(data)
+		if err != nil {
+			return err
+		}
+		if ev.Sensor != sensor {
+			return nil
+		}
+		if u := EventUnit(ev.Kind, ev.Unit); u != "" {
+			unit = u // events come in time order: the newest wins
+		}
+		return nil
+	})
 	return unit, err
+}
+
+// EventUnit returns the sensor's unit that an event's unit u implies
+// for kind k, or "" when that kind's unit does not name it (lead time
+// is in days, doubling in 1/d). It inverts alert.ReportUnit.
+func EventUnit(k alert.Kind, u string) string {
+	suffix := ""
+	switch k {
+	case alert.Slope:
+		suffix = "/d"
+	case alert.Curvature:
+		suffix = "/d²"
+	case alert.Step, alert.OutOfSpan:
+	default:
+		return ""
+	}
+	if base, ok := strings.CutSuffix(u, suffix); ok {
+		return base
+	}
+	return ""
 }

@@ -3,6 +3,7 @@ package report
 import (
 	"io"
 	"slices"
+	"time"
 
 	"driftfit/alert"
 	"driftfit/rolling"
@@ -56,6 +57,10 @@ type Options struct {
 	// Unit returns the engineering unit of a sensor's values ("" when
 	// unknown). Nil: no units are known.
 	Unit func(sensor string) string
+	// Annotate returns what a picture draws besides the fits of sensor,
+	// whose records run from from to to (both inclusive). Nil, or a nil
+	// result: the fits alone. An error fails the picture.
+	Annotate func(sensor string, from, to time.Time) (*Annotations, error)
 }
 
 func (o Options) unit(sensor string) string {
