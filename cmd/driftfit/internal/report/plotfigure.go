@@ -181,6 +181,9 @@ func buildFigure(sensor, unit string, series []plotSeries, an *Annotations) *fig
 			fig.legend.asLeftText += ", then " + src
 		}
 	}
+	if an.Tolerance > 0 && len(asLefts) == 0 {
+		fig.legend.notes = append(fig.legend.notes, fmt.Sprintf("no tolerance band (± %s %s): no as-left known yet (no calibration, configured as_left, ticket or fit that passed the evidence gates)", plotNum(an.Tolerance), u))
+	}
 	if len(bands) > 0 {
 		fig.legend.band, fig.legend.edges = true, true
 		fig.legend.bandText = fmt.Sprintf("tolerance band: as-left ± %s %s", plotNum(an.Tolerance), u)
