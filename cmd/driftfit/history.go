@@ -49,7 +49,7 @@ Formats:
   table  aligned columns for people, one row per record and model, numbers
          rounded to the digits their 95% interval leaves meaningful, with
          the sensor's unit (from --unit, the class in --config, else the
-         unit its tickets in the file name)
+         unit its tickets, or else its alerts, in the file name)
   csv    RFC 4180 (CRLF line ends) with a header, one row per record and
          model; c0 is the level (exp: ln of the level), c1_per_day the rate
          per day, c2_per_day2 the curvature per day² (parabola only); "se"
@@ -66,10 +66,23 @@ Times (--since, --until) are RFC 3339 (2026-03-01T12:00:00Z), a date
 30 days up to the sensor's newest record, and says so when older records
 are left out.
 
---plot draws the line fit of each selected window over time: the level
-(c0) above and the drift rate per day (c1) below, each with its 95%
-confidence band, one column per window. With --plot, nothing is printed on
-standard output unless --format is given.
+--plot draws each selected window's fits over time, one column per
+window on one time axis that starts at the first record: the level (of
+the class's trend model) inside the tolerance band around the as-left
+value, the drift rate per day with the slope limits, and, when the class
+judges them, the parabola's curvature and the exponential fit's growth
+rate with the doubling-time limits; each estimate with its 95% confidence
+band. A strip below marks alerts (raised, cleared), tickets (opened, due,
+closed) and calibrations, which also rule across the panels. The as-left
+value holds from one calibration to the next: the calibration's own, else
+the class's as_left (before the first calibration), else the one a ticket
+recorded, else the level of the first fit that passed the evidence gates.
+Without --config the tolerance comes from the newest ticket and the limits
+from the levels stored alerts were raised at; --model picks the panels.
+Value axes span the 2nd to 98th percentiles of the records with a usual
+95% interval (so a filling window or one wild reading does not flatten
+the rest), widened to the band and limits. With --plot, nothing is
+printed on standard output unless --format is given.
 
 The database is opened read-only. bbolt locks the file with flock: a
 read-only open takes a shared lock, the writer (driftfit serve) an
@@ -143,7 +156,7 @@ func history(ctx context.Context, now time.Time, args []string, stdout, stderr i
 	until := fs.String("until", "", "end `TIME` (exclusive), as for --since")
 	models := fs.String("model", "line,parabola,exp", "comma-separated `MODELS` to print")
 	format := fs.String("format", "table", "output format: "+strings.Join(report.Names(report.History), ", "))
-	plotPath := fs.String("plot", "", "draw level and drift rate with their 95% bands into `FILE` (.png or .svg)")
+	plotPath := fs.String("plot", "", "draw the fits with tolerance band, limits, alerts, tickets and calibrations into `FILE` (.png or .svg)")
 	unit := fs.String("unit", "", "engineering `UNIT` of the sensor's values (overrides --config and the file)")
 	pos, err := fs.parse(args)
 	if err != nil {

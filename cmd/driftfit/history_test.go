@@ -622,9 +622,11 @@ func TestHistory_Plot(t *testing.T) {
 			if err != nil {
 				t.Fatalf("decode PNG: %v", err)
 			}
-			// 10 in for the first window, 7 in for each further one, 7 in
-			// high, at 120 dots per inch.
-			wantW, wantH := (10+7*(tc.cols-1))*120, 7*120
+			// 10 in for the first window, 7 in for each further one; with
+			// the level and drift panels 7.95 in high (0.75 header, 2.8
+			// level, 1.9 drift, two gaps of 0.125, 1.25 marker strip,
+			// 1 legend), at 120 dots per inch.
+			wantW, wantH := (10+7*(tc.cols-1))*120, 954
 			if b := img.Bounds(); b.Dx() != wantW || b.Dy() != wantH {
 				t.Errorf("PNG is %d×%d, want %d×%d", b.Dx(), b.Dy(), wantW, wantH)
 			}
@@ -639,8 +641,8 @@ func TestHistory_Plot(t *testing.T) {
 				}
 			}
 			for name, c := range map[string][3]uint32{
-				"level band": {0xc4, 0xd8, 0xf0}, "rate band": {0xf4, 0xd2, 0xc0},
-				"level curve": {0x1f, 0x5f, 0xa8}, "rate curve": {0xb0, 0x40, 0x10},
+				// Okabe–Ito blue #0072B2, and 30% of it on white.
+				"curve": {0x00, 0x72, 0xb2}, "band": {0xb3, 0xd5, 0xe8},
 			} {
 				// At least a line's worth of pixels per column.
 				if counts[c] < 300*tc.cols {
