@@ -25,8 +25,7 @@ const (
 	levelHeight   = 2.8 * vg.Inch
 	rateHeight    = 1.9 * vg.Inch
 	stripHeight   = 1.25 * vg.Inch
-	legendHeight  = 1.0 * vg.Inch
-	legendRows    = 3
+	minLegendRows = 3
 	plotDPI       = 120
 	panelGap      = vg.Inch / 8
 	pagePadLeft   = vg.Inch / 8
@@ -52,9 +51,10 @@ var (
 	gridCol     = color.Gray{Y: 0xdd}
 )
 
-// figureHeight is the page height for n value panels.
-func figureHeight(n int) vg.Length {
-	return headerHeight + levelHeight + vg.Length(n-1)*(rateHeight+panelGap) + panelGap + stripHeight + legendHeight
+// figureHeight is the page height for n value panels and a legend of
+// rows rows.
+func figureHeight(n, rows int) vg.Length {
+	return headerHeight + levelHeight + vg.Length(n-1)*(rateHeight+panelGap) + panelGap + stripHeight + legendHeight(rows)
 }
 
 // drawFigure draws fig as PNG or SVG.
@@ -62,7 +62,8 @@ func drawFigure(svg bool, fig *figure) (vg.CanvasWriterTo, error) {
 	cols := len(fig.cols)
 	npanels := len(fig.cols[0].panels)
 	width := plotWidth + vg.Length(cols-1)*plotColWidth
-	height := figureHeight(npanels)
+	rows := legendRows(legendEntries(fig), width)
+	height := figureHeight(npanels, rows)
 	var c vg.CanvasWriterTo = vgimg.PngCanvas{Canvas: vgimg.NewWith(vgimg.UseWH(width, height), vgimg.UseDPI(plotDPI))}
 	if svg {
 		// Embedded fonts make the SVG look like the PNG: a viewer
@@ -89,11 +90,11 @@ func drawFigure(svg bool, fig *figure) (vg.CanvasWriterTo, error) {
 	colW := (width - pagePadLeft - pagePadRight - vg.Length(cols-1)*columnGap) / vg.Length(cols)
 	for i, col := range fig.cols {
 		x0 := dc.Min.X + pagePadLeft + vg.Length(i)*(colW+columnGap)
-		if err := drawColumn(dc, fig, &col, x0, x0+colW, dc.Max.Y-headerHeight, dc.Min.Y+legendHeight); err != nil {
+		if err := drawColumn(dc, fig, &col, x0, x0+colW, dc.Max.Y-headerHeight, dc.Min.Y+legendHeight(rows)); err != nil {
 			return nil, err
 		}
 	}
-	if err := drawLegend(dc, fig); err != nil {
+	if err := drawLegend(dc, fig, width); err != nil {
 		return nil, err
 	}
 	return c, nil
@@ -321,9 +322,10 @@ func markStyle(m mark) draw.GlyphStyle {
 	case markTicketOpened:
 		return draw.GlyphStyle{Color: ticketCol, Radius: r * 1.2, Shape: diamond{}}
 	case markTicketDue:
-		return draw.GlyphStyle{Color: ticketCol, Radius: r, Shape: draw.BoxGlyph{}}
-	case markTicketClosed:
+		// gonum's SquareGlyph is the outline, BoxGlyph the filled one.
 		return draw.GlyphStyle{Color: ticketCol, Radius: r, Shape: draw.SquareGlyph{}}
+	case markTicketClosed:
+		return draw.GlyphStyle{Color: ticketCol, Radius: r, Shape: draw.BoxGlyph{}}
 	}
 	return draw.GlyphStyle{Color: calCol, Radius: r, Shape: draw.RingGlyph{}}
 }
@@ -403,8 +405,32 @@ type legendEntry struct {
 }
 
 // drawLegend explains, under the columns, every kind of element the
-// figure holds, in columns of legendRows entries.
-func drawLegend(dc draw.Canvas, fig *figure) error {
+// figure holds, in columns as many entries deep as fit the width.
+func drawLegend(dc draw.Canvas, fig *figure, width vg.Length) error {
+	es := legendEntries(fig)
+	if len(es) == 0 {
+		return nil
+	}
+	// Columns of rows entries, each as wide as its longest text, placed
+	// left to right; as few rows as fit the page's width.
+	rows := legendRows(es, width)
+	x0 := dc.Min.X + pagePadLeft
+	for i := 0; i*rows < len(es); i++ {
+		l := newLegend()
+		var w vg.Length
+		for _, e := range es[i*rows : min(len(es), (i+1)*rows)] {
+			l.Add(e.text, e.thumbs...)
+			w = max(w, l.TextStyle.Width(e.text))
+		}
+		w += l.ThumbnailWidth + vg.Points(8)
+		l.Draw(sub(dc, x0, x0+w, dc.Min.Y+vg.Inch/10, dc.Min.Y+legendHeight(rows)-vg.Inch/8))
+		x0 += w + legendGap
+	}
+	return nil
+}
+
+// legendEntries lists what the legend explains, in order.
+func legendEntries(fig *figure) []legendEntry {
 	lg := &fig.legend
 	var es []legendEntry
 	line := func(col color.Color, w vg.Length, d []vg.Length) plot.Thumbnailer {
@@ -462,23 +488,41 @@ func drawLegend(dc draw.Canvas, fig *figure) error {
 	if lg.offScale {
 		es = append(es, legendEntry{"off the scale: records with a 95% interval over 4 times the median width, or beyond the 2nd–98th percentiles", nil})
 	}
-	// Columns of legendRows entries, each as wide as its longest text,
-	// placed left to right.
-	x0 := dc.Min.X + pagePadLeft
-	for i := 0; i*legendRows < len(es); i++ {
-		l := plot.NewLegend()
-		l.Top, l.Left = true, true
-		l.TextStyle.Font.Size = vg.Points(10)
-		l.ThumbnailWidth = vg.Points(34)
-		l.Padding = vg.Points(3)
-		var w vg.Length
-		for _, e := range es[i*legendRows : min(len(es), (i+1)*legendRows)] {
-			l.Add(e.text, e.thumbs...)
-			w = max(w, l.TextStyle.Width(e.text))
+	return es
+}
+
+// legendGap separates the legend's columns.
+const legendGap = 18 // vg.Length is in points
+
+func newLegend() plot.Legend {
+	l := plot.NewLegend()
+	l.Top, l.Left = true, true
+	l.TextStyle.Font.Size = vg.Points(10)
+	l.ThumbnailWidth = vg.Points(34)
+	l.Padding = vg.Points(3)
+	return l
+}
+
+// legendRows returns the fewest rows per legend column, at least
+// minLegendRows, whose columns fit in width.
+func legendRows(es []legendEntry, width vg.Length) int {
+	l := newLegend()
+	for rows := minLegendRows; ; rows++ {
+		total := pagePadLeft + pagePadRight
+		for i := 0; i*rows < len(es); i++ {
+			var w vg.Length
+			for _, e := range es[i*rows : min(len(es), (i+1)*rows)] {
+				w = max(w, l.TextStyle.Width(e.text))
+			}
+			total += w + l.ThumbnailWidth + vg.Points(8) + legendGap
 		}
-		w += l.ThumbnailWidth + vg.Points(8)
-		l.Draw(sub(dc, x0, x0+w, dc.Min.Y+vg.Inch/10, dc.Min.Y+legendHeight-vg.Inch/4))
-		x0 += w + vg.Points(18)
+		if total <= width || rows >= len(es) {
+			return rows
+		}
 	}
-	return nil
+}
+
+// legendHeight is the height of a legend of rows rows, with its margins.
+func legendHeight(rows int) vg.Length {
+	return vg.Length(rows)*vg.Points(15) + vg.Inch/4
 }
