@@ -137,21 +137,47 @@ func outboxKey(lane byte, seq uint64) []byte {
 }
 
 // AlertStates calls fn with every sensor's stored alert state, in id order.
-// The bytes are valid only during the call.
+// The bytes are valid only during the call. A state that fails its
+// checksum is not handed to fn; the walk goes on and returns a
+// *SkippedError counting such states at the end.
 func (db *DB) AlertStates(fn func(sensor string, state []byte) error) error {
-	return db.bolt.View(func(tx *bolt.Tx) error {
-		b := tx.Bucket(bucketAlerts)
+	return db.forEachSealed(bucketAlerts, "alert states", func(k, v []byte) error { return fn(string(k), v) })
+}
+
+// forEachSealed calls fn with every key and unsealed value of bucket
+// name, skipping (and counting in a *SkippedError) values that fail
+// their checksum. An error from fn stops the walk and is returned as it is.
+func (db *DB) forEachSealed(name []byte, what string, fn func(k, v []byte) error) error {
+	skip := SkippedError{What: what}
+	err := db.bolt.View(func(tx *bolt.Tx) error {
+		skip = SkippedError{What: what}
+		b := tx.Bucket(name)
 		if b == nil {
 			return nil
 		}
-		return b.ForEach(func(k, v []byte) error { return fn(string(k), v) })
+		return b.ForEach(func(k, v []byte) error {
+			v, err := unseal(name, k, v)
+			if err != nil {
+				skip.add(err)
+				return nil
+			}
+			return fn(k, v)
+		})
 	})
+	if err != nil {
+		return err
+	}
+	return skip.err()
 }
 
 // Events calls fn with the stored events filed at since ≤ t < until (zero:
 // open end), in time order. The bytes are valid only during the call.
+// Events that fail their checksum are skipped and counted in a
+// *SkippedError returned at the end.
 func (db *DB) Events(since, until time.Time, fn func(at time.Time, data []byte) error) error {
-	return db.bolt.View(func(tx *bolt.Tx) error {
+	skip := SkippedError{What: "alert events"}
+	err := db.bolt.View(func(tx *bolt.Tx) error {
+		skip = SkippedError{What: "alert events"}
 		b := tx.Bucket(bucketEvents)
 		if b == nil {
 			return nil
@@ -171,33 +197,41 @@ func (db *DB) Events(since, until time.Time, fn func(at time.Time, data []byte) 
 			if !until.IsZero() && at >= unixNano(until) {
 				return nil
 			}
+			v, err := unseal(bucketEvents, k, v)
+			if err != nil {
+				skip.add(err)
+				continue
+			}
 			if err := fn(time.Unix(0, at), v); err != nil {
 				return err
 			}
 		}
 		return nil
 	})
+	if err != nil {
+		return err
+	}
+	return skip.err()
 }
 
 // Tickets calls fn with every stored ticket, in id order. The bytes are
-// valid only during the call.
+// valid only during the call. Tickets that fail their checksum are
+// skipped and counted in a *SkippedError returned at the end.
 func (db *DB) Tickets(fn func(id string, data []byte) error) error {
-	return db.bolt.View(func(tx *bolt.Tx) error {
-		b := tx.Bucket(bucketTickets)
-		if b == nil {
-			return nil
-		}
-		return b.ForEach(func(k, v []byte) error { return fn(string(k), v) })
-	})
+	return db.forEachSealed(bucketTickets, "tickets", func(k, v []byte) error { return fn(string(k), v) })
 }
 
 // Outbox returns up to n pending deliveries of lane with Seq > after,
 // oldest first, copied out. Lane 0 holds the items of earlier versions,
 // which stored no lane (keys of 8 bytes: seq); lanes written now are 1
-// to 255.
+// to 255. An item that fails its checksum is left out (OutboxDone
+// removes it) and counted in a *SkippedError returned with the good
+// items.
 func (db *DB) Outbox(lane byte, after uint64, n int) ([]OutboxItem, error) {
 	var out []OutboxItem
+	skip := SkippedError{What: "outbox items"}
 	err := db.bolt.View(func(tx *bolt.Tx) error {
+		out, skip = out[:0], SkippedError{What: "outbox items"}
 		b := tx.Bucket(bucketOutbox)
 		if b == nil {
 			return nil
@@ -214,11 +248,19 @@ func (db *DB) Outbox(lane byte, after uint64, n int) ([]OutboxItem, error) {
 			if kl != lane {
 				break
 			}
+			v, err := unseal(bucketOutbox, k, v)
+			if err != nil {
+				skip.add(fmt.Errorf("outbox item %d of lane %d: %w", binary.BigEndian.Uint64(seq), lane, err))
+				continue
+			}
 			out = append(out, OutboxItem{Lane: lane, Seq: binary.BigEndian.Uint64(seq), Data: append([]byte(nil), v...)})
 		}
 		return nil
 	})
-	return out, err
+	if err != nil {
+		return out, err
+	}
+	return out, skip.err()
 }
 
 // OutboxDone deletes a delivered item. A running service deletes through

@@ -20,9 +20,9 @@ func (db *DB) Applied() (uint64, error) {
 		if b == nil {
 			return nil
 		}
-		v := b.Get(keyApplied)
-		if v == nil {
-			return nil
+		v, err := get(b, bucketStream, keyApplied)
+		if err != nil || v == nil {
+			return err
 		}
 		if len(v) != 8 {
 			return fmt.Errorf("%w: applied count of %d bytes", ErrCorrupt, len(v))

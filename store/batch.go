@@ -3,6 +3,7 @@ package store
 import (
 	"bytes"
 	"encoding/binary"
+	"errors"
 	"fmt"
 	"slices"
 	"time"
@@ -23,6 +24,8 @@ const (
 	opDropPanes               // delete every pane key under prefix key
 	opRestart                 // put key/val into restarts
 	opSeq                     // put key/val into seqs
+	opSetAside                // move the specs and panes of sensor key (and its restart if val is 1) into set-aside
+	opSkip                    // nothing: an op of a sensor set aside at Commit
 )
 
 // span locates bytes in the batch's buffer. Offsets, not slices, because
@@ -55,6 +58,12 @@ type Batch struct {
 
 	alerts     []AlertWrite
 	outboxDone []OutboxItem // Lane and Seq of delivered items
+
+	// setAside are the sensors Sensor refused to snapshot since the
+	// last commit; scratch holds one sensor per set of window specs, to
+	// check panes with the very decoder Restore uses.
+	setAside []*SensorError
+	scratch  map[string]*rolling.Sensor
 }
 
 // Sensor snapshots the panes of s changed since the last snapshot, the
@@ -71,10 +80,20 @@ type Batch struct {
 // changes live only in this Batch. Retry Commit with the same Batch, or
 // stop and restore from the file (and replay from its position); never
 // Reset a failed batch and carry on.
+//
+// Every pane is checked as Restore will check it (rolling.LoadPane). A
+// sensor with a pane Restore would refuse (a sum grown infinite, say) is
+// left out of the batch whole, its stream sequence (SetSeq) too, and not
+// marked saved: the file keeps its last good state, the rest of the
+// commit lands, and Commit reports the sensor in CommitStats.SetAside. Its changes stay pending, so a later
+// snapshot writes them all once the bad pane has left its windows.
+// Until then a restart restores the sensor as it was at its last good
+// commit. Sensor returns an error only for an invalid id.
 func (b *Batch) Sensor(id string, s *rolling.Sensor) error {
 	if err := checkID(id); err != nil {
 		return err
 	}
+	mark, nops := len(b.buf), len(b.ops)
 	// A sensor saved before has its specs in the file (or in the batch
 	// of a commit still to come), and stored panes can have left its
 	// windows only where its horizon moved: the rest would be a lookup
@@ -93,7 +112,48 @@ func (b *Batch) Sensor(id string, s *rolling.Sensor) error {
 	s.HorizonMoved(func(width time.Duration, oldest int64) {
 		b.addHorizon(id, width, oldest)
 	})
+	if err := b.checkPanes(s, b.ops[nops:]); err != nil {
+		b.buf, b.ops = b.buf[:mark], b.ops[:nops]
+		b.setAside = append(b.setAside, &SensorError{Sensor: id, Err: err})
+		return nil
+	}
 	s.MarkSaved()
+	return nil
+}
+
+// checkPanes loads the panes put by ops into a scratch sensor with the
+// windows of s, and returns the first refusal.
+func (b *Batch) checkPanes(s *rolling.Sensor, ops []op) error {
+	var sig [64]byte
+	key := appendSpecs(sig[:0], s.Windows(), s.Spec)
+	scratch := b.scratch[string(key)]
+	if scratch == nil {
+		specs := make([]rolling.WindowSpec, s.Windows())
+		for i := range specs {
+			specs[i] = s.Spec(i)
+		}
+		var err error
+		if scratch, err = rolling.NewSensor(specs...); err != nil {
+			return err
+		}
+		if b.scratch == nil {
+			b.scratch = map[string]*rolling.Sensor{}
+		}
+		b.scratch[string(key)] = scratch
+	}
+	for i := range ops {
+		if ops[i].kind != opPane {
+			continue
+		}
+		_, pk, err := splitPaneKey(b.bytes(ops[i].key))
+		if err == nil {
+			err = scratch.LoadPane(pk, b.bytes(ops[i].val))
+		}
+		// A pane older than the scratch sensor's last one decoded fine.
+		if err != nil && !errors.Is(err, rolling.ErrTooOld) {
+			return err
+		}
+	}
 	return nil
 }
 
@@ -102,6 +162,22 @@ func (b *Batch) addHorizon(id string, width time.Duration, oldest int64) {
 	val := b.appendKey(func(dst []byte) []byte { return appendInt(dst, oldest) })
 	b.ops = append(b.ops, op{kind: opHorizon, key: key, val: val})
 }
+
+// addSetAside queues the move of sensor id's stored specs and panes,
+// and its restart time if withRestart, into the set-aside bucket.
+func (b *Batch) addSetAside(id string, withRestart bool) {
+	o := op{kind: opSetAside, key: b.appendKey(func(dst []byte) []byte { return append(dst, id...) })}
+	if withRestart {
+		o.val = b.appendKey(func(dst []byte) []byte { return append(dst, 1) })
+	}
+	b.ops = append(b.ops, o)
+}
+
+// batchMark is a point to roll a batch back to.
+type batchMark struct{ buf, ops int }
+
+func (b *Batch) mark() batchMark  { return batchMark{len(b.buf), len(b.ops)} }
+func (b *Batch) undo(m batchMark) { b.buf, b.ops = b.buf[:m.buf], b.ops[:m.ops] }
 
 func (b *Batch) addDelete(key []byte) {
 	b.ops = append(b.ops, op{kind: opDelete, key: b.appendKey(func(dst []byte) []byte { return append(dst, key...) })})
@@ -234,6 +310,8 @@ func (b *Batch) Len() int { return len(b.ops) + len(b.alerts) + len(b.outboxDone
 // Reset empties the batch, keeping its memory.
 func (b *Batch) Reset() {
 	b.buf, b.ops = b.buf[:0], b.ops[:0]
+	clear(b.setAside)
+	b.setAside = b.setAside[:0]
 	b.pos, b.hasPos = 0, false
 	b.applied, b.hasApplied = 0, false
 	clear(b.alerts)
@@ -253,6 +331,13 @@ type CommitStats struct {
 	// Outbox lists the outbox items the commit stored, with their Seq;
 	// the data are copies, valid after the commit.
 	Outbox []OutboxItem
+
+	// SetAside lists the sensors left out of the commit because their
+	// state could not be stored as Restore would read it back (see
+	// Batch.Sensor), each with the reason. The rest of the commit landed.
+	SetAside []*SensorError
+
+	seal sealer
 }
 
 // Commit writes the batches in one bbolt transaction (with fsync unless
@@ -266,14 +351,20 @@ type CommitStats struct {
 // ends, as bbolt requires; that is why a batch is not reused until then.
 func (db *DB) Commit(bs ...*Batch) (CommitStats, error) {
 	empty := true
+	var setAside []*SensorError
 	for _, b := range bs {
 		if b.Len() > 0 || b.hasPos || b.hasApplied {
 			empty = false
 		}
+		setAside = append(setAside, b.setAside...)
 	}
 	if empty {
-		return CommitStats{}, nil
+		for _, b := range bs {
+			b.Reset()
+		}
+		return CommitStats{SetAside: setAside}, nil
 	}
+	skipSeqs(bs, setAside)
 	var st CommitStats
 	err := db.bolt.Update(func(tx *bolt.Tx) error {
 		st = CommitStats{}
@@ -293,7 +384,28 @@ func (db *DB) Commit(bs ...*Batch) (CommitStats, error) {
 	for _, b := range bs {
 		b.Reset()
 	}
+	st.seal, st.SetAside = sealer{}, setAside
 	return st, nil
+}
+
+// skipSeqs drops the stream sequences (SetSeq) of the sensors set aside:
+// their stored state stays at an older sequence, and storing the new one
+// would make a restart skip messages that state never held.
+func skipSeqs(bs []*Batch, setAside []*SensorError) {
+	if len(setAside) == 0 {
+		return
+	}
+	ids := make(map[string]bool, len(setAside))
+	for _, e := range setAside {
+		ids[e.Sensor] = true
+	}
+	for _, b := range bs {
+		for i := range b.ops {
+			if o := &b.ops[i]; o.kind == opSeq && ids[string(b.bytes(o.key))] {
+				o.kind = opSkip
+			}
+		}
+	}
 }
 
 // opRef names op i of batch b among the batches of one commit.
@@ -320,7 +432,7 @@ func sortedPuts(bs []*Batch) (panes, records []opRef, ok bool) {
 				panes = append(panes, opRef{bi, i})
 			case opRecord:
 				records = append(records, opRef{bi, i})
-			case opDropPanes, opDelete:
+			case opDropPanes, opDelete, opSetAside:
 				return nil, nil, false
 			}
 		}
@@ -386,11 +498,12 @@ func applySorted(tx *bolt.Tx, bs []*Batch, panes, records []opRef, st *CommitSta
 	return nil
 }
 
-// put puts k and v into bk and counts them.
+// put seals v, puts it under k into bk and counts them. Every write of
+// a commit goes through it, so that every value is sealed (seal.go).
 func (st *CommitStats) put(bk *bolt.Bucket, k, v []byte) error {
 	st.Puts++
-	st.Bytes += len(k) + len(v)
-	return bk.Put(k, v)
+	st.Bytes += len(k) + len(v) + sealSize
+	return st.seal.put(bk, k, v)
 }
 
 // paneFill is the panes bucket's fill of split pages: a sensor's new
@@ -421,7 +534,8 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats, putsDone bool) error {
 				err = put(panes, key, val)
 			}
 		case opSpecs:
-			if !bytes.Equal(sensors.Get(key), val) {
+			// A stored value that fails its seal is simply replaced.
+			if old, gerr := get(sensors, bucketSensors, key); gerr != nil || !bytes.Equal(old, val) {
 				err = put(sensors, key, val)
 			}
 		case opHorizon:
@@ -444,6 +558,10 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats, putsDone bool) error {
 		case opDelete:
 			st.Deletes++
 			err = panes.Delete(key)
+		case opSetAside:
+			var n int
+			n, err = setAside(tx, st, key, len(val) == 1)
+			st.Deletes += n
 		case opRestart:
 			var bk *bolt.Bucket
 			if bk, err = tx.CreateBucketIfNotExists(bucketRestarts); err == nil {
@@ -512,4 +630,56 @@ func deleteBelow(c *bolt.Cursor, prefix []byte, oldest int64) (int, error) {
 		}
 		n++
 	}
+}
+
+// bucketSetAside keeps, for forensics, the stored state of sensors whose
+// state could not be trusted (Restored.SetAside): id 0x00 bucket name
+// 0x00 original key → the bytes as they were found. Made with its first
+// key; DropSensor empties a sensor's part.
+var bucketSetAside = []byte("set-aside")
+
+func appendSetAsideKey(dst []byte, id string, bucket, key []byte) []byte {
+	dst = appendIDPrefix(dst, id)
+	dst = append(dst, bucket...)
+	return append(append(dst, sep), key...)
+}
+
+// setAside moves the window specs and panes of sensor id, and its
+// restart time if withRestart, into the set-aside bucket, and returns
+// the count of keys moved.
+func setAside(tx *bolt.Tx, st *CommitStats, id []byte, withRestart bool) (int, error) {
+	dst, err := tx.CreateBucketIfNotExists(bucketSetAside)
+	if err != nil {
+		return 0, err
+	}
+	n := 0
+	move := func(name, key []byte, prefix bool) error {
+		bk := tx.Bucket(name)
+		if bk == nil {
+			return nil
+		}
+		c := bk.Cursor()
+		for k, v := c.Seek(key); k != nil && (bytes.Equal(k, key) || prefix && bytes.HasPrefix(k, key)); k, v = c.Seek(key) {
+			if err := st.put(dst, appendSetAsideKey(nil, string(id), name, k), v); err != nil {
+				return err
+			}
+			if err := c.Delete(); err != nil {
+				return err
+			}
+			n++
+		}
+		return nil
+	}
+	if err := move(bucketSensors, id, false); err != nil {
+		return n, err
+	}
+	if err := move(bucketPanes, appendIDPrefix(nil, string(id)), true); err != nil {
+		return n, err
+	}
+	if withRestart {
+		if err := move(bucketRestarts, id, false); err != nil {
+			return n, err
+		}
+	}
+	return n, nil
 }

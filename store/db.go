@@ -14,8 +14,9 @@ import (
 
 // SchemaVersion is the layout of buckets and keys this build reads and
 // writes. Adding a bucket does not change it; changing a key layout does.
-// Value encodings carry their own format byte.
-const SchemaVersion = 1
+// Value encodings carry their own format byte. Version 2 seals every
+// value with a checksum (seal.go) and files the time index by day.
+const SchemaVersion = 2
 
 // Bucket names (see doc.go). The names "alerts", "tickets" and "outbox"
 // are reserved for alert state, tickets and the webhook outbox and are
@@ -93,6 +94,9 @@ func Open(path string, opts Options) (*DB, error) {
 	case opts.LockTimeout == 0:
 		opts.LockTimeout = DefaultOptions().LockTimeout
 	}
+	if err := checkFile(path); err != nil {
+		return nil, err
+	}
 	bdb, err := bolt.Open(path, 0o600, &bolt.Options{
 		Timeout:  opts.LockTimeout,
 		ReadOnly: opts.ReadOnly,
@@ -130,8 +134,18 @@ func (db *DB) checkSchema(tx *bolt.Tx) error {
 	if meta != nil {
 		v = meta.Get(keySchema)
 	}
-	if len(v) != 8 {
+	switch len(v) {
+	case 8:
+		// Version 1 stored its values without a seal.
+		return fmt.Errorf("%w: %s has schema version %d, this build reads %d: keep the file for the build that wrote it "+
+			"(its history stays readable there) and give this one a new data directory", ErrSchema, db.path, binary.BigEndian.Uint64(v), SchemaVersion)
+	case 8 + sealSize:
+	default:
 		return fmt.Errorf("%w: %s has no driftfit schema version (found 0, this build reads %d)", ErrSchema, db.path, SchemaVersion)
+	}
+	v, err := unseal(bucketMeta, keySchema, v)
+	if err != nil {
+		return fmt.Errorf("%w: %s: schema version: %w", ErrSchema, db.path, err)
 	}
 	if got := binary.BigEndian.Uint64(v); got != SchemaVersion {
 		return fmt.Errorf("%w: %s has schema version %d, this build reads %d", ErrSchema, db.path, got, SchemaVersion)
@@ -175,7 +189,8 @@ func (db *DB) initSchema(tx *bolt.Tx) error {
 		if err != nil {
 			return fmt.Errorf("store: init %s: %w", db.path, err)
 		}
-		if err := meta.Put(keySchema, binary.BigEndian.AppendUint64(nil, SchemaVersion)); err != nil {
+		var sl sealer
+		if err := sl.put(meta, keySchema, binary.BigEndian.AppendUint64(nil, SchemaVersion)); err != nil {
 			return fmt.Errorf("store: init %s: %w", db.path, err)
 		}
 	}
@@ -216,9 +231,9 @@ func (db *DB) Position() (uint64, error) {
 		if b == nil {
 			return nil
 		}
-		v := b.Get(keyPosition)
-		if v == nil {
-			return nil
+		v, err := get(b, bucketStream, keyPosition)
+		if err != nil || v == nil {
+			return err
 		}
 		if len(v) != 8 {
 			return fmt.Errorf("%w: stream position of %d bytes", ErrCorrupt, len(v))

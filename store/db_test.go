@@ -133,13 +133,17 @@ func writeBolt(t *testing.T, path string, data map[string]map[string][]byte) {
 
 func TestOpen_SchemaRefused(t *testing.T) {
 	v99 := binary.BigEndian.AppendUint64(nil, 99)
+	// Schema 1 stored the version as 8 bare bytes, as every value, with
+	// no checksum.
+	v1 := binary.BigEndian.AppendUint64(nil, 1)
 	for _, tc := range []struct {
 		name string
 		data map[string]map[string][]byte
 		want []string
 	}{
-		{"newer version", map[string]map[string][]byte{"meta": {"schema": v99}}, []string{"version 99", "reads 1"}},
-		{"foreign file", map[string]map[string][]byte{"users": {"ann": []byte("x")}}, []string{"users", "found 0", "reads 1"}},
+		{"newer version", map[string]map[string][]byte{"meta": {"schema": v99}}, []string{"version 99", "reads 2"}},
+		{"schema 1", map[string]map[string][]byte{"meta": {"schema": v1}, "panes": {"a": []byte("x")}}, []string{"version 1,", "reads 2", "new data directory"}},
+		{"foreign file", map[string]map[string][]byte{"users": {"ann": []byte("x")}}, []string{"users", "found 0", "reads 2"}},
 		{"short version", map[string]map[string][]byte{"meta": {"schema": {1}}}, []string{"found 0"}},
 	} {
 		t.Run(tc.name, func(t *testing.T) {

@@ -28,6 +28,11 @@ type HistoryRecord struct {
 // must not call the DB's writing methods (a commit that grows the file
 // waits for the read to end). An error from fn stops the walk and is
 // returned as it is.
+//
+// A record that fails its checksum or does not decode is never handed
+// to fn: the walk goes on without it and then returns a *SkippedError
+// counting what was left out (matching ErrCorrupt), after fn has seen
+// every good record.
 func (db *DB) History(sensor string, window rolling.WindowSpec, since, until time.Time, fn func(HistoryRecord) error) error {
 	if err := checkID(sensor); err != nil {
 		return err
@@ -41,7 +46,9 @@ func (db *DB) History(sensor string, window rolling.WindowSpec, since, until tim
 		hi = unixNano(until)
 	}
 	var fnErr error
+	skip := SkippedError{What: "fit records"}
 	err := db.bolt.View(func(tx *bolt.Tx) error {
+		skip = SkippedError{What: "fit records"}
 		bk := tx.Bucket(bucketHistory)
 		if bk == nil {
 			return nil
@@ -55,7 +62,12 @@ func (db *DB) History(sensor string, window rolling.WindowSpec, since, until tim
 			var next []byte
 			for k, _ := c.Seek(sp); k != nil && bytes.HasPrefix(k, sp); k, _ = c.Seek(next) {
 				if len(k) != len(sp)+historySuffix-1 {
-					return fmt.Errorf("%w: history key %x", ErrCorrupt, k)
+					skip.add(fmt.Errorf("%w: history key %x", ErrCorrupt, k))
+					if k, _ = c.Next(); k == nil || !bytes.HasPrefix(k, sp) {
+						break
+					}
+					next = append(next[:0], k...)
+					continue
 				}
 				p := bytes.Clone(k[:len(sp)+16])
 				prefixes = append(prefixes, p)
@@ -86,7 +98,10 @@ func (db *DB) History(sensor string, window rolling.WindowSpec, since, until tim
 					continue
 				}
 				if len(h.k) != len(h.prefix)+8 {
-					return fmt.Errorf("%w: history key %x", ErrCorrupt, h.k)
+					skip.add(fmt.Errorf("%w: history key %x", ErrCorrupt, h.k))
+					h.k, h.v = h.c.Next()
+					i--
+					continue
 				}
 				t := readInt(h.k[len(h.prefix):])
 				if bounded && t >= hi {
@@ -101,14 +116,17 @@ func (db *DB) History(sensor string, window rolling.WindowSpec, since, until tim
 			}
 			h := &heads[best]
 			_, ws, _, err := splitHistoryKey(h.k)
+			var v []byte
+			if err == nil {
+				v, err = unseal(bucketHistory, h.k, h.v)
+			}
+			if err == nil {
+				rec.Solution.Window = ws
+				err = decodeRecord(v, &rec.Solution)
+			}
 			if err != nil {
-				return err
-			}
-			rec.Solution.Window = ws
-			if err := decodeRecord(h.v, &rec.Solution); err != nil {
-				return fmt.Errorf("sensor %s window %v time %d: %w", sensor, ws.Span, bestT, err)
-			}
-			if fnErr = fn(rec); fnErr != nil {
+				skip.add(fmt.Errorf("sensor %s time %d: %w", sensor, bestT, err))
+			} else if fnErr = fn(rec); fnErr != nil {
 				return fnErr
 			}
 			h.k, h.v = h.c.Next()
@@ -120,25 +138,38 @@ func (db *DB) History(sensor string, window rolling.WindowSpec, since, until tim
 	if err != nil {
 		return fmt.Errorf("store: history of %s: %w", sensor, err)
 	}
-	return nil
+	return skip.err()
 }
 
 // HistorySensors calls fn with each sensor id that has fit records, in
 // byte order. An error from fn stops the walk and is returned as it is;
-// fn must not call the DB's writing methods.
+// fn must not call the DB's writing methods. A sensor is named only
+// from a key whose record passes its checksum, so a damaged key names
+// no sensor; keys passed over so are counted in a *SkippedError returned
+// at the end.
 func (db *DB) HistorySensors(fn func(id string) error) error {
 	var fnErr error
+	skip := SkippedError{What: "fit records"}
 	err := db.bolt.View(func(tx *bolt.Tx) error {
+		skip = SkippedError{What: "fit records"}
 		bk := tx.Bucket(bucketHistory)
 		if bk == nil {
 			return nil
 		}
 		c := bk.Cursor()
 		var next []byte
-		for k, _ := c.First(); k != nil; k, _ = c.Seek(next) {
+		for k, v := c.First(); k != nil; k, v = c.Seek(next) {
 			id, _, _, err := splitHistoryKey(k)
+			if err == nil {
+				_, err = unseal(bucketHistory, k, v)
+			}
 			if err != nil {
-				return err
+				skip.add(err)
+				if k, _ = c.Next(); k == nil {
+					break
+				}
+				next = append(next[:0], k...)
+				continue
 			}
 			if fnErr = fn(string(id)); fnErr != nil {
 				return fnErr
@@ -155,7 +186,7 @@ func (db *DB) HistorySensors(fn func(id string) error) error {
 	if err != nil {
 		return fmt.Errorf("store: list history sensors: %w", err)
 	}
-	return nil
+	return skip.err()
 }
 
 // PruneHistory deletes up to maxDeletes fit records older than before

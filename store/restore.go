@@ -39,6 +39,18 @@ type Restored struct {
 	// window, or of a width no window has any more. Restore deletes them
 	// from the file, unless it was opened read-only.
 	Panes, Dropped int
+
+	// SetAside, when not nil, says the sensor's stored state could not
+	// be trusted (a value failed its checksum, a pane did not decode)
+	// and why; it names the sensor and matches ErrSetAside. Sensor is
+	// then a fresh one from newSensor, not marked saved, holding nothing
+	// of the stored state, and Restart is kept only if it was readable.
+	// Seq is 0: the fresh sensor takes every message after the stored
+	// position. Unless the file is read-only, Restore moved the sensor's window
+	// specs and panes out of the way, into the "set-aside" bucket, so
+	// they never mix with what the fresh sensor writes; DropSensor
+	// deletes them. Log it: the sensor's windows start empty.
+	SetAside *SensorError
 }
 
 // Restore rebuilds every stored sensor, in id order: newSensor makes the
@@ -56,9 +68,12 @@ type Restored struct {
 // concurrent use; fn is called from the caller's goroutine.
 //
 // An error from newSensor or fn stops the restore and is returned
-// wrapped with the sensor id; so is a pane that does not decode
-// (wrapping rolling.ErrBadPane): a restore never skips stored state it
-// cannot read.
+// wrapped with the sensor id. A sensor whose stored state cannot be
+// trusted — a value that fails its checksum, window specs or a restart
+// time that do not decode, a pane LoadPane refuses (rolling.ErrBadPane)
+// — does not stop the restore: it is set aside (Restored.SetAside) and
+// handed to fn fresh, so one damaged sensor never holds up the rest and
+// nothing it stored is ever used.
 func (db *DB) Restore(newSensor func(id string) (*rolling.Sensor, error), fn func(Restored) error) error {
 	bounds, err := db.restoreBounds(runtime.GOMAXPROCS(0))
 	if err != nil {
@@ -152,8 +167,8 @@ func (sh *restoreShard) load(tx *bolt.Tx, lo, hi []byte, newSensor func(id strin
 		return nil
 	}
 	sc, pc := sensors.Cursor(), panes.Cursor()
-	restarts := tx.Bucket(bucketRestarts) // nil in files that never had one
-	seqs := tx.Bucket(bucketSeqs)         // likewise
+	restarts := tx.Bucket(bucketRestarts)
+	seqs := tx.Bucket(bucketSeqs)
 	var loaded []rolling.PaneKey
 	k, v := sc.First()
 	if lo != nil {
@@ -161,74 +176,150 @@ func (sh *restoreShard) load(tx *bolt.Tx, lo, hi []byte, newSensor func(id strin
 	}
 	for ; k != nil && (hi == nil || bytes.Compare(k, hi) < 0); k, v = sc.Next() {
 		id := string(k)
-		saved, err := decodeSpecs(v)
-		if err != nil {
-			return fmt.Errorf("sensor %s: %w", id, err)
+		restart, bad := readRestart(restarts, k)
+		restartBad := bad != nil
+		var r Restored
+		var err error
+		if !restartBad {
+			mark := sh.cleanup.mark()
+			if r, bad, err = sh.loadOne(id, v, pc, newSensor, &loaded); err != nil {
+				return err
+			}
+			r.Restart = restart
+			if bad == nil {
+				r.Seq, bad = readSeq(seqs, k)
+			}
+			if bad != nil {
+				sh.cleanup.undo(mark)
+			}
 		}
-		s, err := newSensor(id)
-		if err != nil {
-			return fmt.Errorf("sensor %s: %w", id, err)
+		if bad != nil {
+			if r, err = sh.setAside(id, restart, restartBad, bad, newSensor); err != nil {
+				return err
+			}
 		}
-		if s == nil {
+		if r.Sensor == nil {
 			continue
-		}
-		r := Restored{ID: id, Sensor: s, Saved: saved, Changed: s.Windows() != len(saved)}
-		if restarts != nil {
-			if v := restarts.Get(k); v != nil {
-				if len(v) != 8 {
-					return fmt.Errorf("sensor %s: %w: restart time of %d bytes", id, ErrCorrupt, len(v))
-				}
-				r.Restart = readInt(v)
-			}
-		}
-		if seqs != nil {
-			if v := seqs.Get(k); v != nil {
-				if len(v) != 8 {
-					return fmt.Errorf("sensor %s: %w: stream sequence of %d bytes", id, ErrCorrupt, len(v))
-				}
-				r.Seq = binary.BigEndian.Uint64(v)
-			}
-		}
-		for i := 0; i < s.Windows() && !r.Changed; i++ {
-			r.Changed = s.Spec(i) != saved[i]
-		}
-		prefix := appendIDPrefix(nil, id)
-		loaded = loaded[:0]
-		for pk, pv := pc.Seek(prefix); pk != nil && bytes.HasPrefix(pk, prefix); pk, pv = pc.Next() {
-			_, key, err := splitPaneKey(pk)
-			if err != nil {
-				return fmt.Errorf("sensor %s: %w", id, err)
-			}
-			switch err := s.LoadPane(key, pv); {
-			case err == nil:
-				loaded = append(loaded, key)
-			case errors.Is(err, rolling.ErrTooOld) || errors.Is(err, rolling.ErrBadSpec):
-				r.Dropped++
-				sh.cleanup.addDelete(pk)
-			default:
-				return fmt.Errorf("sensor %s pane %v/%d: %w", id, key.Width, key.Index, err)
-			}
-		}
-		// Loading a newer pane slides the older ones out of the ring, so
-		// panes loaded in key order may since have left every window.
-		r.Panes = len(loaded)
-		s.Horizon(func(width time.Duration, oldest int64) {
-			stale := 0
-			for _, key := range loaded {
-				if key.Width == width && key.Index < oldest {
-					stale++
-				}
-			}
-			if stale > 0 {
-				r.Panes -= stale
-				r.Dropped += stale
-				sh.cleanup.addHorizon(id, width, oldest)
-			}
-		})
-		if !r.Changed {
-			s.MarkSaved() // the file holds its specs and, after cleanup, its horizon
 		}
 		sh.out = append(sh.out, r)
 	}
 	return nil
+}
+
+// loadOne rebuilds sensor id from its stored specs v and its panes. A
+// nil Sensor with no error means newSensor left the sensor out; bad is
+// a reason not to trust the stored state, err one to stop the restore.
+func (sh *restoreShard) loadOne(id string, v []byte, pc *bolt.Cursor,
+	newSensor func(id string) (*rolling.Sensor, error), loaded *[]rolling.PaneKey) (r Restored, bad, err error) {
+	r.ID = id
+	if v, bad = unseal(bucketSensors, []byte(id), v); bad != nil {
+		return r, bad, nil
+	}
+	saved, bad := decodeSpecs(v)
+	if bad != nil {
+		return r, bad, nil
+	}
+	s, err := newSensor(id)
+	if err != nil || s == nil {
+		if err != nil {
+			err = fmt.Errorf("sensor %s: %w", id, err)
+		}
+		return r, nil, err
+	}
+	r.Sensor, r.Saved, r.Changed = s, saved, s.Windows() != len(saved)
+	for i := 0; i < s.Windows() && !r.Changed; i++ {
+		r.Changed = s.Spec(i) != saved[i]
+	}
+	prefix := appendIDPrefix(nil, id)
+	*loaded = (*loaded)[:0]
+	for pk, pv := pc.Seek(prefix); pk != nil && bytes.HasPrefix(pk, prefix); pk, pv = pc.Next() {
+		_, key, err := splitPaneKey(pk)
+		if err != nil {
+			return r, err, nil
+		}
+		if pv, err = unseal(bucketPanes, pk, pv); err != nil {
+			return r, err, nil
+		}
+		switch err := s.LoadPane(key, pv); {
+		case err == nil:
+			*loaded = append(*loaded, key)
+		case errors.Is(err, rolling.ErrTooOld) || errors.Is(err, rolling.ErrBadSpec):
+			r.Dropped++
+			sh.cleanup.addDelete(pk)
+		default:
+			return r, fmt.Errorf("pane %v/%d: %w", key.Width, key.Index, err), nil
+		}
+	}
+	// Loading a newer pane slides the older ones out of the ring, so
+	// panes loaded in key order may since have left every window.
+	r.Panes = len(*loaded)
+	s.Horizon(func(width time.Duration, oldest int64) {
+		stale := 0
+		for _, key := range *loaded {
+			if key.Width == width && key.Index < oldest {
+				stale++
+			}
+		}
+		if stale > 0 {
+			r.Panes -= stale
+			r.Dropped += stale
+			sh.cleanup.addHorizon(id, width, oldest)
+		}
+	})
+	if !r.Changed {
+		s.MarkSaved() // the file holds its specs and, after cleanup, its horizon
+	}
+	return r, nil, nil
+}
+
+// readRestart reads the restart time of sensor k; 0 when it has none.
+func readRestart(restarts *bolt.Bucket, k []byte) (int64, error) {
+	if restarts == nil { // files that never had one
+		return 0, nil
+	}
+	v, err := get(restarts, bucketRestarts, k)
+	switch {
+	case err != nil:
+		return 0, err
+	case v == nil:
+		return 0, nil
+	case len(v) != 8:
+		return 0, fmt.Errorf("%w: restart time of %d bytes", ErrCorrupt, len(v))
+	}
+	return readInt(v), nil
+}
+
+// readSeq reads the stream sequence of sensor k; 0 when it has none.
+func readSeq(seqs *bolt.Bucket, k []byte) (uint64, error) {
+	if seqs == nil { // files that never had one
+		return 0, nil
+	}
+	v, err := get(seqs, bucketSeqs, k)
+	switch {
+	case err != nil:
+		return 0, err
+	case v == nil:
+		return 0, nil
+	case len(v) != 8:
+		return 0, fmt.Errorf("%w: stream sequence of %d bytes", ErrCorrupt, len(v))
+	}
+	return binary.BigEndian.Uint64(v), nil
+}
+
+// setAside makes the fresh sensor that replaces one whose stored state
+// is not trusted, and queues the move of that state out of the way: its
+// specs and panes, and its restart time if that was what failed (a good
+// one stays, so the sensor goes on refusing readings from before its
+// last calibration). A nil Sensor means newSensor left it out.
+func (sh *restoreShard) setAside(id string, restart int64, restartBad bool, why error,
+	newSensor func(id string) (*rolling.Sensor, error)) (Restored, error) {
+	s, err := newSensor(id)
+	if err != nil {
+		return Restored{}, fmt.Errorf("sensor %s: %w", id, err)
+	}
+	if s == nil {
+		return Restored{}, nil
+	}
+	sh.cleanup.addSetAside(id, restartBad)
+	return Restored{ID: id, Sensor: s, Restart: restart, SetAside: &SensorError{Sensor: id, Err: why}}, nil
 }
