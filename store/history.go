@@ -94,13 +94,11 @@ func (db *DB) History(sensor string, window rolling.WindowSpec, since, until tim
 			best, bestT := -1, int64(0)
 			for i := range heads {
 				h := &heads[i]
-				if h.k == nil || !bytes.HasPrefix(h.k, h.prefix) {
-					continue
-				}
-				if len(h.k) != len(h.prefix)+8 {
+				for h.k != nil && bytes.HasPrefix(h.k, h.prefix) && len(h.k) != len(h.prefix)+8 {
 					skip.add(fmt.Errorf("%w: history key %x", ErrCorrupt, h.k))
 					h.k, h.v = h.c.Next()
-					i--
+				}
+				if h.k == nil || !bytes.HasPrefix(h.k, h.prefix) {
 					continue
 				}
 				t := readInt(h.k[len(h.prefix):])

@@ -1,6 +1,7 @@
 package store
 
 import (
+	"bytes"
 	"encoding/binary"
 	"fmt"
 	"hash/crc32"
@@ -36,12 +37,10 @@ func appendSealed(dst, key, val []byte) []byte {
 // unseal checks the seal of v, stored under key in bucket, and returns
 // the value without it. The result aliases v.
 func unseal(bucket, key, v []byte) ([]byte, error) {
-	if len(v) < sealSize {
-		return nil, &ChecksumError{Bucket: string(bucket), Key: key, Size: len(v)}
-	}
 	n := len(v) - sealSize
-	if binary.LittleEndian.Uint32(v[n:]) != sealSum(key, v[:n]) {
-		return nil, &ChecksumError{Bucket: string(bucket), Key: key, Size: len(v)}
+	if n < 0 || binary.LittleEndian.Uint32(v[n:]) != sealSum(key, v[:n]) {
+		// The key may live in the mapped file: the error outlives it.
+		return nil, &ChecksumError{Bucket: string(bucket), Key: bytes.Clone(key), Size: len(v)}
 	}
 	return v[:n:n], nil
 }
