@@ -51,6 +51,7 @@ func init() {
 		{"tickets", "list recalibration tickets", runTickets},
 		{"calibrated", "record a sensor's calibration (as-found, as-left) with the running service", runCalibrated},
 		{"bench", "measure throughput, latency, memory and restart against the bare bus", runBench},
+		{"drop-sensor", "delete one sensor's stored state (not its history) while serve is stopped", runDropSensor},
 	}
 }
 
