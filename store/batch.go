@@ -221,9 +221,7 @@ func (b *Batch) Record(id string, sol *rolling.Solution) error {
 		b.buf, b.ops = b.buf[:mark], b.ops[:nops]
 		return fmt.Errorf("store: record for %s window %v: %w", id, sol.Window.Span, err)
 	}
-	o.key2 = b.appendKey(func(dst []byte) []byte {
-		return appendWindowPrefix(appendInt(dst, t), id, sol.Window)
-	})
+	o.key2 = b.appendKey(func(dst []byte) []byte { return appendDayKey(dst, t, id, sol.Window) })
 	b.ops = append(b.ops, o)
 	return nil
 }
@@ -460,7 +458,7 @@ func applySorted(tx *bolt.Tx, bs []*Batch, panes, records []opRef, st *CommitSta
 	if pb == nil || hist == nil || htime == nil {
 		return fmt.Errorf("%w: buckets missing", ErrCorrupt)
 	}
-	pb.FillPercent = paneFill
+	pb.FillPercent, hist.FillPercent, htime.FillPercent = paneFill, historyFill, paneFill
 	put := st.put
 	var seqs *bolt.Bucket
 	for _, r := range panes {
@@ -485,8 +483,14 @@ func applySorted(tx *bolt.Tx, bs []*Batch, panes, records []opRef, st *CommitSta
 		}
 	}
 	slices.SortStableFunc(records, func(x, y opRef) int { return bytes.Compare(key2Of(bs, x), key2Of(bs, y)) })
+	var last []byte
 	for _, r := range records {
-		if err := put(htime, key2Of(bs, r), nil); err != nil {
+		k := key2Of(bs, r)
+		if bytes.Equal(k, last) {
+			continue
+		}
+		last = k
+		if err := st.putDay(htime, k); err != nil {
 			return err
 		}
 	}
@@ -506,10 +510,28 @@ func (st *CommitStats) put(bk *bolt.Bucket, k, v []byte) error {
 	return st.seal.put(bk, k, v)
 }
 
+// putDay puts a key of the day index unless it is there: one sensor
+// window's records of a day share it, and a put of an existing key would
+// still rewrite its page.
+func (st *CommitStats) putDay(bk *bolt.Bucket, k []byte) error {
+	if bk.Get(k) != nil {
+		return nil
+	}
+	return st.put(bk, k, nil)
+}
+
 // paneFill is the panes bucket's fill of split pages: a sensor's new
 // panes land just after its older ones, so a split page rarely takes
-// more keys on its left.
+// more keys on its left. The day index, whose new keys come at its end,
+// fills the same way.
 const paneFill = 0.95
+
+// historyFill is the history bucket's fill of split pages. A window's
+// records are appended after its older ones and never inserted before
+// them, so the left page of a split takes no more keys: bbolt's default
+// of 50% left history pages about half empty (measured with
+// BenchmarkHistorySize: see the README's sizing table).
+const historyFill = 0.95
 
 // apply writes the batch's ops in order; with putsDone, its pane puts
 // and records were written already (applySorted).
@@ -522,6 +544,7 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats, putsDone bool) error {
 	if sensors == nil || panes == nil || hist == nil || htime == nil {
 		return fmt.Errorf("%w: buckets missing", ErrCorrupt)
 	}
+	hist.FillPercent, htime.FillPercent = historyFill, paneFill
 	var cur *bolt.Cursor
 	put := st.put
 	for i := range b.ops {
@@ -580,7 +603,7 @@ func (b *Batch) apply(tx *bolt.Tx, st *CommitStats, putsDone bool) error {
 				break
 			}
 			if err = put(hist, key, val); err == nil {
-				err = put(htime, b.bytes(o.key2), nil)
+				err = st.putDay(htime, b.bytes(o.key2))
 			}
 		}
 		if err != nil {

@@ -13,8 +13,11 @@ import (
 // Every stored value starts with a format byte, so an encoding can change
 // without a schema bump: a reader refuses a format it does not know.
 const (
-	specsFormat  = 1
-	recordFormat = 1
+	specsFormat = 1
+	// recordFormat is what appendRecord writes; decodeRecord also reads
+	// recordFormat1.
+	recordFormat  = 2
+	recordFormat1 = 1
 )
 
 // maxWindows bounds the window count of a specs value, so a corrupt
@@ -118,27 +121,39 @@ func fitFloatPtrs(f *rolling.Fit) [fitFloats]*float64 {
 }
 
 // pairsSlot is the index in fitFloatPtrs of Pairs, stored as a float64
-// (exact for any count below 2⁵³) so that format 1 keeps its layout.
+// (exact for any count below 2⁵³) so that format 1 keeps its layout;
+// format 2 stores it as a uvarint.
 const pairsSlot = fitFloats - 1
 
 // appendRecord encodes a solution (everything but Window, which the key
-// holds) in record format 1:
+// holds) in record format 2:
 //
 //	format byte
 //	flags byte: First tag (bits 0–1), Last tag (bits 2–3), tagZero or tagExplicit
 //	varint Panes, Filled, N; [varint First ns]; [varint Last ns]
 //	three fits (Line, Parabola, Exp slots), each:
 //	  model byte, error code byte,
-//	  flags byte: PosDef (bit 0), First tag (bits 1–2), Last tag (bits 3–4)
+//	  flags byte: PosDef (bit 0), First tag (bits 1–2), Last tag (bits 3–4),
+//	    SE derived (bit 6), CI derived (bit 7)
 //	  varint N, Excluded, DF; [varint First ns]; [varint Last ns]
-//	  uint32 LE bitmap of the 27 float slots whose bits are not zero,
-//	  then those floats as IEEE 754 bits, uint64 LE.
+//	  uint32 LE: bits 0–26 the float slots (fitFloatPtrs order) stored;
+//	    bit 27: TCrit is the Line fit's, bit 28: Cond is the Line fit's
+//	  then the slots stored, each a float's IEEE 754 bits, uint64 LE,
+//	  except the covariance's lower half: Cov[j][i] (j > i) as the
+//	  uvarint of its bits XOR those of Cov[i][j], stored when that is
+//	  not zero; and Pairs, as a uvarint.
 //
-// Only non-zero floats are written: a Line fit leaves its third
-// coefficient and covariance row zero and a failed fit nearly all, so a
-// typical record is well under half the fixed-size encoding. Floats are
-// kept as raw bits (including −0 and any NaN) so a record reads back
-// bit for bit.
+// A float is stored only when its bits are not zero and it does not
+// follow from the others. What follows is what rolling computes
+// (rolling/fit.go, finish): SE[i] = √max(Cov[i][i], 0) and CI[i] =
+// Coef[i] ∓ TCrit·SE[i]; the covariance is symmetric, up to the last
+// bits for a parabola, whose two halves come from different sums; the
+// line and exp fits of one window share TCrit and Cond when exp excludes
+// no reading. A field is left out only if recomputing it here gives the
+// stored bits exactly, so every record reads back bit for bit (including
+// −0 and any NaN) whatever rolling did. For a window with all three fits
+// this stores 29 of the 75 floats' 600 bytes as about 250 bytes. Format
+// 1 stored every non-zero float.
 func appendRecord(dst []byte, sol *rolling.Solution) ([]byte, error) {
 	sf, err := timeTag(sol.First, time.Time{}, false, "First")
 	if err != nil {
@@ -154,7 +169,7 @@ func appendRecord(dst []byte, sol *rolling.Solution) ([]byte, error) {
 	dst = binary.AppendVarint(dst, int64(sol.N))
 	dst = appendTime(dst, sf, sol.First)
 	dst = appendTime(dst, sl, sol.Last)
-	for _, f := range [3]*rolling.Fit{&sol.Line, &sol.Parabola, &sol.Exp} {
+	for slot, f := range [3]*rolling.Fit{&sol.Line, &sol.Parabola, &sol.Exp} {
 		code, ok := errCode(f.Err)
 		if !ok {
 			return dst, fmt.Errorf("%w: %v fit error %q is not a rolling fit error", ErrRecord, f.Model, f.Err)
@@ -171,6 +186,8 @@ func appendRecord(dst []byte, sol *rolling.Solution) ([]byte, error) {
 		if f.PosDef {
 			flags |= 1
 		}
+		omit := derivable(f)
+		flags |= omit
 		dst = append(dst, byte(f.Model), code, flags)
 		dst = binary.AppendVarint(dst, int64(f.N))
 		dst = binary.AppendVarint(dst, int64(f.Excluded))
@@ -180,19 +197,121 @@ func appendRecord(dst []byte, sol *rolling.Solution) ([]byte, error) {
 		ptrs := fitFloatPtrs(f)
 		*ptrs[pairsSlot] = float64(f.Pairs)
 		var mask uint32
-		for i, p := range ptrs {
-			if math.Float64bits(*p) != 0 {
+		for i := range ptrs {
+			if storedBits(ptrs, i) != 0 && !omitted(omit, i) {
 				mask |= 1 << i
 			}
 		}
+		if slot > 0 {
+			for _, c := range [...]struct {
+				i   int
+				bit uint32
+			}{{slotTCrit, lineTCrit}, {slotCond, lineCond}} {
+				if bits := math.Float64bits(*ptrs[c.i]); bits != 0 && bits == math.Float64bits(*fitFloatPtrs(&sol.Line)[c.i]) {
+					mask = mask&^(1<<c.i) | c.bit
+				}
+			}
+		}
 		dst = binary.LittleEndian.AppendUint32(dst, mask)
-		for _, p := range ptrs {
-			if bits := math.Float64bits(*p); bits != 0 {
-				dst = binary.LittleEndian.AppendUint64(dst, bits)
+		for i := range ptrs {
+			if mask&(1<<i) == 0 {
+				continue
+			}
+			switch {
+			case i == pairsSlot:
+				dst = binary.AppendUvarint(dst, uint64(f.Pairs))
+			case lowerCov(i):
+				dst = binary.AppendUvarint(dst, storedBits(ptrs, i))
+			default:
+				dst = binary.LittleEndian.AppendUint64(dst, storedBits(ptrs, i))
 			}
 		}
 	}
 	return dst, nil
+}
+
+// Fit flags of format 2 for fields left out.
+const (
+	omitSE = 1 << 6
+	omitCI = 1 << 7
+)
+
+// Mask bits of format 2 beyond the float slots.
+const (
+	lineTCrit = 1 << 27
+	lineCond  = 1 << 28
+)
+
+// Float slots of fitFloatPtrs.
+const (
+	slotSE    = 3  // SE[0..2]
+	slotCI    = 6  // CI[0][0], CI[0][1], …, CI[2][1]
+	slotCov   = 12 // Cov[0][0], Cov[0][1], …, Cov[2][2]
+	slotTCrit = 23
+	slotCond  = 24
+)
+
+// lowerCov reports whether float slot i is below the covariance's
+// diagonal, and mirror gives the slot of its counterpart above it.
+func lowerCov(i int) bool {
+	return i >= slotCov && i < slotCov+9 && (i-slotCov)%3 < (i-slotCov)/3
+}
+
+func mirror(i int) int {
+	r, c := (i-slotCov)/3, (i-slotCov)%3
+	return slotCov + c*3 + r
+}
+
+// storedBits returns what format 2 stores for float slot i of a fit's
+// slots ptrs: the float's bits, or for the covariance's lower half their
+// XOR with the upper's, zero when the two agree.
+func storedBits(ptrs [fitFloats]*float64, i int) uint64 {
+	bits := math.Float64bits(*ptrs[i])
+	if lowerCov(i) {
+		bits ^= math.Float64bits(*ptrs[mirror(i)])
+	}
+	return bits
+}
+
+// omitted reports whether float slot i is left out under the omit flags.
+func omitted(omit byte, i int) bool {
+	return omit&omitSE != 0 && i >= slotSE && i < slotCI || omit&omitCI != 0 && i >= slotCI && i < slotCov
+}
+
+// derive recomputes, in f, the fields the omit flags say follow from
+// the others.
+func derive(f *rolling.Fit, omit byte) {
+	if omit&omitSE != 0 {
+		for i := range 3 {
+			f.SE[i] = math.Sqrt(max(f.Cov[i][i], 0))
+		}
+	}
+	if omit&omitCI != 0 {
+		for i := range 3 {
+			// The conversion keeps the product rounded on its own: Go may
+			// otherwise fuse it into the sum (FMA) on some CPUs, and the
+			// result would depend on where the record is read.
+			h := float64(f.TCrit * f.SE[i])
+			f.CI[i] = [2]float64{f.Coef[i] - h, f.Coef[i] + h}
+		}
+	}
+}
+
+// derivable returns the omit flags under which derive gives back every
+// float of f bit for bit.
+func derivable(f *rolling.Fit) byte {
+	same := func(a, b float64) bool { return math.Float64bits(a) == math.Float64bits(b) }
+	g := *f
+	derive(&g, omitSE|omitCI)
+	if !same(g.SE[0], f.SE[0]) || !same(g.SE[1], f.SE[1]) || !same(g.SE[2], f.SE[2]) {
+		return 0
+	}
+	for i := range 3 {
+		if !same(g.CI[i][0], f.CI[i][0]) || !same(g.CI[i][1], f.CI[i][1]) {
+			return omitSE
+		}
+	}
+	return omitSE | omitCI
 }
 
 // timeTag picks how t is stored. Times are kept as Unix ns and come back
@@ -221,8 +340,9 @@ func appendTime(dst []byte, tag byte, t time.Time) []byte {
 // sol.Window as it is.
 func decodeRecord(b []byte, sol *rolling.Solution) error {
 	d := decoder{b: b, what: "fit record"}
-	if f := d.byte(); d.err == nil && f != recordFormat {
-		return d.fail("format %d", f)
+	format := d.byte()
+	if d.err == nil && format != recordFormat && format != recordFormat1 {
+		return d.fail("format %d", format)
 	}
 	flags := d.byte()
 	if d.err == nil && flags>>4 != 0 {
@@ -244,7 +364,8 @@ func decodeRecord(b []byte, sol *rolling.Solution) error {
 		if int(code) >= len(errCodes) {
 			return d.fail("fit %d: error code %d", slot, code)
 		}
-		if flags>>5 != 0 {
+		omit := flags &^ 0x1f
+		if format == recordFormat1 && omit != 0 || omit&^(omitSE|omitCI) != 0 || omit&omitCI != 0 && omit&omitSE == 0 {
 			return d.fail("fit %d: flags %#x", slot, flags)
 		}
 		f.Err = errCodes[code]
@@ -255,21 +376,65 @@ func decodeRecord(b []byte, sol *rolling.Solution) error {
 		f.First = d.time(flags>>1&3, sol.First, true)
 		f.Last = d.time(flags>>3&3, sol.Last, true)
 		mask := d.uint32()
-		if d.err == nil && mask>>fitFloats != 0 {
+		extra := uint32(0)
+		if format != recordFormat1 && slot > 0 {
+			extra = lineTCrit | lineCond
+		}
+		if d.err == nil && mask>>fitFloats&^(extra>>fitFloats) != 0 {
 			return d.fail("fit %d: float mask %#x", slot, mask)
 		}
 		ptrs := fitFloatPtrs(f)
 		for i, p := range ptrs {
-			if mask&(1<<i) != 0 {
-				bits := d.uint64()
-				if d.err == nil && bits == 0 {
-					return d.fail("fit %d: float %d stored as zero", slot, i)
+			if mask&(1<<i) == 0 {
+				continue
+			}
+			if omitted(omit, i) {
+				return d.fail("fit %d: float %d stored and left out", slot, i)
+			}
+			var bits uint64
+			switch {
+			case format != recordFormat1 && i == pairsSlot:
+				n := d.uvarint()
+				if d.err == nil && (n == 0 || n >= 1<<53) {
+					return d.fail("fit %d: pair count %d", slot, n)
 				}
-				*p = math.Float64frombits(bits)
+				bits = math.Float64bits(float64(n))
+			case format != recordFormat1 && lowerCov(i):
+				bits = d.uvarint()
+			default:
+				bits = d.uint64()
+			}
+			if d.err == nil && bits == 0 {
+				return d.fail("fit %d: float %d stored as zero", slot, i)
+			}
+			*p = math.Float64frombits(bits)
+		}
+		if d.err != nil {
+			break
+		}
+		if format != recordFormat1 {
+			for i := range ptrs {
+				if lowerCov(i) {
+					*ptrs[i] = math.Float64frombits(math.Float64bits(*ptrs[i]) ^ math.Float64bits(*ptrs[mirror(i)]))
+				}
+			}
+			line := fitFloatPtrs(&sol.Line)
+			for _, c := range [...]struct {
+				i   int
+				bit uint32
+			}{{slotTCrit, lineTCrit}, {slotCond, lineCond}} {
+				if mask&c.bit == 0 {
+					continue
+				}
+				if mask&(1<<c.i) != 0 || math.Float64bits(*line[c.i]) == 0 {
+					return d.fail("fit %d: float %d both stored and the line fit's", slot, c.i)
+				}
+				*ptrs[c.i] = *line[c.i]
 			}
 		}
+		derive(f, omit)
 		pairs := *ptrs[pairsSlot]
-		if d.err == nil && !(pairs >= 0 && pairs < 1<<53 && pairs == math.Trunc(pairs)) {
+		if !(pairs >= 0 && pairs < 1<<53 && pairs == math.Trunc(pairs)) {
 			return d.fail("fit %d: pair count %v", slot, pairs)
 		}
 		f.Pairs = int(pairs)

@@ -219,7 +219,7 @@ func TestRecord_RoundTrip(t *testing.T) {
 	}
 }
 
-// TestRecord_Golden pins the stored layout of format 1: a change to it
+// TestRecord_Golden pins the stored layout of format 2: a change to it
 // must come with a new format byte, not rewrite old files' meaning.
 // Refresh with go test -run Golden -update after such a change.
 func TestRecord_Golden(t *testing.T) {
@@ -231,7 +231,7 @@ func TestRecord_Golden(t *testing.T) {
 		}
 		fmt.Fprintf(&buf, "%s\n", hex.EncodeToString(b))
 	}
-	const path = "testdata/record_v1.golden"
+	const path = "testdata/record_v2.golden"
 	if *update {
 		if err := os.WriteFile(path, buf.Bytes(), 0o644); err != nil {
 			t.Fatal(err)
@@ -246,20 +246,69 @@ func TestRecord_Golden(t *testing.T) {
 	}
 }
 
-func goldenRecords(f *testing.F) [][]byte {
-	data, err := os.ReadFile("testdata/record_v1.golden")
+// TestRecord_DecodesFormat1 reads the records format 1 wrote (its golden
+// file, written by the build that had it) back into the same solutions.
+func TestRecord_DecodesFormat1(t *testing.T) {
+	recs := readGolden(t, "testdata/record_v1.golden")
+	want := goldenSolutions()
+	for i := range want { // decoding rebuilds the corrected errors, as Solve makes them
+		for _, f := range []*rolling.Fit{&want[i].Line, &want[i].Parabola, &want[i].Exp} {
+			f.SetSerial(f.R1, f.Pairs)
+		}
+	}
+	if len(recs) != len(want) {
+		t.Fatalf("%d format 1 records, want %d", len(recs), len(want))
+	}
+	for i, b := range recs {
+		if b[0] != recordFormat1 {
+			t.Fatalf("record %d has format %d", i, b[0])
+		}
+		got := rolling.Solution{Window: want[i].Window}
+		if err := decodeRecord(b, &got); err != nil {
+			t.Fatalf("record %d: %v", i, err)
+		}
+		if !sameSolutionBits(&got, &want[i]) {
+			t.Errorf("record %d:\n got %+v\nwant %+v", i, got, want[i])
+		}
+	}
+}
+
+// TestRecord_LeavesOutDerived checks that format 2 leaves out what
+// follows from the rest for the fits rolling makes, so that the saving
+// does not silently vanish: every sample fit with no error is stored
+// with its standard errors and intervals derived.
+func TestRecord_LeavesOutDerived(t *testing.T) {
+	for i, sol := range sampleSolutions(t) {
+		for _, f := range []*rolling.Fit{&sol.Line, &sol.Parabola, &sol.Exp} {
+			if f.Err != nil {
+				continue
+			}
+			want := byte(omitSE | omitCI)
+			if got := derivable(f); got != want {
+				t.Errorf("solution %d %v: omit flags %#x, want %#x", i, f.Model, derivable(f), want)
+			}
+		}
+	}
+}
+
+func readGolden(t testing.TB, path string) [][]byte {
+	data, err := os.ReadFile(path)
 	if err != nil {
-		f.Fatal(err)
+		t.Fatal(err)
 	}
 	var out [][]byte
 	for _, line := range strings.Fields(string(data)) {
 		b, err := hex.DecodeString(line)
 		if err != nil {
-			f.Fatal(err)
+			t.Fatal(err)
 		}
 		out = append(out, b)
 	}
 	return out
+}
+
+func goldenRecords(f *testing.F) [][]byte {
+	return append(readGolden(f, "testdata/record_v1.golden"), readGolden(f, "testdata/record_v2.golden")...)
 }
 
 func FuzzDecodeRecord(f *testing.F) {

@@ -2,6 +2,7 @@ package store
 
 import (
 	"bytes"
+	"encoding/binary"
 	"fmt"
 	"math"
 	"time"
@@ -188,7 +189,7 @@ func (db *DB) HistorySensors(fn func(id string) error) error {
 }
 
 // PruneHistory deletes up to maxDeletes fit records older than before
-// (time < before), oldest first over all sensors, in one short write
+// (time < before), oldest day first over all sensors, in one short write
 // transaction. more reports that older records remain: call again, after
 // a pause that lets commits through, until it is false. maxDeletes must
 // be positive; a few hundred keep each transaction to milliseconds.
@@ -203,27 +204,43 @@ func (db *DB) PruneHistory(before time.Time, maxDeletes int) (deleted int, more 
 		if hist == nil || htime == nil {
 			return fmt.Errorf("%w: buckets missing", ErrCorrupt)
 		}
-		c := htime.Cursor()
-		var hk []byte
-		for k, _ := c.First(); k != nil; k, _ = c.First() {
-			if len(k) < 8+1+windowSuffix {
-				return fmt.Errorf("%w: history time key %x", ErrCorrupt, k)
+		c, hc := htime.Cursor(), hist.Cursor()
+		var next, prefix []byte
+		for k, _ := c.First(); k != nil; k, _ = c.Seek(next) {
+			next = append(append(next[:0], k...), 0) // the least key after k
+			if len(k) < dayKeyMin {
+				// Not a key this package writes: nothing to find with it.
+				if err := c.Delete(); err != nil {
+					return err
+				}
+				continue
 			}
-			if readInt(k) >= cut {
+			day := readInt(k)
+			if day >= cut {
 				return nil
 			}
-			if deleted == maxDeletes {
-				more = true
-				return nil
+			whole := day < math.MaxInt64-nanosPerDay && day+nanosPerDay <= cut
+			end := cut
+			if whole {
+				end = day + nanosPerDay
 			}
-			hk = append(append(hk[:0], k[8:]...), k[:8]...)
-			if err := hist.Delete(hk); err != nil {
-				return err
+			prefix = append(prefix[:0], k[8:]...)
+			for hk, _ := hc.Seek(prefix); hk != nil && bytes.HasPrefix(hk, prefix) && len(hk) == len(prefix)+8 &&
+				readInt(hk[len(prefix):]) < end; hk, _ = hc.Seek(prefix) {
+				if deleted == maxDeletes {
+					more = true
+					return nil
+				}
+				if err := hc.Delete(); err != nil {
+					return err
+				}
+				deleted++
 			}
-			if err := c.Delete(); err != nil {
-				return err
+			if whole {
+				if err := deleteKey(c, next[:len(next)-1]); err != nil {
+					return err
+				}
 			}
-			deleted++
 		}
 		return nil
 	})
@@ -231,4 +248,122 @@ func (db *DB) PruneHistory(before time.Time, maxDeletes int) (deleted int, more 
 		return 0, false, fmt.Errorf("store: prune history: %w", err)
 	}
 	return deleted, more, nil
+}
+
+// deleteKey deletes key k through cursor c, if it is there.
+func deleteKey(c *bolt.Cursor, k []byte) error {
+	if got, _ := c.Seek(k); bytes.Equal(got, k) {
+		return c.Delete()
+	}
+	return nil
+}
+
+// keyThinned holds, in meta, how far ThinHistory got: the interval it
+// thinned to (uint64 ns, BE), then the last day index key it finished.
+var keyThinned = []byte("thinned")
+
+// ThinHistory thins the fit history of the windows whose pane is
+// shorter than every: of their records older than before, it keeps only
+// the last of each interval of length every (by record time, intervals
+// aligned on the Unix epoch: with every = 24h, UTC days). With the
+// default windows and every = 24h the 1d/1h window's 24 records a day
+// become one, the one that covers that whole day, while the 30d/1d
+// window keeps all of its records. It deletes up to maxDeletes records
+// in one short write transaction; more reports that there is more to
+// thin: call again, after a pause that lets commits through, until it is
+// false. Thinning walks the day index once: it notes in the file how far
+// it got, and starts again from the oldest day when every changes.
+// before should trail the newest records by at least every, so that the
+// last record of an interval has been written when it is thinned; a
+// record is deleted only when a later record of its window in the same
+// interval is stored.
+func (db *DB) ThinHistory(before time.Time, every time.Duration, maxDeletes int) (deleted int, more bool, err error) {
+	if maxDeletes <= 0 || every <= 0 {
+		return 0, false, fmt.Errorf("store: thin history: maxDeletes %d and interval %v must be positive", maxDeletes, every)
+	}
+	cut := unixNano(before)
+	err = db.bolt.Update(func(tx *bolt.Tx) (err error) {
+		deleted, more = 0, false
+		meta, hist, htime := tx.Bucket(bucketMeta), tx.Bucket(bucketHistory), tx.Bucket(bucketHistTime)
+		if meta == nil || hist == nil || htime == nil {
+			return fmt.Errorf("%w: buckets missing", ErrCorrupt)
+		}
+		mark, err := get(meta, bucketMeta, keyThinned)
+		if err != nil || len(mark) < 8 || binary.BigEndian.Uint64(mark) != uint64(every) {
+			mark = binary.BigEndian.AppendUint64(nil, uint64(every)) // start from the oldest day
+		} else {
+			mark = bytes.Clone(mark)
+		}
+		defer func() {
+			if err == nil {
+				var sl sealer
+				err = sl.put(meta, keyThinned, mark)
+			}
+		}()
+		c, hc := htime.Cursor(), hist.Cursor()
+		var k []byte
+		if len(mark) > 8 {
+			k, _ = c.Seek(append(bytes.Clone(mark[8:]), 0))
+		} else {
+			k, _ = c.First()
+		}
+		var pos, next []byte
+		for ; k != nil; k, _ = c.Seek(next) {
+			next = append(append(next[:0], k...), 0)
+			if len(k) < dayKeyMin {
+				mark = append(mark[:8], k...)
+				continue
+			}
+			day := readInt(k)
+			if day > math.MaxInt64-nanosPerDay || day+nanosPerDay > cut {
+				return nil
+			}
+			prefix := k[8:]
+			_, ws, _, perr := splitHistoryKey(append(bytes.Clone(prefix), make([]byte, 8)...))
+			if perr == nil && ws.Pane < every {
+				end := day + nanosPerDay
+				pos = appendInt(append(pos[:0], prefix...), day)
+				prefix = pos[:len(prefix)]
+				for {
+					hk, _ := hc.Seek(pos)
+					if hk == nil || !bytes.HasPrefix(hk, prefix) || len(hk) != len(prefix)+8 {
+						break
+					}
+					t := readInt(hk[len(prefix):])
+					if t >= end {
+						break
+					}
+					pos = append(pos[:len(prefix)], hk[len(prefix):]...)
+					nk, _ := hc.Next()
+					later := nk != nil && bytes.HasPrefix(nk, prefix) && len(nk) == len(prefix)+8 &&
+						floorDivInt(readInt(nk[len(prefix):]), int64(every)) == floorDivInt(t, int64(every))
+					if later {
+						if deleted == maxDeletes {
+							more = true
+							return nil
+						}
+						if err := deleteKey(hc, pos); err != nil {
+							return err
+						}
+						deleted++
+					}
+					pos = append(pos, 0)
+				}
+			}
+			mark = append(mark[:8], k...)
+		}
+		return nil
+	})
+	if err != nil {
+		return 0, false, fmt.Errorf("store: thin history: %w", err)
+	}
+	return deleted, more, nil
+}
+
+func floorDivInt(a, b int64) int64 {
+	q := a / b
+	if a%b < 0 {
+		q--
+	}
+	return q
 }
