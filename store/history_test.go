@@ -2,6 +2,7 @@ package store_test
 
 import (
 	"errors"
+	"fmt"
 	"slices"
 	"strings"
 	"testing"
@@ -210,5 +211,88 @@ func TestPruneHistory(t *testing.T) {
 	}
 	if n, more, err := db.PruneHistory(before, chunk); n != 0 || more || err != nil {
 		t.Errorf("second prune: %d, %v, %v; want 0, false, nil", n, more, err)
+	}
+}
+
+// thinned returns what ThinHistory(before, every) must leave of sols, in
+// time order: of the records of windows with panes shorter than every
+// and older than before (a day boundary here), the last of each
+// interval of every since the epoch.
+func thinned(sols []rolling.Solution, before time.Time, every time.Duration) []rolling.Solution {
+	sols = slices.Clone(sols)
+	sortSolutions(sols)
+	var out []rolling.Solution
+	for i, s := range sols {
+		if s.Window.Pane < every && s.Last.Before(before) {
+			g := s.Last.UnixNano() / int64(every) // times are positive here
+			later := false
+			for _, n := range sols[i+1:] {
+				if n.Window == s.Window && n.Last.UnixNano()/int64(every) == g {
+					later = true
+					break
+				}
+			}
+			if later {
+				continue
+			}
+		}
+		out = append(out, s)
+	}
+	return out
+}
+
+func TestThinHistory(t *testing.T) {
+	const seed = 31
+	t.Logf("seed %d", seed)
+	db := openDB(t, tempPath(t))
+	f := newFeed(t, db, seed, 3, defaultSpecs)
+	f.step(4000, 15*time.Minute) // about 42 days
+	f.commit()
+	start := time.Unix(0, f.clock).Add(-42 * day)
+	if _, _, err := db.ThinHistory(start, 0, 10); err == nil {
+		t.Error("ThinHistory with interval 0 succeeded")
+	}
+	for round, before := range []time.Time{
+		start.Add(15 * day).Truncate(day), // Truncate works on absolute time: a UTC day boundary
+		start.Add(30 * day).Truncate(day), // resumes where the first round stopped
+	} {
+		want := map[string][]rolling.Solution{}
+		wantDeleted := 0
+		for _, id := range f.ids {
+			want[id] = thinned(f.history[id], before, day)
+			if round == 1 {
+				wantDeleted += len(thinned(f.history[id], before.Add(-15*day).Truncate(day), day)) - len(want[id])
+			} else {
+				wantDeleted += len(f.history[id]) - len(want[id])
+			}
+		}
+		if wantDeleted < 100 {
+			t.Fatalf("round %d: only %d records to thin", round, wantDeleted)
+		}
+		const chunk = 11
+		total := 0
+		for calls := 1; ; calls++ {
+			n, more, err := db.ThinHistory(before, day, chunk)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if n > chunk || more && n != chunk || calls > wantDeleted {
+				t.Fatalf("round %d call %d: deleted %d, more %v, chunk %d", round, calls, n, more, chunk)
+			}
+			total += n
+			if !more {
+				break
+			}
+		}
+		if total != wantDeleted {
+			t.Errorf("round %d: ThinHistory deleted %d records, want %d", round, total, wantDeleted)
+		}
+		for _, id := range f.ids {
+			checkSame(t, fmt.Sprintf("round %d %s", round, id), readHistory(t, db, id, rolling.WindowSpec{}, time.Time{}, time.Time{}), want[id])
+		}
+		if n, more, err := db.ThinHistory(before, day, chunk); n != 0 || more || err != nil {
+			t.Errorf("round %d: thinning again: %d, %v, %v; want 0, false, nil", round, n, more, err)
+		}
+		db = reopen(t, db)
 	}
 }

@@ -544,3 +544,55 @@ func TestDB_DropSensor(t *testing.T) {
 		t.Errorf("history of the dropped sensor: %d records, want all %d kept", len(got.history[gone]), len(want.history[gone]))
 	}
 }
+
+// TestAlertReads_SkipDamaged damages one event, one ticket and one outbox
+// item in a real file: each read hands over the others and counts the
+// damaged one in a *SkippedError.
+func TestAlertReads_SkipDamaged(t *testing.T) {
+	path := tempPath(t)
+	db := openDB(t, path)
+	t0 := time.Date(2026, 8, 1, 0, 0, 0, 0, time.UTC)
+	var w store.AlertWrite
+	w.Sensor, w.Tickets = "qm.u1.steam.pt-102", map[string][]byte{}
+	for i := range 3 {
+		w.Events = append(w.Events, store.TimedValue{At: t0.Add(time.Duration(i) * time.Hour), Data: fmt.Appendf(nil, `{"event":%d,"pad":"quillmere vale"}`, i)})
+		w.Tickets[fmt.Sprintf("qm.u1.steam.pt-102@%d", i)] = fmt.Appendf(nil, `{"ticket":%d,"pad":"quillmere vale"}`, i)
+		w.Outbox = append(w.Outbox, fmt.Appendf(nil, `{"delivery":%d,"pad":"quillmere vale"}`, i))
+	}
+	if err := db.WriteAlerts([]store.AlertWrite{w}); err != nil {
+		t.Fatal(err)
+	}
+	checkClose(t, db)
+	damaged := copyFile(t, path, func(b []byte) []byte {
+		for _, s := range []string{`{"event":1`, `{"ticket":2`, `{"delivery":0`} {
+			if bytes.Count(b, []byte(s)) != 1 {
+				t.Fatalf("%s found %d times in the file", s, bytes.Count(b, []byte(s)))
+			}
+			b[bytes.Index(b, []byte(s))+3] ^= 0x01
+		}
+		return b
+	})
+	db = openDB(t, damaged)
+	check := func(what string, err error, got []string, want string) {
+		t.Helper()
+		var se *store.SkippedError
+		if !errors.As(err, &se) || se.N != 1 || !errors.Is(err, store.ErrChecksum) {
+			t.Errorf("%s: error %v, want a *SkippedError of 1 checksum error", what, err)
+		}
+		if fmt.Sprint(got) != want {
+			t.Errorf("%s: read %v, want %s", what, got, want)
+		}
+	}
+	var got []string
+	err := db.Events(time.Time{}, time.Time{}, func(_ time.Time, d []byte) error { got = append(got, string(d[:10])); return nil })
+	check("Events", err, got, `[{"event":0 {"event":2]`)
+	got = nil
+	err = db.Tickets(func(id string, _ []byte) error { got = append(got, id); return nil })
+	check("Tickets", err, got, "[qm.u1.steam.pt-102@0 qm.u1.steam.pt-102@1]")
+	items, err := db.Outbox(10)
+	got = nil
+	for _, it := range items {
+		got = append(got, string(it.Data[:13]))
+	}
+	check("Outbox", err, got, `[{"delivery":1 {"delivery":2]`)
+}

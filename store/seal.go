@@ -58,15 +58,21 @@ func get(bk *bolt.Bucket, name, key []byte) ([]byte, error) {
 // sealer seals the values of one write transaction. bbolt keeps
 // references to the value slices until the transaction ends, so each
 // sealed value gets its own bytes: carved from a block that is replaced,
-// never grown in place, when it is full.
+// never grown in place, when it is full. Blocks double from 4 KiB to
+// 1 MiB, so a commit of a few values allocates little and one of many
+// values allocates a few times.
 type sealer struct{ block []byte }
 
-const sealBlock = 64 << 10
+const (
+	sealBlockMin = 4 << 10
+	sealBlockMax = 1 << 20
+)
 
 func (s *sealer) seal(key, val []byte) []byte {
 	n := len(val) + sealSize
 	if n > cap(s.block)-len(s.block) {
-		s.block = make([]byte, 0, max(sealBlock, n))
+		size := min(max(2*cap(s.block), sealBlockMin), sealBlockMax)
+		s.block = make([]byte, 0, max(size, n))
 	}
 	start := len(s.block)
 	s.block = appendSealed(s.block, key, val)

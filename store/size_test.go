@@ -75,18 +75,52 @@ func fleetSize(tb testing.TB, n, days int, thin func(db *store.DB, now time.Time
 	if err != nil {
 		tb.Fatal(err)
 	}
+	db.Close()
 	return float64(used) / float64(n*days), records
 }
 
+// thinAndPrune is what the service's retention loop does once a day in
+// these measurements: thin the short windows' history older than 30
+// days to one record a day, and delete history older than 400 days (the
+// default store.history_retention), in chunks of 500.
+func thinAndPrune(tb testing.TB) func(db *store.DB, now time.Time) {
+	return func(db *store.DB, now time.Time) {
+		for more := true; more; {
+			var err error
+			if _, more, err = db.ThinHistory(now.Add(-30*day), day, 500); err != nil {
+				tb.Fatal(err)
+			}
+		}
+		for more := true; more; {
+			var err error
+			if _, more, err = db.PruneHistory(now.Add(-400*day), 500); err != nil {
+				tb.Fatal(err)
+			}
+		}
+	}
+}
+
 // BenchmarkHistorySize reports the file bytes a sensor-day costs with
-// the default windows, for a month and for a year (history kept whole).
+// the default windows: for a month and for 400 days with all history
+// kept, and for 400 days with the short windows thinned after 30 days.
 func BenchmarkHistorySize(b *testing.B) {
-	for _, c := range []struct{ n, days int }{{100, 30}, {20, 400}} {
-		b.Run(fmt.Sprintf("sensors=%d/days=%d", c.n, c.days), func(b *testing.B) {
+	for _, c := range []struct {
+		n, days int
+		thin    bool
+	}{{100, 30, false}, {20, 400, false}, {20, 400, true}} {
+		name := fmt.Sprintf("sensors=%d/days=%d", c.n, c.days)
+		if c.thin {
+			name += "/thin=30d"
+		}
+		b.Run(name, func(b *testing.B) {
 			var per float64
 			var recs int
 			for b.Loop() {
-				per, recs = fleetSize(b, c.n, c.days, nil)
+				var thin func(*store.DB, time.Time)
+				if c.thin {
+					thin = thinAndPrune(b)
+				}
+				per, recs = fleetSize(b, c.n, c.days, thin)
 			}
 			b.ReportMetric(per, "B/sensor-day")
 			b.ReportMetric(float64(recs)/float64(c.n*c.days), "records/sensor-day")
