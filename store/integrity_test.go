@@ -557,7 +557,7 @@ func TestAlertReads_SkipDamaged(t *testing.T) {
 	for i := range 3 {
 		w.Events = append(w.Events, store.TimedValue{At: t0.Add(time.Duration(i) * time.Hour), Data: fmt.Appendf(nil, `{"event":%d,"pad":"quillmere vale"}`, i)})
 		w.Tickets[fmt.Sprintf("qm.u1.steam.pt-102@%d", i)] = fmt.Appendf(nil, `{"ticket":%d,"pad":"quillmere vale"}`, i)
-		w.Outbox = append(w.Outbox, fmt.Appendf(nil, `{"delivery":%d,"pad":"quillmere vale"}`, i))
+		w.Outbox = append(w.Outbox, store.OutboxItem{Lane: 1, Data: fmt.Appendf(nil, `{"delivery":%d,"pad":"quillmere vale"}`, i)})
 	}
 	if err := db.WriteAlerts([]store.AlertWrite{w}); err != nil {
 		t.Fatal(err)
@@ -589,7 +589,7 @@ func TestAlertReads_SkipDamaged(t *testing.T) {
 	got = nil
 	err = db.Tickets(func(id string, _ []byte) error { got = append(got, id); return nil })
 	check("Tickets", err, got, "[qm.u1.steam.pt-102@0 qm.u1.steam.pt-102@1]")
-	items, err := db.Outbox(10)
+	items, err := db.Outbox(1, 0, 10)
 	got = nil
 	for _, it := range items {
 		got = append(got, string(it.Data[:13]))

@@ -3,7 +3,6 @@ package main
 import (
 	"context"
 	"errors"
-	"flag"
 	"fmt"
 	"io"
 	"os"
@@ -22,29 +21,21 @@ whatever of it was set aside as damaged. Its fit history, alert events and
 tickets are kept. If the sensor reports again, its windows start empty.
 
 Stop driftfit serve first: the command refuses while a service holds the
-file, which would otherwise write the sensor back at its next commit.
-
-Flags:`
+file, which would otherwise write the sensor back at its next commit.`
 
 // dropSensorLockWait bounds the wait for the file's lock: long enough to
 // ride out a service that is just exiting, short enough to tell at once
 // that one is running.
 const dropSensorLockWait = time.Second
 
-func runDropSensor(_ context.Context, args []string, _ io.Reader, stdout, stderr io.Writer) error {
-	fs := flag.NewFlagSet("drop-sensor", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+func runDropSensor(_ context.Context, args []string, _ io.Reader, stdout, _ io.Writer) error {
+	fs := newFlags("drop-sensor", dropSensorHelp)
 	dataDir := fs.String("data", "", "the service's data `DIR` (as for driftfit serve --data); default: the directory of "+defaultDBPath())
-	fs.Usage = func() {
-		fmt.Fprintln(stderr, dropSensorHelp)
-		fs.PrintDefaults()
-	}
-	pos, err := parseInterleaved(fs, args)
+	pos, err := fs.parse(args)
 	if err != nil {
 		return err
 	}
 	if len(pos) != 1 {
-		fs.Usage()
 		return usageError("want one SENSOR id, got %d arguments", len(pos))
 	}
 	id := pos[0]
