@@ -12,18 +12,19 @@ type Dropped struct {
 	Specs    bool // the window specs
 	Panes    int
 	Restart  bool // the time its fits last restarted
+	Seq      bool // the stream sequence its state held
 	Alert    bool // its alert state
 	SetAside int  // keys of state set aside earlier (Restored.SetAside)
 }
 
 // Any reports whether anything was deleted.
 func (d Dropped) Any() bool {
-	return d.Specs || d.Panes > 0 || d.Restart || d.Alert || d.SetAside > 0
+	return d.Specs || d.Panes > 0 || d.Restart || d.Seq || d.Alert || d.SetAside > 0
 }
 
 // DropSensor deletes the stored state of one sensor in one transaction:
-// its window specs, panes, restart time, alert state and whatever of it
-// was set aside. Its fit history is kept, as the record of what the
+// its window specs, panes, restart time, stream sequence, alert state
+// and whatever of it was set aside. Its fit history is kept, as the record of what the
 // sensor did (history retention deletes it in time), and so are alert
 // events and tickets, which belong to the plant's record. Once dropped,
 // a sensor that reports again starts with empty windows. Call it only
@@ -64,6 +65,9 @@ func (db *DB) DropSensor(id string) (Dropped, error) {
 			return err
 		}
 		if d.Restart, err = del(bucketRestarts, key); err != nil {
+			return err
+		}
+		if d.Seq, err = del(bucketSeqs, key); err != nil {
 			return err
 		}
 		if d.Alert, err = del(bucketAlerts, key); err != nil {

@@ -24,6 +24,8 @@ import (
 // contents is everything the store API reads back from a file.
 type contents struct {
 	fits     map[string][]rolling.Solution // per sensor, Solve of each window after Restore
+	seqs     map[string]uint64             // per sensor, Restored.Seq
+	restarts map[string]int64              // per sensor, Restored.Restart
 	setAside map[string]error
 	history  map[string][]store.HistoryRecord
 	skipped  map[string]int // per sensor, records History reported skipped
@@ -37,7 +39,7 @@ type contents struct {
 // A read error other than a *SkippedError fails the test.
 func readContents(t *testing.T, path string) contents {
 	t.Helper()
-	c := contents{fits: map[string][]rolling.Solution{}, setAside: map[string]error{},
+	c := contents{fits: map[string][]rolling.Solution{}, seqs: map[string]uint64{}, restarts: map[string]int64{}, setAside: map[string]error{},
 		history: map[string][]store.HistoryRecord{}, skipped: map[string]int{}, alerts: map[string]string{}}
 	db, err := store.Open(path, store.Options{NoSync: true})
 	if err != nil {
@@ -53,6 +55,7 @@ func readContents(t *testing.T, path string) contents {
 			for w := range r.Sensor.Windows() {
 				c.fits[r.ID] = append(c.fits[r.ID], r.Sensor.Solve(w))
 			}
+			c.seqs[r.ID], c.restarts[r.ID] = r.Seq, r.Restart
 			return nil
 		})
 	if err != nil {
@@ -107,6 +110,9 @@ func lies(want, got contents) []string {
 		if !ok {
 			out = append(out, "restored unknown sensor "+id)
 			continue
+		}
+		if got.seqs[id] != want.seqs[id] || got.restarts[id] != want.restarts[id] {
+			out = append(out, fmt.Sprintf("sensor %s: sequence %d, restart %d; were %d, %d", id, got.seqs[id], got.restarts[id], want.seqs[id], want.restarts[id]))
 		}
 		for i := range fits {
 			if d := diffSolution(&fits[i], &w[i]); d != "" {
@@ -164,6 +170,11 @@ func buildFile(t *testing.T, seed uint64) (path string, ids []string) {
 	var b store.Batch
 	if err := b.SetRestart(f.ids[2], f.clock-int64(3*day)); err != nil {
 		t.Fatal(err)
+	}
+	for i, id := range f.ids {
+		if err := b.SetSeq(id, f.applied-uint64(i)); err != nil {
+			t.Fatal(err)
+		}
 	}
 	if _, err := db.Commit(&b); err != nil {
 		t.Fatal(err)
@@ -401,6 +412,9 @@ func TestCommit_BadPaneSetAside(t *testing.T) {
 		if err := b.Sensor(id, s); err != nil {
 			t.Fatal(err)
 		}
+		if err := b.SetSeq(id, 1); err != nil {
+			t.Fatal(err)
+		}
 	}
 	if st, err := db.Commit(&b); err != nil || len(st.SetAside) != 0 {
 		t.Fatalf("first commit: %v, set aside %v", err, st.SetAside)
@@ -420,6 +434,9 @@ func TestCommit_BadPaneSetAside(t *testing.T) {
 		if err := b.Sensor(id, s); err != nil {
 			t.Fatalf("Sensor(%s): %v", id, err)
 		}
+		if err := b.SetSeq(id, 2); err != nil {
+			t.Fatal(err)
+		}
 	}
 	b.SetPosition(2)
 	st, err := db.Commit(&b)
@@ -436,6 +453,11 @@ func TestCommit_BadPaneSetAside(t *testing.T) {
 	g, w := got["qm.good"].Sensor.Solve(0), good.Solve(0)
 	if d := diffSolution(&g, &w); d != "" {
 		t.Errorf("good sensor: %s", d)
+	}
+	// The bad sensor's state holds message 1, not 2: a restart must feed
+	// it message 2 again.
+	if g, b := got["qm.good"].Seq, got["qm.bad"].Seq; g != 2 || b != 1 {
+		t.Errorf("stored sequences: good %d, bad %d; want 2 and 1", g, b)
 	}
 	if r := got["qm.bad"]; r.SetAside != nil {
 		t.Errorf("bad sensor set aside at restore: %v", r.SetAside)
@@ -518,8 +540,8 @@ func TestDB_DropSensor(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if !d.Specs || d.Panes == 0 || !d.Restart || !d.Alert {
-		t.Errorf("DropSensor(%s) = %+v, want specs, panes, restart and alert state deleted", gone, d)
+	if !d.Specs || d.Panes == 0 || !d.Restart || !d.Seq || !d.Alert {
+		t.Errorf("DropSensor(%s) = %+v, want specs, panes, restart, sequence and alert state deleted", gone, d)
 	}
 	if d, err := db.DropSensor(gone); err != nil || d.Any() {
 		t.Errorf("second DropSensor = %+v, %v; want nothing deleted", d, err)

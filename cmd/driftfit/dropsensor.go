@@ -16,8 +16,9 @@ import (
 const dropSensorHelp = `Usage: driftfit drop-sensor [--data DIR] SENSOR
 
 Deletes the stored state of one sensor from the state file: its window
-panes and specs, the time its fits last restarted, its alert state, and
-whatever of it was set aside as damaged. Its fit history, alert events and
+panes and specs, the time its fits last restarted, the stream sequence
+its state held, its alert state, and whatever of it was set aside as
+damaged. Its fit history, alert events and
 tickets are kept. If the sensor reports again, its windows start empty.
 
 Stop driftfit serve first: the command refuses while a service holds the
@@ -78,6 +79,9 @@ func runDropSensor(_ context.Context, args []string, _ io.Reader, stdout, _ io.W
 	}
 	if d.Restart {
 		what = append(what, "restart time")
+	}
+	if d.Seq {
+		what = append(what, "stream sequence")
 	}
 	if d.Alert {
 		what = append(what, "alert state")
