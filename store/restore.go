@@ -44,12 +44,12 @@ type Restored struct {
 	// be trusted (a value failed its checksum, a pane did not decode)
 	// and why; it names the sensor and matches ErrSetAside. Sensor is
 	// then a fresh one from newSensor, not marked saved, holding nothing
-	// of the stored state, and Restart is kept only if it was readable.
-	// Seq is 0: the fresh sensor takes every message after the stored
-	// position. Unless the file is read-only, Restore moved the sensor's window
-	// specs and panes out of the way, into the "set-aside" bucket, so
-	// they never mix with what the fresh sensor writes; DropSensor
-	// deletes them. Log it: the sensor's windows start empty.
+	// of the stored state; Restart is kept only if it was readable, and
+	// Seq is 0, so the fresh sensor takes every message after the stored
+	// position. Unless the file is read-only, Restore moved the sensor's
+	// window specs and panes out of the way, into the "set-aside"
+	// bucket, so they never mix with what the fresh sensor writes;
+	// DropSensor deletes them. Log it: the sensor's windows start empty.
 	SetAside *SensorError
 }
 
