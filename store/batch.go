@@ -93,7 +93,14 @@ func (b *Batch) Sensor(id string, s *rolling.Sensor) error {
 	if err := checkID(id); err != nil {
 		return err
 	}
-	mark, nops := len(b.buf), len(b.ops)
+	m := b.mark()
+	b.snapshot(id, s)
+	b.settle(id, s, m)
+	return nil
+}
+
+// snapshot adds the changed panes, specs and horizons of s to the batch.
+func (b *Batch) snapshot(id string, s *rolling.Sensor) {
 	// A sensor saved before has its specs in the file (or in the batch
 	// of a commit still to come), and stored panes can have left its
 	// windows only where its horizon moved: the rest would be a lookup
@@ -112,13 +119,18 @@ func (b *Batch) Sensor(id string, s *rolling.Sensor) error {
 	s.HorizonMoved(func(width time.Duration, oldest int64) {
 		b.addHorizon(id, width, oldest)
 	})
-	if err := b.checkPanes(s, b.ops[nops:]); err != nil {
-		b.buf, b.ops = b.buf[:mark], b.ops[:nops]
+}
+
+// settle keeps the snapshot of s added since m and marks s saved, or,
+// when a pane of it would not load, takes the snapshot back out and sets
+// the sensor aside.
+func (b *Batch) settle(id string, s *rolling.Sensor, m batchMark) {
+	if err := b.checkPanes(s, b.ops[m.ops:]); err != nil {
+		b.undo(m)
 		b.setAside = append(b.setAside, &SensorError{Sensor: id, Err: err})
-		return nil
+		return
 	}
 	s.MarkSaved()
-	return nil
 }
 
 // checkPanes loads the panes put by ops into a scratch sensor with the
