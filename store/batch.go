@@ -541,8 +541,9 @@ const paneFill = 0.95
 // historyFill is the history bucket's fill of split pages. A window's
 // records are appended after its older ones and never inserted before
 // them, so the left page of a split takes no more keys: bbolt's default
-// of 50% left history pages about half empty (measured with
-// BenchmarkHistorySize: see the README's sizing table).
+// of 50% left history pages about half empty. In BenchmarkHistorySize
+// (100 sensors, 30 days) 95% took the file from 22.2 to 15.0 kB a
+// sensor-day; 100% gave the same page count as 95%.
 const historyFill = 0.95
 
 // apply writes the batch's ops in order; with putsDone, its pane puts

@@ -83,11 +83,10 @@
 // # Size
 //
 // With the default windows (1d/1h and 30d/1d: 25 records a sensor-day)
-// a record costs about 360 bytes of leaf page with a 19-byte id, key and
-// bbolt's element header included, and history pages fill to about 78%:
-// about 13 kB of file a sensor-day while all history is kept, about
-// 2.3 kB over 400 days when the 1d window's records older than 30 days
-// are thinned to one a day (BenchmarkHistorySize).
+// history costs about 13 kB of file a sensor-day while all of it is
+// kept, and about 2.5 kB over 400 days when the 1d window's records
+// older than 30 days are thinned to one a day; schema 1 took about
+// 39 kB (BenchmarkHistorySize, 20 sensors over 400 days).
 //
 // The bucket names "alerts", "tickets" and "outbox" are reserved for
 // alert state, tickets and the webhook outbox. Adding a bucket keeps the
