@@ -134,6 +134,14 @@ type Store struct {
 	// (more than a year, so a yearly calibration cycle can be compared with
 	// the one before). Zero written in the file keeps history forever.
 	HistoryRetention time.Duration
+	// HistoryThinAfter is the age after which the fit history of windows
+	// whose pane is shorter than HistoryThinTo keeps one record per
+	// HistoryThinTo (the last of each). Default 30d; zero written in the
+	// file keeps every record.
+	HistoryThinAfter time.Duration
+	// HistoryThinTo is the interval thinned history keeps one record of.
+	// Default 1d.
+	HistoryThinTo time.Duration
 }
 
 // HTTP configures the listener of /metrics and the engineer's pages.

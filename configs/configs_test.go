@@ -23,7 +23,7 @@ var badCases = []struct {
 	want []string
 }{
 	{"unknown_key.bad.yaml", []string{
-		`unknown_key.bad.yaml:3:3: store.commit_intervall = "commit_intervall": unknown field: allowed here: commit_interval, commit_max_sensors, commit_readings, dir, history_retention`,
+		`unknown_key.bad.yaml:3:3: store.commit_intervall = "commit_intervall": unknown field: allowed here: commit_interval, commit_max_sensors, commit_readings, dir, history_retention, history_thin_after, history_thin_to`,
 		`unknown_key.bad.yaml:12:7: classes[0].limits.drift = "drift": unknown field`,
 	}},
 	{"bad_unit.bad.yaml", []string{

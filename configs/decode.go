@@ -464,6 +464,8 @@ func (d *decoder) store(n ast.Node, path string, s *Store) {
 		"commit_readings":    d.integer(&s.CommitReadings),
 		"commit_max_sensors": d.integer(&s.CommitMaxSensors),
 		"history_retention":  d.duration(&s.HistoryRetention),
+		"history_thin_after": d.duration(&s.HistoryThinAfter),
+		"history_thin_to":    d.duration(&s.HistoryThinTo),
 	})
 }
 

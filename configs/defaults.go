@@ -90,6 +90,8 @@ func (c *Config) applyDefaults() {
 	num(&s.CommitReadings, "store.commit_readings", defaultCommitReadings)
 	num(&s.CommitMaxSensors, "store.commit_max_sensors", defaultCommitMaxSensors)
 	dur(&s.HistoryRetention, "store.history_retention", defaultHistoryRetention)
+	dur(&s.HistoryThinAfter, "store.history_thin_after", 30*Day)
+	dur(&s.HistoryThinTo, "store.history_thin_to", Day)
 
 	str(&c.HTTP.Addr, "http.addr", defaultHTTPAddr)
 

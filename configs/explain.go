@@ -77,6 +77,10 @@ func (c *Config) Explain(w io.Writer) {
 	} else {
 		p("  fit history:     kept %s\n", FormatDuration(s.HistoryRetention))
 	}
+	if s.HistoryThinAfter > 0 {
+		p("  thinned:         after %s, one record per %s for windows of shorter panes\n",
+			FormatDuration(s.HistoryThinAfter), FormatDuration(s.HistoryThinTo))
+	}
 	wh := &c.Tickets.Webhook
 	p("\ntickets\n")
 	p("  bus:             %s\n", b.TicketSubject)

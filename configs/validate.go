@@ -350,6 +350,12 @@ func (v *validator) store() {
 	if s.CommitReadings <= 0 {
 		v.add("store.commit_readings", strconv.Itoa(s.CommitReadings), ErrRange, "must be > 0")
 	}
+	if s.HistoryThinAfter < 0 {
+		v.add("store.history_thin_after", FormatDuration(s.HistoryThinAfter), ErrRange, "must be >= 0 (0 keeps every record)")
+	}
+	if s.HistoryThinTo <= 0 {
+		v.add("store.history_thin_to", FormatDuration(s.HistoryThinTo), ErrRange, "must be > 0")
+	}
 	if s.HistoryRetention < 0 {
 		v.add("store.history_retention", FormatDuration(s.HistoryRetention), ErrRange, "must be >= 0 (0 keeps history forever)")
 	}

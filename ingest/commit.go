@@ -175,7 +175,7 @@ func (w *worker) save(b *store.Batch, ref *sensorRef) error {
 // committer writes commits in order, then acknowledges them on the bus.
 // It is the only writer of the DB while the service runs.
 func (s *Service) committer() {
-	var pruneNext time.Time
+	var pruneNext, thinNext time.Time
 	var marks []ackMark
 	stored := s.position.Load()
 	for req := range s.commits {
@@ -274,6 +274,27 @@ func (s *Service) committer() {
 			}
 			if n > 0 {
 				s.log.Debug().Int("n", n).Msg("old fit history deleted")
+			}
+		}
+		if a, to := s.o.HistoryThinAfter, s.o.HistoryThinTo; a > 0 && to > 0 && !time.Now().Before(thinNext) {
+			n, more, err := s.o.DB.ThinHistory(s.o.Now().Add(-a), to, 500)
+			switch {
+			case err != nil:
+				s.log.Error().Err(err).Msg("history thinning")
+				thinNext = time.Now().Add(time.Minute)
+			case more:
+				// Keep going, one small chunk per commit.
+			default:
+				thinNext = time.Now().Add(time.Minute)
+			}
+			if n > 0 {
+				s.log.Debug().Int("n", n).Msg("fit history thinned")
+			}
+		}
+		for _, e := range st.SetAside {
+			s.badLog.Error().Str("sensor", e.Sensor).Err(e.Err).Msg("sensor left out of the commit: its state fails the checks a restore applies")
+			if m := s.o.Metrics; m != nil {
+				m.SetAside.Inc()
 			}
 		}
 		s.backlog.Store(left > 0)

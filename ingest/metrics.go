@@ -14,11 +14,17 @@ type Metrics struct {
 	StreamLag    prometheus.Gauge
 	BusConnected prometheus.Gauge
 	SlowConsumer prometheus.Counter
+	// SetAside counts sensors whose stored state failed its checks: set
+	// aside at a restore (restarted fresh) or left out of a commit.
+	SetAside prometheus.Counter
 }
 
 // NewMetrics returns the instruments, not yet registered.
 func NewMetrics() *Metrics {
 	return &Metrics{
+		SetAside: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "driftfit_sensors_set_aside_total", Help: "Sensors whose stored state failed its checks and was set aside.",
+		}),
 		Messages: prometheus.NewCounter(prometheus.CounterOpts{
 			Name: "driftfit_messages_total", Help: "Messages taken from the bus.",
 		}),
@@ -52,7 +58,7 @@ func NewMetrics() *Metrics {
 
 // Register registers every instrument with r.
 func (m *Metrics) Register(r prometheus.Registerer) error {
-	for _, c := range []prometheus.Collector{m.Messages, m.Applied, m.Rejected, m.Sensors, m.CommitTime, m.CommitBytes, m.StreamLag, m.BusConnected, m.SlowConsumer} {
+	for _, c := range []prometheus.Collector{m.Messages, m.Applied, m.Rejected, m.Sensors, m.CommitTime, m.CommitBytes, m.StreamLag, m.BusConnected, m.SlowConsumer, m.SetAside} {
 		if err := r.Register(c); err != nil {
 			return err
 		}

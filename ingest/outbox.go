@@ -189,7 +189,12 @@ func wake(c chan struct{}) {
 // calls it before the first commit, so nothing is queued twice.
 func (o *outbox) loadLeft() error {
 	left, err := o.s.o.DB.Outbox(laneBus, 0, 1<<30)
-	if err != nil {
+	var skipped *store.SkippedError
+	switch {
+	case errors.As(err, &skipped):
+		// The damaged items cannot be sent; the good ones still are.
+		o.log.Error().Err(err).Msg("outbox items damaged")
+	case err != nil:
 		return fmt.Errorf("ingest: outbox: %w", err)
 	}
 	if len(left) > 0 {

@@ -357,6 +357,12 @@ func (s *Service) restore() error {
 			s.log.Info().Str("sensor", r.ID).Msg("windows changed since the state was saved; panes of kept widths carried over")
 		}
 		dropped += r.Dropped
+		if r.SetAside != nil {
+			s.log.Error().Str("sensor", r.ID).Err(r.SetAside).Msg("stored state set aside: the sensor starts afresh")
+			if m := s.o.Metrics; m != nil {
+				m.SetAside.Inc()
+			}
+		}
 		st := s.addRef(r.ID, cfgs[r.ID], r.Sensor).st
 		st.since, st.savedSeq, st.lastSeq = r.Restart, r.Seq, r.Seq
 		return nil

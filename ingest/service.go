@@ -114,6 +114,11 @@ type Options struct {
 	// HistoryRetention deletes fit history older than this, a little at
 	// a time between commits. Zero keeps history forever.
 	HistoryRetention time.Duration
+	// HistoryThinAfter and HistoryThinTo thin the fit history older than
+	// HistoryThinAfter to one record per HistoryThinTo for windows whose
+	// pane is shorter (store.DB.ThinHistory), a little at a time between
+	// commits. Zero HistoryThinAfter keeps every record.
+	HistoryThinAfter, HistoryThinTo time.Duration
 	// Rule returns the alert rule of a sensor, ok false when it has none.
 	// Nil: no sensor is judged. It is called by the workers, concurrently:
 	// it must be safe for concurrent use.

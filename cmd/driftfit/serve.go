@@ -242,6 +242,8 @@ func serviceOptions(cfg *configs.Config, nc *nats.Conn, db *store.DB, log *zerol
 		FutureSkew:               cfg.Bus.FutureSkew,
 		MaxPayload:               cfg.Bus.MaxPayloadBytes,
 		HistoryRetention:         cfg.Store.HistoryRetention,
+		HistoryThinAfter:         cfg.Store.HistoryThinAfter,
+		HistoryThinTo:            cfg.Store.HistoryThinTo,
 		Logger:                   log,
 		Metrics:                  m,
 	}
