@@ -22,6 +22,10 @@ type alertEntry struct {
 	key      string // store key of its state: the id, or id + peerKey
 	tr       *alert.Tracker
 	lastEval map[rolling.WindowSpec]int64 // newest fit time evaluated, Unix ns
+	// ticketKinds (peer rule only) are the kinds whose attributed raise
+	// opens a ticket: those of the member's own rule. The peer rule
+	// itself opens none (see peerGroup).
+	ticketKinds []alert.Kind
 }
 
 // alertState is the alert side of a sensor's state; the sensor's worker
@@ -30,6 +34,10 @@ type alertEntry struct {
 type alertState struct {
 	made  [2]bool
 	entry [2]*alertEntry
+	// det holds the step and data-quality detectors of the own rule;
+	// nil when it sets none. detMade says it was looked up.
+	det     *detectState
+	detMade bool
 }
 
 // entry returns the sensor's tracker (peer: its peer rule's), making it
@@ -54,6 +62,7 @@ func (w *worker) entry(ref *sensorRef, peer bool) *alertEntry {
 		return nil
 	}
 	key := ref.id
+	var tk []alert.Kind
 	if peer {
 		key += peerKey
 		if ref.st.member != nil {
@@ -62,18 +71,23 @@ func (w *worker) entry(ref *sensorRef, peer bool) *alertEntry {
 		// The deviation from the peers starts at zero by construction:
 		// the tolerance band is centred there, whatever the as-left.
 		r.AsLeft, r.HasAsLeft = 0, true
+		// Tickets follow attribution, not a raise (see peerGroup); the
+		// detectors run on the member's own readings.
+		tk = ownTicketKinds(r.TicketKinds)
+		r.TicketKinds = []alert.Kind{}
+		r.Detect = alert.Detectors{}
 	}
 	tr, err := alert.NewTracker(ref.id, r)
 	if err != nil {
 		w.s.log.Warn().Str("sensor", ref.id).Err(err).Msg("alert rule refused")
 		return nil
 	}
-	e := &alertEntry{key: key, tr: tr, lastEval: map[rolling.WindowSpec]int64{}}
+	e := &alertEntry{key: key, tr: tr, lastEval: map[rolling.WindowSpec]int64{}, ticketKinds: tk}
 	if st, ok := w.s.savedAlerts[key]; ok {
 		if err := e.decode(st); err != nil {
 			w.s.log.Warn().Str("sensor", ref.id).Err(err).Msg("stored alert state unreadable; starting afresh")
 			tr, _ = alert.NewTracker(ref.id, r)
-			e = &alertEntry{key: key, tr: tr, lastEval: map[rolling.WindowSpec]int64{}}
+			e = &alertEntry{key: key, tr: tr, lastEval: map[rolling.WindowSpec]int64{}, ticketKinds: tk}
 		}
 	}
 	as.entry[i] = e
@@ -102,7 +116,45 @@ func (w *worker) judge(ref *sensorRef, peer bool, sol *rolling.Solution) {
 		return
 	}
 	e.lastEval[sol.Window] = last
+	w.judged(ref, e, d.Judgement)
 	w.decided(ref, e, d)
+}
+
+// judgePeer evaluates a member's deviation window, with usable members
+// in the bucket's reference, and reports whether it was judged.
+func (w *worker) judgePeer(ref *sensorRef, sol *rolling.Solution, usable int) bool {
+	e := w.entry(ref, true)
+	if e == nil || sol.N == 0 {
+		return false
+	}
+	last := sol.Last.UnixNano()
+	if last <= e.lastEval[sol.Window] {
+		return false // judged before a restart
+	}
+	// Two usable members are the least that make a reference other than
+	// the member itself.
+	d, err := e.tr.EvaluatePeers(sol.Last, sol, usable, 2)
+	if errors.Is(err, alert.ErrUnknownWindow) || errors.Is(err, alert.ErrStale) {
+		return false
+	}
+	if err != nil {
+		w.s.badLog.Warn().Str("sensor", ref.id).Err(err).Msg("peer alert evaluation")
+		return false
+	}
+	e.lastEval[sol.Window] = last
+	w.judged(ref, e, d.Judgement)
+	w.decided(ref, e, d)
+	return d.Judgement.OK()
+}
+
+// ownTicketKinds returns the kinds whose raise opens a ticket under a
+// rule with TicketKinds tk: tk itself, or Slope and LeadTime when nil
+// (alert.Rule.TicketKinds).
+func ownTicketKinds(tk []alert.Kind) []alert.Kind {
+	if tk == nil {
+		return []alert.Kind{alert.Slope, alert.LeadTime}
+	}
+	return append([]alert.Kind{}, tk...)
 }
 
 // decided queues the entry's new state and the decision's events,
@@ -196,6 +248,7 @@ func (w *worker) calibrate(ref *sensorRef, c alert.Calibration) error {
 		}
 		w.decided(ref, e, d)
 	}
+	w.calibrated(ref)
 	return nil
 }
 

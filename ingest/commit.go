@@ -154,6 +154,7 @@ func (w *worker) save(b *store.Batch, ref *sensorRef) error {
 		keep(b.SetRestart(ref.id, st.since))
 	}
 	keep(b.Sensor(ref.id, st.sensor))
+	keep(w.savePeer(b, ref))
 	if st.lastSeq != 0 && st.lastSeq != st.savedSeq {
 		keep(b.SetSeq(ref.id, st.lastSeq))
 		st.savedSeq = st.lastSeq

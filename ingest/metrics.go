@@ -17,6 +17,11 @@ type Metrics struct {
 	// SetAside counts sensors whose stored state failed its checks: set
 	// aside at a restore (restarted fresh) or left out of a commit.
 	SetAside prometheus.Counter
+	// Spikes counts readings the spike detector kept out of the fits.
+	Spikes prometheus.Counter
+	// NotJudged holds, per reason, the sensor windows whose latest
+	// evaluation was not judged (alert.Reason).
+	NotJudged *prometheus.GaugeVec
 }
 
 // NewMetrics returns the instruments, not yet registered.
@@ -53,12 +58,18 @@ func NewMetrics() *Metrics {
 		SlowConsumer: prometheus.NewCounter(prometheus.CounterOpts{
 			Name: "driftfit_slow_consumer_total", Help: "Slow-consumer events on the bus connection (direct mode drops messages then).",
 		}),
+		Spikes: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "driftfit_readings_spikes_total", Help: "Readings the spike detector kept out of the fits.",
+		}),
+		NotJudged: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "driftfit_windows_not_judged", Help: "Sensor windows whose latest evaluation was not judged, by reason.",
+		}, []string{"reason"}),
 	}
 }
 
 // Register registers every instrument with r.
 func (m *Metrics) Register(r prometheus.Registerer) error {
-	for _, c := range []prometheus.Collector{m.Messages, m.Applied, m.Rejected, m.Sensors, m.CommitTime, m.CommitBytes, m.StreamLag, m.BusConnected, m.SlowConsumer, m.SetAside} {
+	for _, c := range []prometheus.Collector{m.Messages, m.Applied, m.Rejected, m.Sensors, m.CommitTime, m.CommitBytes, m.StreamLag, m.BusConnected, m.SlowConsumer, m.SetAside, m.Spikes, m.NotJudged} {
 		if err := r.Register(c); err != nil {
 			return err
 		}

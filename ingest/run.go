@@ -128,6 +128,8 @@ type Service struct {
 	wakeCommit  chan struct{} // workers: a decision waits to be committed
 	freed       chan struct{} // committer: a commit is done
 
+	dq serviceQuality // restored peer deviation sensors (detect.go)
+
 	// appliedBase is the applied count of the restored state; the
 	// workers count from zero on top of it.
 	appliedBase uint64
@@ -343,7 +345,7 @@ func (s *Service) restore() error {
 	t0 := time.Now()
 	var dropped int
 	err := s.o.DB.Restore(func(id string) (*rolling.Sensor, error) {
-		cfg, err := s.o.Sensor(id)
+		cfg, err := s.o.Sensor(restoredID(id))
 		if err != nil {
 			s.log.Warn().Str("sensor", id).Err(err).Msg("stored sensor has no configuration; left out")
 			return nil, nil
@@ -353,6 +355,9 @@ func (s *Service) restore() error {
 		mu.Unlock()
 		return rolling.NewSensor(cfg.Windows...)
 	}, func(r store.Restored) error {
+		if s.keepPeerSensor(r) {
+			return nil
+		}
 		if r.Changed {
 			s.log.Info().Str("sensor", r.ID).Msg("windows changed since the state was saved; panes of kept widths carried over")
 		}

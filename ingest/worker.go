@@ -44,6 +44,8 @@ type worker struct {
 	taken  [][]func(error)       // answers of the sensors in the snapshot being made
 
 	saved uint64 // readings applied and snapshotted, ever; read at commit tokens
+
+	dq workerQuality // detectors' clock, judgements (detect.go)
 }
 
 type histEntry struct {
@@ -201,10 +203,15 @@ func (w *worker) fold(ref *sensorRef, rs []rolling.Reading, seq uint64) {
 		st.lastSeq = seq
 	}
 	var ok uint64
+	det := w.detectors(ref)
+	taken := w.dq.ok[:0]
 	for _, r := range rs {
 		if r.UnixNano < st.since {
 			w.reject(ref, r, errBeforeRestart)
 			continue
+		}
+		if det != nil && w.screen(ref, det, r) {
+			continue // a spike: kept out of the fits
 		}
 		if mask := st.sensor.Closes(r.UnixNano); mask != 0 {
 			w.closePanes(ref, mask)
@@ -214,15 +221,18 @@ func (w *worker) fold(ref *sensorRef, rs []rolling.Reading, seq uint64) {
 			continue
 		}
 		ok++
+		taken = append(taken, r)
+		if det != nil {
+			w.observed(ref, det, r)
+		}
 	}
+	w.dq.ok = taken
 	st.unsaved += ok
 	w.s.applied.Add(ok)
 	if m := w.s.o.Metrics; m != nil {
 		m.Applied.Add(float64(ok))
 	}
-	if st.member != nil {
-		w.peerApplied(st.member, rs)
-	}
+	w.folded(ref, taken)
 	if f := w.s.o.OnApplied; f != nil {
 		f(ref.id, rs)
 	}
@@ -307,6 +317,9 @@ func (w *worker) closePanes(ref *sensorRef, mask uint64) {
 			} else {
 				w.judge(ref, false, sol)
 			}
+		}
+		if det := ref.st.alerts.det; det != nil {
+			w.paneClosed(ref, det, i, sol)
 		}
 	}
 }
