@@ -14,7 +14,8 @@ import (
 )
 
 // ruleFor maps a sensor's class onto an alert rule; ok is false for a
-// sensor with no class, or a class without a tolerance or limit.
+// sensor with no class, or a class without a tolerance, or with neither
+// a limit nor a detector.
 func ruleFor(cfg *configs.Config, id string) (alert.Rule, bool, error) {
 	c, err := cfg.ClassFor(id)
 	if errors.Is(err, configs.ErrNoClass) {
@@ -54,7 +55,16 @@ func ruleFor(cfg *configs.Config, id string) (alert.Rule, bool, error) {
 			r.TicketKinds = append(r.TicketKinds, k)
 		}
 	}
-	on := r.Limits.Slope.On() || r.Limits.Curvature.On() || r.Limits.Doubling.On() || r.Limits.LeadTime.On()
+	d := c.Detectors
+	r.Detect = alert.Detectors{
+		Step:      alert.StepSettings{On: d.Step.On, K: d.Step.K, H: d.Step.H},
+		Flatline:  alert.FlatlineSettings{For: d.Flatline.For, MinCount: d.Flatline.MinCount, Resolution: d.Flatline.Resolution},
+		Spike:     alert.SpikeSettings{K: d.Spike.K, Count: d.Spike.Count, Within: d.Spike.Within},
+		Silent:    d.Silent,
+		OutOfSpan: d.OutOfSpan,
+	}
+	on := r.Limits.Slope.On() || r.Limits.Curvature.On() || r.Limits.Doubling.On() || r.Limits.LeadTime.On() ||
+		d.Step.On || d.Flatline.For > 0 || d.Spike.K > 0 || d.Silent > 0 || d.OutOfSpan
 	return r, on && r.Tolerance > 0, nil
 }
 
