@@ -34,7 +34,8 @@ import (
 // ahead of the member's next newest: one reading stamped ahead of the
 // rest (a live reading during a historian backfill) then moves nothing
 // until the member's other readings catch up. A member whose watermark
-// falls more than the lateness behind the group's newest is quiet: the
+// falls more than the lateness behind the group's newest, while the
+// others sent two rounds of messages since its last one, is quiet: the
 // group stops waiting for it, and it is live in no bucket compared
 // meanwhile (its late readings for those buckets are not compared).
 //
@@ -55,6 +56,7 @@ type peerGroup struct {
 	members   []*peerMember
 	buckets   map[int64][]peerSum // bucket index → per member sums
 	finalized int64               // buckets up to this index are done
+	msgs      uint64              // messages of members taken
 	started   bool
 	comparing bool // the last compared bucket had two or more usable members
 
@@ -81,6 +83,7 @@ type peerMember struct {
 	top1, top2 int64
 	n          int
 	quiet      bool
+	lastMsg    uint64 // g.msgs after the member's newest message
 
 	// per compare: the windows whose deviation pane closed, their
 	// solutions and whether they were judged
@@ -222,6 +225,8 @@ func (w *worker) peerApplied(m *peerMember, readings []rolling.Reading) {
 			g.finalized, g.started = k-1, true
 		}
 	}
+	g.msgs++
+	m.lastMsg = g.msgs
 	w.advance(g)
 }
 
@@ -247,7 +252,11 @@ func (w *worker) advance(g *peerGroup) {
 		if !ok {
 			continue
 		}
-		quiet := newest-wm > g.lateness
+		// Behind by more than the lateness, and passed by two rounds of
+		// the others' messages: a member whose readings come a day to a
+		// message is not quiet while the others' messages of that day are
+		// still arriving.
+		quiet := newest-wm > g.lateness && g.msgs-m.lastMsg > 2*uint64(len(g.members)-1)
 		if quiet != m.quiet {
 			m.quiet = quiet
 			ev := w.s.log.Info().Str("sensor", m.ref.id).Str("group", g.name).Time("watermark", time.Unix(0, wm).UTC()).Time("group_newest", time.Unix(0, newest).UTC())

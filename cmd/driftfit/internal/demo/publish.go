@@ -107,7 +107,7 @@ func Publish(ctx context.Context, nc *nats.Conn, o Options, log zerolog.Logger) 
 			return err
 		}
 		if o.Bad && step/100 != (step+n)/100 {
-			publishBad(nc, o.Prefix, plant[0].ID)
+			publishBad(nc, o.Prefix, plant[0].ID, start.Add(time.Duration(step+n-1)*o.Every))
 		}
 		for range n {
 			select {
@@ -138,9 +138,14 @@ func Publish(ctx context.Context, nc *nats.Conn, o Options, log zerolog.Logger) 
 	}
 }
 
-// publishBad sends one message of each kind of bad input.
-func publishBad(nc *nats.Conn, prefix, id string) {
-	now := strconv.FormatInt(time.Now().Unix(), 10)
+// publishBad sends one message of each kind of bad input, stamped at
+// plant time at (the time of the newest readings published). A reading
+// stamped with the wall clock during the backfill would lie weeks ahead
+// of the rest of its sensor and move its windows past every reading
+// still to come. The future time is the wall clock's, as the service
+// judges it.
+func publishBad(nc *nats.Conn, prefix, id string, at time.Time) {
+	now := strconv.FormatInt(at.Unix(), 10)
 	future := strconv.FormatInt(time.Now().Add(48*time.Hour).Unix(), 10)
 	for _, payload := range []string{
 		`{"t": ` + now + `, "v": `,                                      // malformed JSON
