@@ -22,7 +22,8 @@ import (
 //     with the shortest pane, at its last pane close; a reading the
 //     SpikeDetector flags is not folded into the fits and is counted in
 //     Metrics.Spikes;
-//   - flatline and out_of_span: every reading folded;
+//   - out_of_span: every reading, spikes included; flatline: every
+//     reading folded;
 //   - silent: judged on the worker's clock, the newest reading time the
 //     worker applied for any of its sensors, every silenceCheck of that
 //     clock. The hot path has no clock of its own, and reading time is
@@ -174,6 +175,15 @@ func (w *worker) detectors(ref *sensorRef) *detectState {
 // screen judges reading r before it is folded and reports whether it is
 // a spike, to be kept out of the fits.
 func (w *worker) screen(ref *sensorRef, det *detectState, r rolling.Reading) bool {
+	at := time.Unix(0, r.UnixNano)
+	// Every reading is checked against the span, a spike too: a reading
+	// far beyond the calibrated range is both.
+	if det.span {
+		if res := alert.SpanCheck(at, r.Value, det.lo, det.hi); res.Active != det.active[alert.OutOfSpan] {
+			det.active[alert.OutOfSpan] = res.Active
+			w.report(ref, det, at, alert.Finding{Kind: alert.OutOfSpan, Result: res})
+		}
+	}
 	if !det.spikeOn {
 		return false
 	}
@@ -181,7 +191,6 @@ func (w *worker) screen(ref *sensorRef, det *detectState, r rolling.Reading) boo
 	if !dw.hasFit {
 		return false // nothing to judge against yet
 	}
-	at := time.Unix(0, r.UnixNano)
 	_, e, ok := alert.OneStepError(&dw.fit, at, r.Value, 1)
 	if !ok {
 		return false
@@ -218,12 +227,6 @@ func (w *worker) observed(ref *sensorRef, det *detectState, r rolling.Reading) {
 		if res := det.flat.Update(at, r.Value); res.Active != det.active[alert.Flatline] {
 			det.active[alert.Flatline] = res.Active
 			w.report(ref, det, at, alert.Finding{Kind: alert.Flatline, Result: res})
-		}
-	}
-	if det.span {
-		if res := alert.SpanCheck(at, r.Value, det.lo, det.hi); res.Active != det.active[alert.OutOfSpan] {
-			det.active[alert.OutOfSpan] = res.Active
-			w.report(ref, det, at, alert.Finding{Kind: alert.OutOfSpan, Result: res})
 		}
 	}
 	if det.silent > 0 && det.active[alert.Silent] {
