@@ -2,7 +2,7 @@ package ingest_test
 
 import (
 	"encoding/json"
-		"math/rand/v2"
+	"math/rand/v2"
 	"path/filepath"
 	"testing"
 	"time"
