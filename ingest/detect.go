@@ -48,6 +48,11 @@ type detectState struct {
 	span     bool
 	lo, hi   float64
 	trend    rolling.Model
+	// rebaseline restarts the fits from a confirmed step's change time
+	// (SensorConfig.StepRebaseline); rebaseFrom is that time, Unix ns,
+	// while a restart waits for the end of the pane closes.
+	rebaseline bool
+	rebaseFrom int64
 	// active is the last Active reported per detector kind (per sensor;
 	// step, per window, in detectWin).
 	active [16]bool
@@ -168,6 +173,12 @@ func (w *worker) detectors(ref *sensorRef) *detectState {
 	if det.silent > 0 {
 		w.dq.silent = append(w.dq.silent, ref)
 	}
+	if d.Step.On {
+		// Called once per sensor; Options.Sensor is safe for concurrent use.
+		if cfg, err := w.s.o.Sensor(ref.id); err == nil {
+			det.rebaseline = cfg.StepRebaseline
+		}
+	}
 	as.det = det
 	return det
 }
@@ -249,6 +260,9 @@ func (w *worker) paneClosed(ref *sensorRef, det *detectState, i int, sol *rollin
 				dw.stepActive = res.Signal
 				f := res.Finding(dw.spec, dw.h)
 				f.Fit, f.Coverage = dw.fitPtr(), dw.cov
+				if res.Signal && det.rebaseline && res.Since.UnixNano() > ref.st.since {
+					det.rebaseFrom = max(det.rebaseFrom, res.Since.UnixNano())
+				}
 				if res.Signal {
 					w.s.log.Info().Str("sensor", ref.id).Str("window", alert.WindowName(dw.spec)).Time("since", res.Since).
 						Float64("size", res.Size).Int("n", res.Updates).Bool("up", res.Up).Msg("step found")
@@ -265,6 +279,28 @@ func (w *worker) paneClosed(ref *sensorRef, det *detectState, i int, sol *rollin
 	dw.fit, dw.hasFit, dw.cov = *trend, trend.OK() && sol.N > 0, 0
 	if sol.Panes > 0 {
 		dw.cov = sol.Coverage()
+	}
+}
+
+// rebaseline restarts the sensor's fits from the change time of the step
+// just confirmed, once its pane closes are done: the windows are emptied
+// (their stored panes deleted with the next commit) and readings older
+// than the change are refused from then on, as after a calibration, but
+// the trackers and their as-left value are kept.
+func (w *worker) rebaseline(ref *sensorRef, det *detectState) {
+	from := det.rebaseFrom
+	det.rebaseFrom = 0
+	w.s.log.Info().Str("sensor", ref.id).Time("from", time.Unix(0, from).UTC()).Msg("fits re-baselined after a step")
+	w.restart(&restartJob{ref: ref, from: from})
+	det.restartWindows()
+}
+
+// restartWindows forgets what the detectors learnt of the windows' fits.
+func (det *detectState) restartWindows() {
+	for i := range det.wins {
+		dw := &det.wins[i]
+		dw.step.Restart()
+		dw.hasFit, dw.n, dw.sum, dw.tsum, dw.stepActive = false, 0, 0, 0, false
 	}
 }
 
@@ -330,11 +366,7 @@ func (w *worker) calibrated(ref *sensorRef) {
 		}
 	}
 	if det := ref.st.alerts.det; det != nil {
-		for i := range det.wins {
-			dw := &det.wins[i]
-			dw.step.Restart()
-			dw.hasFit, dw.n, dw.sum, dw.tsum, dw.stepActive = false, 0, 0, 0, false
-		}
+		det.restartWindows()
 	}
 }
 

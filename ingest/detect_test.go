@@ -4,6 +4,7 @@ import (
 	"encoding/json"
 	"math/rand/v2"
 	"path/filepath"
+	"sync"
 	"testing"
 	"time"
 
@@ -65,7 +66,9 @@ func publishBatchJS(t *testing.T, js nats.JetStreamContext, id string, rs []roll
 // TestStepDetector_StepVersusDrift, here through the service, whose step
 // detector takes each hourly pane's mean against the 1-day window's line
 // fit before it. The step must raise a step alert dated within two
-// hours of the change with its size within 0.5; the ramp alone none.
+// hours of the change; the ramp alone none. A third sensor with the same
+// readings re-baselines after the step (SensorConfig.StepRebaseline): its
+// window restarts after the change time.
 func TestService_StepVersusDrift(t *testing.T) {
 	dir := t.TempDir()
 	ns := natsServer(t, filepath.Join(dir, "nats"), 0)
@@ -74,7 +77,27 @@ func TestService_StepVersusDrift(t *testing.T) {
 	rule.Windows = []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}}
 	rule.Limits.Slope = alert.RateLimit{Warning: 100} // far beyond the ramp: only the step detector speaks
 	rule.Detect.Step.On = true
-	h := startAlertService(t, ns.ClientURL(), dir, rule, "", nil)
+	// pt-203 has pt-202's readings and re-baselines after a step; the
+	// newest pane close of each shows where its window starts.
+	t0 := time.Date(2026, 10, 1, 0, 0, 0, 0, time.UTC)
+	stepAt := t0.Add(15 * 24 * time.Hour)
+	var mu sync.Mutex
+	first := map[string]time.Time{}
+	h := startAlertService(t, ns.ClientURL(), dir, rule, "", func(o *ingest.Options) {
+		sensor := o.Sensor
+		o.Sensor = func(id string) (ingest.SensorConfig, error) {
+			c, err := sensor(id)
+			c.StepRebaseline = id == "qm.u1.steam.pt-203"
+			return c, err
+		}
+		o.OnPaneClose = func(id string, _ int, sol *rolling.Solution) {
+			if d := sol.Last.Sub(stepAt); d >= 12*time.Hour && d < 13*time.Hour {
+				mu.Lock()
+				first[id] = sol.First
+				mu.Unlock()
+			}
+		}
+	})
 	sub := subscribeOwn(t, ns.ClientURL(), "driftfit.alerts.>")
 	js, err := h.nc.JetStream()
 	if err != nil {
@@ -82,13 +105,11 @@ func TestService_StepVersusDrift(t *testing.T) {
 	}
 	const seed = 42
 	t.Logf("seed %d", seed)
-	t0 := time.Date(2026, 10, 1, 0, 0, 0, 0, time.UTC)
-	stepAt := t0.Add(15 * 24 * time.Hour)
 	n := 0
 	for _, c := range []struct {
 		id   string
 		step float64
-	}{{"qm.u1.steam.pt-201", 0}, {"qm.u1.steam.pt-202", 2}} {
+	}{{"qm.u1.steam.pt-201", 0}, {"qm.u1.steam.pt-202", 2}, {"qm.u1.steam.pt-203", 2}} {
 		rng := rand.New(rand.NewPCG(seed, uint64(c.step)))
 		var rs []rolling.Reading
 		for now := t0; now.Before(t0.Add(20 * 24 * time.Hour)); now = now.Add(5 * time.Minute) {
@@ -112,10 +133,19 @@ func TestService_StepVersusDrift(t *testing.T) {
 			steps = append(steps, ev)
 		}
 	}
-	if len(steps) != 1 || steps[0].Sensor != "qm.u1.steam.pt-202" {
-		t.Fatalf("step raises %+v: want one, on qm.u1.steam.pt-202", steps)
+	if len(steps) != 2 || steps[0].Sensor == steps[1].Sensor || steps[0].Sensor == "qm.u1.steam.pt-201" || steps[1].Sensor == "qm.u1.steam.pt-201" {
+		t.Fatalf("step raises %+v: want one on pt-202 and one on pt-203, none on the ramp pt-201", steps)
 	}
 	ev := steps[0]
+	// Twelve hours after the step the re-baselined window starts after
+	// the change time, the other still holds the half day before it.
+	mu.Lock()
+	f2, f3 := first["qm.u1.steam.pt-202"], first["qm.u1.steam.pt-203"]
+	mu.Unlock()
+	if !f2.Before(stepAt) || f3.Before(stepAt) {
+		t.Errorf("windows 12 h after the step start at %v (pt-202) and %v (pt-203, re-baselined); want before and after %v", f2, f3, stepAt)
+	}
+	t.Logf("windows 12 h after the step start at %v (pt-202) and %v (pt-203, re-baselined)", f2, f3)
 	if ev.At.Before(stepAt) || ev.At.Sub(stepAt) > 24*time.Hour {
 		t.Errorf("step raised at %v, want within a day after %v", ev.At, stepAt)
 	}

@@ -45,6 +45,13 @@ type SensorConfig struct {
 	// Group names the sensor's peer group; empty: none. All members of a
 	// group are routed to one worker, which compares them.
 	Group string
+	// StepRebaseline restarts the sensor's fits from the change time of
+	// each step its step detector confirms (alert.Detectors.Step), as a
+	// calibration restarts them but keeping the as-left value, so that
+	// the windows do not read the step as drift. The readings between
+	// the change and its confirmation are not refitted. False: the
+	// windows keep the step until it slides out.
+	StepRebaseline bool
 }
 
 // Options configure a Service. Zero fields take the documented defaults.

@@ -322,6 +322,9 @@ func (w *worker) closePanes(ref *sensorRef, mask uint64) {
 			w.paneClosed(ref, det, i, sol)
 		}
 	}
+	if det := ref.st.alerts.det; det != nil && det.rebaseFrom != 0 {
+		w.rebaseline(ref, det)
+	}
 }
 
 // reject dead-letters one reading the sensor refused.
