@@ -415,7 +415,8 @@ func (st *sensorState) ownEvidence() bool {
 }
 
 // judged keeps a window's judgement for Service.Judgements and, when its
-// verdict changed, counts it by reason and logs it.
+// verdict changed, counts it by reason and logs it (not a window's first
+// verdict when that is too few readings, as every window's is).
 func (w *worker) judged(ref *sensorRef, e *alertEntry, j alert.Judgement) {
 	if j.Reason == alert.ReasonUnknown {
 		return
@@ -432,6 +433,9 @@ func (w *worker) judged(ref *sensorRef, e *alertEntry, j alert.Judgement) {
 	if seen && prev.Same(j) {
 		return
 	}
+	// Every window starts with too few readings: counted and kept, but
+	// a log line per window at start would bury the rest.
+	quiet := !seen && j.Reason == alert.TooFewReadings
 	if m := w.s.o.Metrics; m != nil && m.NotJudged != nil {
 		if seen && !prev.OK() {
 			m.NotJudged.WithLabelValues(prev.Reason.String()).Dec()
@@ -439,6 +443,9 @@ func (w *worker) judged(ref *sensorRef, e *alertEntry, j alert.Judgement) {
 		if !j.OK() {
 			m.NotJudged.WithLabelValues(j.Reason.String()).Inc()
 		}
+	}
+	if quiet {
+		return
 	}
 	w.s.log.Info().Str("sensor", e.key).Str("window", alert.WindowName(j.Window)).Str("reason", j.Reason.String()).
 		Int("n", j.N).Int("min_n", j.MinN).Float64("coverage", j.Coverage).Float64("min_coverage", j.MinCoverage).

@@ -42,6 +42,20 @@
 //   - Something the flow decides per pane close: worker.judge in
 //     alerts.go; what it stores goes through worker.decided, so it lands
 //     in the sensor's next commit.
+//   - A detector (step, spike, flatline, silent, out of span): detect.go,
+//     reported through the sensor's own tracker (alert.Tracker.Observe);
+//     peer-group comparison and attribution: peers.go.
+//
+// # Peer groups, detectors, judgements
+//
+// A peer-group member is judged on its deviation from the median of the
+// group's usable members (alert.PeerDeviations), and ticketed only when
+// alert.Attribute names it; see peerGroup in peers.go for the watermarks
+// that decide when a time bucket is compared. The step and data-quality
+// detectors run beside the fits (detectState in detect.go); a spike is
+// kept out of the fits. Every window's latest alert.Judgement is counted
+// by reason (Metrics.NotJudged), logged when it changes, and readable
+// through Service.Judgements.
 //
 // # Decoding contract
 //
