@@ -129,6 +129,13 @@ func (s *Service) keepPeerSensor(r store.Restored) bool {
 	if s.dq.savedPeers == nil {
 		s.dq.savedPeers = map[string]*rolling.Sensor{}
 	}
+	if r.SetAside != nil {
+		s.log.Error().Str("sensor", r.ID).Err(r.SetAside).Msg("stored state set aside: the sensor starts afresh")
+		if m := s.o.Metrics; m != nil {
+			m.SetAside.Inc()
+		}
+		return true
+	}
 	if r.Sensor != nil {
 		s.dq.savedPeers[r.ID] = r.Sensor
 	}
