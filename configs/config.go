@@ -340,6 +340,10 @@ type StepDetector struct {
 	// 0: 0.5. H is the decision interval, >= 0; 0: from the alarm
 	// budget.
 	K, H float64
+	// Rebaseline restarts the sensor's fits from the change time of a
+	// confirmed step (keeping the as-left), so the step does not show as
+	// a slope. Default false.
+	Rebaseline bool
 }
 
 // Flatline configures the stuck-value detector.

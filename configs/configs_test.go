@@ -819,7 +819,7 @@ func TestLoad_AlarmSettings(t *testing.T) {
 		t.Fatal(err)
 	}
 	want := configs.Detectors{
-		Step:      configs.StepDetector{On: true, K: 0.5},
+		Step:      configs.StepDetector{On: true, K: 0.5, Rebaseline: true},
 		Flatline:  configs.Flatline{For: 6 * time.Hour, MinCount: 20, Resolution: 0.1},
 		Spike:     configs.Spike{K: 6, Count: 3, Within: time.Hour},
 		Silent:    2 * time.Hour,

@@ -540,8 +540,9 @@ func (d *decoder) classFields(c *Class) map[string]handler {
 				"step": func(n ast.Node, p string) {
 					dt.Step.On = true
 					d.fields(n, p, map[string]handler{
-						"k": d.float(&dt.Step.K),
-						"h": d.float(&dt.Step.H),
+						"k":          d.float(&dt.Step.K),
+						"h":          d.float(&dt.Step.H),
+						"rebaseline": d.boolean(&dt.Step.Rebaseline),
 					})
 				},
 				"flatline": func(n ast.Node, p string) {

@@ -37,6 +37,10 @@ func TestRuleFor_Detectors(t *testing.T) {
 	if !slices.Equal(r.TicketKinds, []alert.Kind{alert.Slope, alert.LeadTime, alert.Step}) {
 		t.Errorf("ruleFor TicketKinds = %v, want slope, lead_time, step", r.TicketKinds)
 	}
+	// detectors.step.rebaseline reaches the sensor's ingest settings.
+	if sc, err := sensorConfig(cfg)("qm.u2.steam.pt-7"); err != nil || !sc.StepRebaseline {
+		t.Errorf("sensorConfig StepRebaseline = %v (%v), want true as written", sc.StepRebaseline, err)
+	}
 	tr, err := alert.NewTracker("qm.u2.steam.pt-7", r)
 	if err != nil {
 		t.Fatalf("NewTracker(ruleFor) = %v", err)

@@ -275,7 +275,8 @@ func sensorConfig(cfg *configs.Config) func(id string) (ingest.SensorConfig, err
 		if err != nil {
 			return ingest.SensorConfig{}, err
 		}
-		return ingest.SensorConfig{Windows: toSpecs(c.Windows), Unit: c.Unit, Group: c.Group}, nil
+		return ingest.SensorConfig{Windows: toSpecs(c.Windows), Unit: c.Unit, Group: c.Group,
+			StepRebaseline: c.Detectors.Step.On && c.Detectors.Step.Rebaseline}, nil
 	}
 }
 
