@@ -133,6 +133,10 @@ func TestReplay_Usage(t *testing.T) {
 		{[]string{"replay", "--window", "1d", "-"}, "no pane width"},
 		{[]string{"replay", "--window", "90m/1h", "-"}, "whole multiple"},
 		{[]string{"replay", "--format", "xml", "-"}, `--format "xml"`},
+		// The pane cap: 1h/1ns asked for 3.6e12 panes (a makeslice panic),
+		// 1d/10ms for 8.64e6 panes, 1.1 GB a sensor.
+		{[]string{"replay", "--window", "1h/1ns", "-"}, `--window "1h/1ns": 3600000000000 panes of 1ns in a span of 1h; at most 100000`},
+		{[]string{"replay", "--window", "1d/10ms", "-"}, `8640000 panes of 10ms in a span of 1d; at most 100000`},
 	}
 	for _, tc := range cases {
 		_, stderr, code := runCmd(t, "sensor,time,value\n", tc.args...)

@@ -29,12 +29,26 @@ type Window struct {
 	Spec  rolling.WindowSpec
 }
 
+// MaxPanes bounds the panes of one window (span / pane), the limit the
+// configuration applies to its windows too ("at most 100,000 panes", see
+// the README's defaults section). A ring is allocated whole with a
+// sensor's first reading, 128 bytes a pane: 100,000 panes are 12.8 MB a
+// sensor, while a typing slip such as 1h/1ns asks for 3.6e12 panes.
+const MaxPanes = 100000
+
 // WindowError is a --window or --pane value that is not a window.
 type WindowError struct {
 	Flag, Value, Want string
+	// Err is rolling.ErrBadSpec (possibly wrapped) when the engine or
+	// the pane cap refused the window, nil for a value that does not
+	// parse.
+	Err error
 }
 
 func (e *WindowError) Error() string { return fmt.Sprintf("--%s %q: %s", e.Flag, e.Value, e.Want) }
+
+// Unwrap returns the cause, if any.
+func (e *WindowError) Unwrap() error { return e.Err }
 
 // ParseWindows parses a comma-separated list of window spans, each
 // optionally with its own pane width after a slash ("1d,30d/1d"); pane is
@@ -44,7 +58,7 @@ func ParseWindows(list, pane string) ([]Window, error) {
 	if pane != "" {
 		d, err := configs.ParseDuration(pane)
 		if err != nil {
-			return nil, &WindowError{"pane", pane, err.Error()}
+			return nil, &WindowError{Flag: "pane", Value: pane, Want: err.Error()}
 		}
 		defPane = d
 	}
@@ -54,20 +68,26 @@ func ParseWindows(list, pane string) ([]Window, error) {
 		spanText, paneText, hasPane := strings.Cut(item, "/")
 		span, err := configs.ParseDuration(spanText)
 		if err != nil {
-			return nil, &WindowError{"window", item, err.Error()}
+			return nil, &WindowError{Flag: "window", Value: item, Want: err.Error()}
 		}
 		p := defPane
 		if hasPane {
 			if p, err = configs.ParseDuration(paneText); err != nil {
-				return nil, &WindowError{"window", item, "pane: " + err.Error()}
+				return nil, &WindowError{Flag: "window", Value: item, Want: "pane: " + err.Error()}
 			}
 		}
 		if p == 0 {
-			return nil, &WindowError{"window", item, "no pane width: give --pane or write span/pane"}
+			return nil, &WindowError{Flag: "window", Value: item, Want: "no pane width: give --pane or write span/pane"}
 		}
 		spec := rolling.WindowSpec{Span: span, Pane: p}
+		// The cap is checked before the engine sees the spec: NewSensor
+		// allocates the ring at once.
+		if p > 0 && span > 0 && span/p > MaxPanes {
+			return nil, &WindowError{Flag: "window", Value: item, Err: rolling.ErrBadSpec,
+				Want: fmt.Sprintf("%d panes of %s in a span of %s; at most %d", span/p, configs.FormatDuration(p), configs.FormatDuration(span), MaxPanes)}
+		}
 		if _, err := rolling.NewSensor(spec); err != nil {
-			return nil, &WindowError{"window", item, err.Error()}
+			return nil, &WindowError{Flag: "window", Value: item, Want: err.Error(), Err: err}
 		}
 		out = append(out, Window{Label: item, Spec: spec})
 	}
