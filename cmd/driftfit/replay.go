@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"flag"
 	"io"
 	"os"
 	"strings"
@@ -9,13 +10,29 @@ import (
 
 	"driftfit/cmd/driftfit/internal/replay"
 	"driftfit/cmd/driftfit/internal/report"
+	"driftfit/ingest"
 )
 
 const replayHelp = `Usage: driftfit replay [flags] FILE.csv|-
+       driftfit replay --config FILE [--calibrations FILE] [--events FILE] [--tickets FILE] [flags] FILE.csv|-
 
 Feeds every row of a CSV file through the sliding fits in file order and
 prints the final fits of every sensor, window and model, sorted by sensor,
 window span and model.
+
+With --config, the readings go through the service itself, as serve runs
+it (classes, limits, peer groups, calibrations; on an embedded bus and a
+scratch state file, removed afterwards; no webhook is called), and replay
+writes every alert event (as "driftfit alerts --format json" prints it) and
+every ticket opening and closing (as "driftfit tickets --format json"
+prints it, with "at" first: the reading or calibration time at which it
+arose) as JSON lines in time order: to standard output, or to the files
+--events and --tickets name. The windows are the configuration's, so
+--window, --pane and --format do not apply. Calibrations (--calibrations,
+CSV with the columns sensor, time, as_found, as_left) are sent as the
+readings reach their time: a calibration of a sensor goes just before that
+sensor's first row at or after its time, once the readings before it are
+applied; the rest after the last row.
 
 The file has a header naming its columns; by default sensor, time and value
 (any order, other columns ignored), or the names --columns gives. Times are
@@ -34,6 +51,12 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	columns := fs.String("columns", "", "header names of the columns, e.g. `sensor=Tag,time=Timestamp,value=Value` (default sensor, time, value)")
 	delimiter := fs.String("delimiter", ",", "field delimiter, one character such as ';' or '\\t' for a tab")
 	zone := fs.String("time-zone", "UTC", "IANA time `ZONE` of wall-clock times without offset, e.g. Europe/Berlin")
+	var fl flowFlags
+	fs.StringVar(&fl.config, "config", "", "configuration `FILE` (YAML): replay through the service, writing alert events and tickets")
+	fs.StringVar(&fl.calibrations, "calibrations", "", "with --config: calibrations `FILE` (CSV: sensor,time,as_found,as_left)")
+	fs.StringVar(&fl.events, "events", "", "with --config: write the alert events to `FILE` (default standard output)")
+	fs.StringVar(&fl.tickets, "tickets", "", "with --config: write the ticket openings and closings to `FILE` (default standard output)")
+	fs.StringVar(&fl.logLevel, "log-level", "error", "with --config: level of the service's log on standard error: debug, info, warn, error")
 	pos, err := fs.parse(args)
 	if err != nil {
 		return err
@@ -41,22 +64,15 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	if len(pos) != 1 {
 		return usageError("want one input file (or - for standard input), got %d arguments", len(pos))
 	}
-	out, err := report.New(*format, report.Fits, stdout, report.Options{})
-	if err != nil {
-		return usageError("--format %v", err)
-	}
-	o := replay.Options{Strict: *strict, Errors: stderr}
-	if o.Windows, err = replay.ParseWindows(*windows, *pane); err != nil {
-		return err
-	}
-	if o.CSV.Location, err = time.LoadLocation(*zone); err != nil || *zone == "" || *zone == "Local" {
+	var csvOpts ingest.CSVOptions
+	if csvOpts.Location, err = time.LoadLocation(*zone); err != nil || *zone == "" || *zone == "Local" {
 		return usageError("--time-zone %q: want an IANA zone name such as UTC or Europe/Berlin", *zone)
 	}
 	switch d := strings.ReplaceAll(*delimiter, `\t`, "\t"); {
 	case len(d) != 1 || d == `"` || d == "\r" || d == "\n":
 		return usageError("--delimiter %q: want one character other than a quote or line end, such as ';'", *delimiter)
 	default:
-		o.CSV.Comma = d[0]
+		csvOpts.Comma = d[0]
 	}
 	if *columns != "" {
 		for _, kv := range strings.Split(*columns, ",") {
@@ -65,14 +81,39 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 			case !ok || v == "":
 				return usageError("--columns %q: want sensor=NAME,time=NAME,value=NAME", *columns)
 			case k == "sensor":
-				o.CSV.Sensor = v
+				csvOpts.Sensor = v
 			case k == "time":
-				o.CSV.Time = v
+				csvOpts.Time = v
 			case k == "value":
-				o.CSV.Value = v
+				csvOpts.Value = v
 			default:
 				return usageError("--columns %q: %q is not one of sensor, time, value", *columns, k)
 			}
+		}
+	}
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+	if fl.config == "" {
+		for _, name := range []string{"calibrations", "events", "tickets", "log-level"} {
+			if set[name] {
+				return usageError("--%s needs --config", name)
+			}
+		}
+	} else {
+		for _, name := range []string{"window", "pane", "format"} {
+			if set[name] {
+				return usageError("--%s does not apply with --config: the windows are the configuration's, the output JSON lines", name)
+			}
+		}
+	}
+	var out report.Writer
+	o := replay.Options{Strict: *strict, Errors: stderr, CSV: csvOpts}
+	if fl.config == "" {
+		if out, err = report.New(*format, report.Fits, stdout, report.Options{}); err != nil {
+			return usageError("--format %v", err)
+		}
+		if o.Windows, err = replay.ParseWindows(*windows, *pane); err != nil {
+			return err
 		}
 	}
 	in := stdin
@@ -83,6 +124,9 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		}
 		defer f.Close()
 		in = f
+	}
+	if fl.config != "" {
+		return runReplayFlow(ctx, in, fl, csvOpts, *strict, stdout, stderr)
 	}
 	rp, err := replay.Run(ctx, in, o)
 	if err != nil {
