@@ -101,7 +101,6 @@ func ReadCalibrations(r io.Reader) (cals []Calibration, bad []error, err error) 
 		if errors.Is(rerr, io.EOF) {
 			break
 		}
-		line, _ := cr.FieldPos(0)
 		var pe *csv.ParseError
 		switch {
 		case errors.As(rerr, &pe):
@@ -109,6 +108,11 @@ func ReadCalibrations(r io.Reader) (cals []Calibration, bad []error, err error) 
 			continue
 		case rerr != nil:
 			return nil, nil, rerr
+		}
+		// FieldPos only after a good read: it panics when the record
+		// has no fields (a parse error).
+		line, _ := cr.FieldPos(0)
+		switch {
 		case len(rec) < width:
 			bad = append(bad, &CalibrationError{Line: line, Err: fmt.Errorf("%d fields, want at least %d", len(rec), width)})
 			continue
