@@ -70,3 +70,39 @@ func BenchmarkReplayVsAwk(b *testing.B) {
 	b.ReportMetric(float64(awkTotal)/float64(replayTotal), "x-awk")
 	b.ReportMetric(float64(replayTotal.Nanoseconds())/float64(b.N)/2e6, "ns/row")
 }
+
+// BenchmarkReplayFlow times replay --config (the readings through the
+// service, configs/demo.yaml) on 40 days of the demo plant (345,600
+// hourly readings of 360 sensors, each closing a 1-hour pane) against
+// replay without a configuration (the fits alone) on the same file, in
+// the same run. It reports the readings a second of the service's
+// replay and its time over the fits-only replay's ("x-fits").
+//
+//	go test ./cmd/driftfit -run '^$' -bench ReplayFlow -benchtime 3x
+func BenchmarkReplayFlow(b *testing.B) {
+	dir := b.TempDir()
+	path := filepath.Join(dir, "readings.csv")
+	if code := run(context.Background(), []string{"demo-feed", "--csv", path, "--days", "40d"}, nil, io.Discard, os.Stderr); code != 0 {
+		b.Fatalf("demo-feed exit %d", code)
+	}
+	var flowTotal, fitsTotal time.Duration
+	for b.Loop() {
+		for _, args := range [][]string{
+			{"replay", "--format", "json", path},
+			{"replay", "--config", "../../configs/demo.yaml", "--events", filepath.Join(dir, "e"), "--tickets", filepath.Join(dir, "t"), path},
+		} {
+			t0 := time.Now()
+			if code := run(context.Background(), args, nil, io.Discard, io.Discard); code != 0 {
+				b.Fatalf("%v: exit %d", args, code)
+			}
+			if len(args) == 4 {
+				fitsTotal += time.Since(t0)
+			} else {
+				flowTotal += time.Since(t0)
+			}
+		}
+	}
+	const readings = 360 * 40 * 24
+	b.ReportMetric(float64(readings)*float64(b.N)/flowTotal.Seconds(), "readings/s")
+	b.ReportMetric(float64(flowTotal)/float64(fitsTotal), "x-fits")
+}

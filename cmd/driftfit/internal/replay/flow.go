@@ -101,11 +101,13 @@ type TicketRevision struct {
 
 // FlowResult is what a replay through the service decided.
 type FlowResult struct {
-	// Events are the stored alert events, by time (then sensor; a
-	// sensor's events in the order it made them).
+	// Events are the stored alert events, by time, then sensor (serve
+	// stores the events of one instant in the order its commits wrote
+	// them, which across sensors is arbitrary), a sensor's in the order
+	// it made them.
 	Events []alert.Event
-	// Tickets are every revision of every ticket, by At (then in the
-	// order they were published).
+	// Tickets are every revision of every ticket, by At (then sensor; a
+	// sensor's in the order they were published).
 	Tickets []TicketRevision
 
 	Rows     int    // data rows read, good and bad
@@ -757,7 +759,9 @@ func (f *flow) collect(db *store.DB) error {
 		}
 		f.res.Tickets = append(f.res.Tickets, TicketRevision{At: at, Ticket: tk})
 	}
-	slices.SortStableFunc(f.res.Tickets, func(a, b TicketRevision) int { return a.At.Compare(b.At) })
+	slices.SortStableFunc(f.res.Tickets, func(a, b TicketRevision) int {
+		return cmp.Or(a.At.Compare(b.At), strings.Compare(a.Ticket.Sensor, b.Ticket.Sensor))
+	})
 	return nil
 }
 
