@@ -498,3 +498,27 @@ func TestReplay_ConfigPeerGroupMatchesServe(t *testing.T) {
 	}
 	checkReplayMatchesServe(t, config, rs, "rp.g1", calAt, 521.5, false)
 }
+
+// TestReplay_ConfigSmallPayloadLimit checks that replay's batches keep
+// to bus.max_payload_bytes: with 300 bytes a message holds at most 4
+// readings (56 bytes each at worst, see batchReadingBytes), and the
+// service refuses none as oversized.
+func TestReplay_ConfigSmallPayloadLimit(t *testing.T) {
+	dir := t.TempDir()
+	cfgPath := filepath.Join(dir, "driftfit.yaml")
+	if err := os.WriteFile(cfgPath, []byte("bus:\n  max_payload_bytes: 300\n"+flowTestConfig), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	t0 := time.Now().Add(-10 * 24 * time.Hour).Truncate(time.Hour)
+	var csv strings.Builder
+	csv.WriteString("sensor,time,value\n")
+	for h := range 200 {
+		// Values printed in full (17 significant digits) make batches
+		// near the worst case.
+		fmt.Fprintf(&csv, "rp.a,%d.123456789,%s\n", t0.Add(time.Duration(h)*time.Hour).Unix(), strconv.FormatFloat(-1.0/3-float64(h)*1e-13, 'g', -1, 64))
+	}
+	_, stderr, code := runCmd(t, csv.String(), "replay", "--config", cfgPath, "--events", filepath.Join(dir, "e"), "--tickets", filepath.Join(dir, "t"), "-")
+	if code != 0 || !strings.Contains(stderr, "200 readings published, 200 applied, 0 refused by the service") {
+		t.Errorf("exit %d, stderr:\n%s\nwant all 200 readings applied", code, stderr)
+	}
+}

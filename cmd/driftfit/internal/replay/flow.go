@@ -35,8 +35,13 @@ const (
 	// FlowOptions), so a file of interleaved sensors still sends batches.
 	flowChunkRows = 1 << 16
 	// flowMsgReadings caps the readings of one message: about 36 KB of
-	// columnar batch, far below the 1 MiB payload limit.
+	// columnar batch, far below the default 1 MiB payload limit; a
+	// smaller bus.max_payload_bytes lowers it (see maxReadings).
 	flowMsgReadings = 1024
+	// batchReadingBytes is the most one reading adds to a columnar
+	// batch: a time of 30 bytes (sign, 19 digits, point, 9 decimals), a
+	// value of 24 ("-2.2250738585072014e-308") and two commas.
+	batchReadingBytes = 56
 	// flowCommitReadings is the service's CommitReadings in a replay, and
 	// twice it the readings published ahead of the last commit. Until a
 	// commit the service holds every pane close's solution (1 KB a
@@ -129,6 +134,7 @@ type flowSensor struct {
 	msg   int           // index of its open message in the chunk; -1: none
 	chunk int           // chunk msg belongs to
 	bad   error         // why the id cannot travel on the bus; its rows are bad rows
+	max   int           // readings a message of this sensor holds
 }
 
 // flowRoute is what orders a sensor's messages: itself, or its peer
@@ -463,6 +469,9 @@ func (f *flow) sensor(id []byte) *flowSensor {
 		if s.bad = f.checkID(s.id); s.bad != nil {
 			return s
 		}
+		// The payload limit holds for the worst case of every reading
+		// (batchReadingBytes), around the id written with escapes.
+		s.max = min(flowMsgReadings, max(1, (f.opts.MaxPayload-40-2*len(s.id))/batchReadingBytes))
 		// The service's own lookup says which peer group the sensor is
 		// in; a sensor it has no configuration for is refused there.
 		if cfg, err := f.opts.Sensor(s.id); err == nil && cfg.Group != "" {
@@ -507,7 +516,7 @@ func (f *flow) checkID(id string) error {
 
 // add puts one reading into its sensor's open message of the chunk.
 func (f *flow) add(s *flowSensor, rd rolling.Reading) {
-	open := s.chunk == f.chunk && s.msg >= 0 && len(f.msgs[s.msg].rs) < flowMsgReadings
+	open := s.chunk == f.chunk && s.msg >= 0 && len(f.msgs[s.msg].rs) < s.max
 	if r := s.route; r.group {
 		open = open && r.chunk == f.chunk && r.last == s
 		r.last, r.chunk = s, f.chunk
