@@ -78,7 +78,7 @@ type FlowOptions struct {
 	// and state file: serve's own mapping of the configuration. Replay
 	// then keeps what a replay must: stream mode (direct mode may drop
 	// readings under a flood), no webhook (tickets of the past must not
-	// reach a live receiver), no pruning of fit history.
+	// reach a live receiver), no pruning or thinning of fit history.
 	Service func(nc *nats.Conn, db *store.DB) ingest.Options
 	// Calibrations, sorted by time (ReadCalibrations), are sent on the
 	// calibration subject as the readings reach them: a sensor's
@@ -254,7 +254,9 @@ func RunFlow(ctx context.Context, in io.Reader, o FlowOptions) (res *FlowResult,
 	opts.Conn, opts.DB = f.nc, db
 	opts.Mode = ingest.ModeStream
 	opts.Webhook = ingest.Webhook{}
-	opts.HistoryRetention = 0
+	// The fit history of a replay is never read, and its horizon would
+	// be the wall clock's, not the file's: no pruning, no thinning.
+	opts.HistoryRetention, opts.HistoryThinAfter = 0, 0
 	// The state file is scratch: commits of a bounded size (see
 	// flowCommitReadings) instead of serve's, which suit a live rate.
 	opts.CommitReadings = flowCommitReadings
