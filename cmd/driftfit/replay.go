@@ -21,9 +21,10 @@ prints the final fits of every sensor, window and model, sorted by sensor,
 window span and model.
 
 With --config, the readings go through the service itself, as serve runs
-it (classes, limits, peer groups, calibrations; on an embedded bus and a
-scratch state file, removed afterwards; no webhook is called), and replay
-writes every alert event (as "driftfit alerts --format json" prints it) and
+it (classes, limits, peer groups, calibrations) on an embedded bus that
+opens no port, whatever bus.servers says, and a scratch state file removed
+afterwards (store.dir is not touched, no webhook is called). Replay writes
+every alert event (as "driftfit alerts --format json" prints it) and
 every ticket opening and closing (as "driftfit tickets --format json"
 prints it, with "at" first: the reading or calibration time at which it
 arose) as JSON lines in time order: to standard output, or to the files
@@ -32,7 +33,8 @@ arose) as JSON lines in time order: to standard output, or to the files
 CSV with the columns sensor, time, as_found, as_left) are sent as the
 readings reach their time: a calibration of a sensor goes just before that
 sensor's first row at or after its time, once the readings before it are
-applied; the rest after the last row.
+taken; the rest after the last row. A progress line comes every 5 s and
+a summary at the end, both on standard error.
 
 The file has a header naming its columns; by default sensor, time and value
 (any order, other columns ignored), or the names --columns gives. Times are

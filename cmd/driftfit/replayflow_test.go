@@ -401,6 +401,11 @@ func TestReplay_ConfigFlags(t *testing.T) {
 			t.Errorf("%v: exit %d, stderr %q, want exit 2 and %q", tc.args, code, stderr, tc.want)
 		}
 	}
+	// --strict ends the run at the first bad row, with its line.
+	_, stderr, code := runCmd(t, "sensor,time,value\nrp.a,1772366400,1\nrp.a,soon,2\n", "replay", "--config", cfgPath, "--strict", "-")
+	if code != 1 || !strings.Contains(stderr, `line 3: time "soon"`) {
+		t.Errorf("--strict: exit %d, stderr %q, want exit 1 naming line 3", code, stderr)
+	}
 }
 
 // TestReplay_ConfigBadInput checks that bad rows, sensor ids the bus
