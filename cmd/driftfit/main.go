@@ -42,7 +42,7 @@ var commands []command
 
 func init() {
 	commands = []command{
-		{"replay", "fit readings from a CSV file and print the final fits", runReplay},
+		{"replay", "fit readings from a CSV file: the final fits, or with --config the alerts and tickets serve would have raised", runReplay},
 		{"serve", "run the service: read readings from NATS, keep and store the fits", runServe},
 		{"demo-feed", "generate readings of an invented plant", runDemoFeed},
 		{"history", "print or plot the fit history of a sensor from the database", runHistory},
