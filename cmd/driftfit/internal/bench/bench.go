@@ -848,7 +848,19 @@ func (e *benchEnv) streamCase(ctx context.Context, pool *benchPool, slot time.Du
 	t0 := time.Now()
 	for i := 0; (time.Since(t0) < slot || sent < uint64(len(pool.data))) && ctx.Err() == nil && sent < maxMsgs; i++ {
 		k := i % len(pool.data)
-		if _, err := pjs.PublishAsync(pool.subjects[k], pool.data[k]); err != nil {
+		_, err := pjs.PublishAsync(pool.subjects[k], pool.data[k])
+		if errors.Is(err, jetstream.ErrTooManyStalledMsgs) {
+			// The acknowledgements lag (a busy machine): let them catch
+			// up, then send the message again.
+			select {
+			case <-pjs.PublishAsyncComplete():
+			case <-time.After(time.Minute):
+				return out, errors.New("bench: stream acknowledgements stalled for a minute")
+			}
+			i--
+			continue
+		}
+		if err != nil {
 			return out, err
 		}
 		sent++
