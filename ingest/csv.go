@@ -22,7 +22,7 @@ const (
 // RowError reports a bad data row of a CSV file. Err is the cause, one of
 // the sentinels of this package (ErrFieldCount, ErrBareQuote, ErrQuote,
 // ErrRowTooLong, ErrEmptyField, ErrTimeSyntax, ErrTimeRange,
-// ErrTimePrecision, ErrNumberSyntax, ErrNonFinite), possibly wrapped with
+// ErrTimePrecision, ErrNumberSyntax, ErrNonFinite, ErrNumberRange), possibly wrapped with
 // detail.
 type RowError struct {
 	Line  int    // 1-based line on which the row starts

@@ -65,6 +65,11 @@ var (
 	// ErrNonFinite is the cause of a value that is NaN or infinite, or
 	// too large for a float64.
 	ErrNonFinite = errors.New("ingest: non-finite number")
+
+	// ErrNumberRange is the cause of a value too small in magnitude for
+	// a float64 (below 4.9e-324 but not zero, such as 1e-400), which
+	// would otherwise read as 0.
+	ErrNumberRange = errors.New("ingest: number too small for float64")
 )
 
 // Errors of the payload decoder. Whole-payload problems come back from

@@ -28,7 +28,35 @@ func parseFloat(b []byte) (float64, error) {
 	if math.IsInf(v, 0) || math.IsNaN(v) {
 		return 0, ErrNonFinite
 	}
+	// strconv rounds a magnitude below the smallest subnormal
+	// (4.9e-324) to zero without an error; a reading of 1e-400 is not
+	// a reading of 0.
+	if v == 0 && nonZeroMantissa(b) {
+		return 0, ErrNumberRange
+	}
 	return v, nil
+}
+
+// nonZeroMantissa reports whether a non-zero digit comes before the
+// exponent of a number strconv.ParseFloat accepted (decimal, or hex with
+// a 0x prefix and a p exponent).
+func nonZeroMantissa(b []byte) bool {
+	if len(b) > 0 && (b[0] == '-' || b[0] == '+') {
+		b = b[1:]
+	}
+	hex := len(b) > 1 && b[0] == '0' && (b[1] == 'x' || b[1] == 'X')
+	if hex {
+		b = b[2:]
+	}
+	for _, c := range b {
+		switch {
+		case !hex && (c == 'e' || c == 'E'), hex && (c == 'p' || c == 'P'):
+			return false
+		case c >= '1' && c <= '9', hex && (c >= 'a' && c <= 'f' || c >= 'A' && c <= 'F'):
+			return true
+		}
+	}
+	return false
 }
 
 // float64pow10 holds the powers of ten that float64 represents exactly.

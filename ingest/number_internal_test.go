@@ -1,7 +1,9 @@
 package ingest
 
 import (
+	"errors"
 	"math"
+	"math/big"
 	"math/rand/v2"
 	"strconv"
 	"strings"
@@ -9,12 +11,22 @@ import (
 )
 
 // checkParseFloat fails t unless parseFloat(s) is strconv.ParseFloat(s,
-// 64), the reference, bit for bit, or both refuse s.
+// 64), the reference, bit for bit, or both refuse s. A value strconv
+// rounds to 0 that math/big reads exactly as non-zero (an underflow such
+// as 1e-400) must be refused with ErrNumberRange.
 func checkParseFloat(t *testing.T, s string) {
 	t.Helper()
 	got, err := parseFloat([]byte(s))
 	want, werr := strconv.ParseFloat(s, 64)
 	finite := werr == nil && !math.IsInf(want, 0) && !math.IsNaN(want)
+	if finite && want == 0 {
+		if exact, _, perr := big.ParseFloat(s, 0, 2000, big.ToNearestEven); perr == nil && exact.Sign() != 0 {
+			if !errors.Is(err, ErrNumberRange) {
+				t.Fatalf("parseFloat(%q) = %v, %v; want ErrNumberRange (math/big reads %v)", s, got, err, exact)
+			}
+			return
+		}
+	}
 	if (err == nil) != finite || (finite && math.Float64bits(got) != math.Float64bits(want)) {
 		t.Fatalf("parseFloat(%q) = %v, %v; strconv.ParseFloat = %v, %v", s, got, err, want, werr)
 	}
@@ -76,7 +88,8 @@ func TestParseFloat_FastPathMatchesStrconv(t *testing.T) {
 	}
 	for _, s := range []string{"0", "-0", "0.1", "9007199254740993", "999999999999999.9", "1e5", ".5", "5.", "-", "",
 		"+1", "NaN", "Inf", "1e999", "0x1p-2", "1_0", "123456789012345", "9999999999999999999", "0.9999999999999999999",
-		"18446744073709551615", "99999999999999999999", "0.0000000000000000001", "100.12345678901234", "9007199254740993.0"} {
+		"18446744073709551615", "99999999999999999999", "0.0000000000000000001", "100.12345678901234", "9007199254740993.0",
+		"1e-400", "-1e-400", "0.0e-400", "4.9e-324", "2e-324", "0x1p-1200", "0xep-2000", "0e5"} {
 		check(s)
 	}
 }

@@ -33,7 +33,7 @@ type Reject struct {
 	Field  string // "t", "v", "ref" or "unit"; empty when the element is not an object
 	Value  string // the offending JSON value as sent, cut to 64 bytes; empty when missing
 	Reason Reason
-	Err    error // ErrMissingField, ErrWrongType, ErrNonFinite or a *TimeError
+	Err    error // ErrMissingField, ErrWrongType, ErrNonFinite, ErrNumberRange or a *TimeError
 }
 
 // Payload is the result of Decoder.Decode. Its slices belong to the
