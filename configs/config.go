@@ -71,7 +71,10 @@ type Bus struct {
 	// Default "driftfit.in".
 	SubjectPrefix string
 	// RejectedSubject receives rejected readings with the reason in a
-	// header. Default "<SubjectPrefix>.rejected".
+	// header. Default: SubjectPrefix with its last token replaced by
+	// "rejected" ("driftfit.rejected"; "<prefix>_rejected" for a one-token
+	// prefix). It must lie outside "<SubjectPrefix>.>", which the readings
+	// stream captures.
 	RejectedSubject string
 	// AlertSubjectPrefix is the prefix of alert subjects,
 	// "<prefix>.<sensor id>". Default "driftfit.alerts".
@@ -94,6 +97,22 @@ type Bus struct {
 	// FutureSkew is how far ahead of the receiving clock a reading's time
 	// may be. Default 5m. Zero (written explicitly) rejects any future time.
 	FutureSkew time.Duration
+	// StreamMaxBytes bounds the readings stream, in bytes; once full, the
+	// server refuses new readings to their producers. Committed readings
+	// are purged, so this is the backlog kept while serve is down.
+	// Default 1 GiB (1073741824).
+	StreamMaxBytes int
+	// StreamMaxAge deletes readings older than this from the stream,
+	// applied or not. Default 0: no age limit.
+	StreamMaxAge time.Duration
+	// RejectedMaxBytes bounds the dead-letter stream, in bytes, oldest
+	// discarded first. Default 64 MiB (67108864).
+	RejectedMaxBytes int
+	// RejectedMaxAge bounds the dead-letter stream by age. Default 7d.
+	RejectedMaxAge time.Duration
+	// MaxSensors bounds the sensors held; readings of new ids beyond it
+	// are refused (reason too_many_sensors). Default 200000.
+	MaxSensors int
 	// User is the NATS user name. Empty means no user/password auth.
 	User string
 	// PasswordEnv names the environment variable holding the password for

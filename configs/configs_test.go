@@ -73,6 +73,14 @@ var badCases = []struct {
 		`bus.password_env = "hunter2 is my password": value out of range: must be the name of an environment variable`,
 		`bus.token_env = "DRIFTFIT_TOKEN": contradictory settings`,
 	}},
+	{"stream_limits.bad.yaml", []string{
+		`stream_limits.bad.yaml:2:21: bus.rejected_subject = "driftfit.in.rejected": contradictory settings: lies under bus.subject_prefix "driftfit.in"`,
+		`stream_limits.bad.yaml:3:21: bus.stream_max_bytes = "0": value out of range: must be > 0`,
+		`bus.stream_max_age = "-1h": value out of range: must be >= 0`,
+		`bus.rejected_max_bytes = "-5": value out of range: must be > 0`,
+		`bus.rejected_max_age = "0s": value out of range: must be > 0`,
+		`bus.max_sensors = "0": value out of range: must be > 0`,
+	}},
 	{"embedded_auth.bad.yaml", []string{
 		`embedded_auth.bad.yaml:2:9: bus.user = "driftfit": contradictory settings: has no effect with the embedded server`,
 		`bus.tls: contradictory settings: cert_file and key_file go together`,
@@ -247,7 +255,7 @@ func TestParse_Defaults(t *testing.T) {
 	b := c.Bus
 	for _, tc := range []struct{ name, got, want string }{
 		{"subject_prefix", b.SubjectPrefix, "driftfit.in"},
-		{"rejected_subject", b.RejectedSubject, "driftfit.in.rejected"},
+		{"rejected_subject", b.RejectedSubject, "driftfit.rejected"},
 		{"alert_subject_prefix", b.AlertSubjectPrefix, "driftfit.alerts"},
 		{"ticket_subject", b.TicketSubject, "driftfit.tickets"},
 		{"calibration_subject_prefix", b.CalibrationSubjectPrefix, "driftfit.calibrations"},
@@ -272,6 +280,10 @@ func TestParse_Defaults(t *testing.T) {
 		if tc.got != tc.want {
 			t.Errorf("default %s = %v, want %v", tc.name, tc.got, tc.want)
 		}
+	}
+	if b.StreamMaxBytes != 1<<30 || b.StreamMaxAge != 0 || b.RejectedMaxBytes != 64<<20 || b.RejectedMaxAge != 7*24*time.Hour || b.MaxSensors != 200000 {
+		t.Errorf("stream_max_bytes %d, stream_max_age %v, rejected_max_bytes %d, rejected_max_age %v, max_sensors %d; want 1 GiB, 0, 64 MiB, 7d, 200000",
+			b.StreamMaxBytes, b.StreamMaxAge, b.RejectedMaxBytes, b.RejectedMaxAge, b.MaxSensors)
 	}
 	if c.Store.CommitReadings != 1000000 || b.MaxPayloadBytes != 1<<20 || len(b.Servers) != 0 {
 		t.Errorf("commit_readings %d, max_payload_bytes %d, servers %v; want 1000000, 1048576, none",
@@ -847,5 +859,19 @@ func TestLoad_AlarmSettings(t *testing.T) {
 	d := m.Classes[0]
 	if d.AlarmBudget != (configs.AlarmBudget{FalseTicketsPerYear: 0.01, AlertsPerYear: 0.01}) || d.Detectors != (configs.Detectors{}) || d.HasTicketKinds {
 		t.Errorf("defaults: budget %+v detectors %+v ticket kinds written %v", d.AlarmBudget, d.Detectors, d.HasTicketKinds)
+	}
+}
+
+// TestParse_StreamLimits checks that the stream limits and the sensor cap
+// written in a file are read as written.
+func TestParse_StreamLimits(t *testing.T) {
+	c, err := configs.Load("testdata/stream_limits.good.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b := c.Bus
+	if b.RejectedSubject != "qm.deadletters" || b.StreamMaxBytes != 256<<20 || b.StreamMaxAge != 30*24*time.Hour ||
+		b.RejectedMaxBytes != 1<<20 || b.RejectedMaxAge != 24*time.Hour || b.MaxSensors != 50000 {
+		t.Errorf("bus = %+v, want the values of stream_limits.good.yaml", b)
 	}
 }

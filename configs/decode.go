@@ -440,13 +440,18 @@ func (d *decoder) bus(n ast.Node, path string, b *Bus) {
 				d.errAt(n, p, s, ErrRange, "must be stream or direct")
 			}
 		},
-		"stream_name":       d.str(&b.StreamName),
-		"max_payload_bytes": d.integer(&b.MaxPayloadBytes),
-		"future_skew":       d.duration(&b.FutureSkew),
-		"user":              d.str(&b.User),
-		"password_env":      d.str(&b.PasswordEnv),
-		"token_env":         d.str(&b.TokenEnv),
-		"creds_file":        d.str(&b.CredsFile),
+		"stream_name":        d.str(&b.StreamName),
+		"max_payload_bytes":  d.integer(&b.MaxPayloadBytes),
+		"future_skew":        d.duration(&b.FutureSkew),
+		"stream_max_bytes":   d.integer(&b.StreamMaxBytes),
+		"stream_max_age":     d.duration(&b.StreamMaxAge),
+		"rejected_max_bytes": d.integer(&b.RejectedMaxBytes),
+		"rejected_max_age":   d.duration(&b.RejectedMaxAge),
+		"max_sensors":        d.integer(&b.MaxSensors),
+		"user":               d.str(&b.User),
+		"password_env":       d.str(&b.PasswordEnv),
+		"token_env":          d.str(&b.TokenEnv),
+		"creds_file":         d.str(&b.CredsFile),
 		"tls": func(n ast.Node, p string) {
 			d.fields(n, p, map[string]handler{
 				"ca_file":   d.str(&b.TLS.CAFile),

@@ -1,6 +1,9 @@
 package configs
 
-import "time"
+import (
+	"strings"
+	"time"
+)
 
 // Default values, applied by applyDefaults to every field that is zero and
 // was not written in the file.
@@ -13,6 +16,10 @@ const (
 	defaultMaxPayloadBytes          = 1 << 20 // NATS server default max_payload, from memory
 	maxMaxPayloadBytes              = 64 << 20
 	defaultFutureSkew               = 5 * time.Minute
+	defaultStreamMaxBytes           = 1 << 30
+	defaultRejectedMaxBytes         = 64 << 20
+	defaultRejectedMaxAge           = 7 * Day
+	defaultMaxSensors               = 200000
 	defaultStoreDir                 = "./data"
 	defaultCommitInterval           = time.Second
 	defaultCommitReadings           = 1000000
@@ -73,7 +80,7 @@ func (c *Config) applyDefaults() {
 
 	b := &c.Bus
 	str(&b.SubjectPrefix, "bus.subject_prefix", defaultSubjectPrefix)
-	str(&b.RejectedSubject, "bus.rejected_subject", b.SubjectPrefix+".rejected")
+	str(&b.RejectedSubject, "bus.rejected_subject", defaultRejectedSubject(b.SubjectPrefix))
 	str(&b.AlertSubjectPrefix, "bus.alert_subject_prefix", defaultAlertSubjectPrefix)
 	str(&b.TicketSubject, "bus.ticket_subject", defaultTicketSubject)
 	str(&b.CalibrationSubjectPrefix, "bus.calibration_subject_prefix", defaultCalibrationSubjectPrefix)
@@ -83,6 +90,10 @@ func (c *Config) applyDefaults() {
 	str(&b.StreamName, "bus.stream_name", defaultStreamName)
 	num(&b.MaxPayloadBytes, "bus.max_payload_bytes", defaultMaxPayloadBytes)
 	dur(&b.FutureSkew, "bus.future_skew", defaultFutureSkew)
+	num(&b.StreamMaxBytes, "bus.stream_max_bytes", defaultStreamMaxBytes)
+	num(&b.RejectedMaxBytes, "bus.rejected_max_bytes", defaultRejectedMaxBytes)
+	dur(&b.RejectedMaxAge, "bus.rejected_max_age", defaultRejectedMaxAge)
+	num(&b.MaxSensors, "bus.max_sensors", defaultMaxSensors)
 
 	s := &c.Store
 	str(&s.Dir, "store.dir", defaultStoreDir)
@@ -120,4 +131,16 @@ func (c *Config) applyDefaults() {
 		flt(&cl.AlarmBudget.FalseTicketsPerYear, p+".alarm_budget.false_tickets_per_year", defaultFalseTicketsPerYear)
 		flt(&cl.AlarmBudget.AlertsPerYear, p+".alarm_budget.alerts_per_year", cl.AlarmBudget.FalseTicketsPerYear)
 	}
+}
+
+// defaultRejectedSubject is the readings prefix with its last token
+// replaced by "rejected" ("driftfit.in" gives "driftfit.rejected"), or
+// "<prefix>_rejected" for a one-token prefix: outside <prefix>.>, which
+// the readings stream captures. ingest.DefaultRejectedSubject is the same
+// rule.
+func defaultRejectedSubject(prefix string) string {
+	if i := strings.LastIndexByte(prefix, '.'); i > 0 {
+		return prefix[:i] + ".rejected"
+	}
+	return prefix + "_rejected"
 }

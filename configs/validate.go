@@ -169,6 +169,9 @@ func (v *validator) bus() {
 	}
 	v.subject("bus.subject_prefix", b.SubjectPrefix)
 	v.subject("bus.rejected_subject", b.RejectedSubject)
+	if strings.HasPrefix(b.RejectedSubject, b.SubjectPrefix+".") {
+		v.add("bus.rejected_subject", b.RejectedSubject, ErrConflict, "lies under bus.subject_prefix %q, whose stream would keep dead letters with the readings; choose a subject outside it", b.SubjectPrefix)
+	}
 	v.subject("bus.alert_subject_prefix", b.AlertSubjectPrefix)
 	v.subject("bus.ticket_subject", b.TicketSubject)
 	v.subject("bus.calibration_subject_prefix", b.CalibrationSubjectPrefix)
@@ -183,6 +186,20 @@ func (v *validator) bus() {
 	}
 	if b.FutureSkew < 0 {
 		v.add("bus.future_skew", FormatDuration(b.FutureSkew), ErrRange, "must be >= 0")
+	}
+	for _, f := range []struct {
+		path string
+		n    int
+	}{{"bus.stream_max_bytes", b.StreamMaxBytes}, {"bus.rejected_max_bytes", b.RejectedMaxBytes}, {"bus.max_sensors", b.MaxSensors}} {
+		if f.n <= 0 {
+			v.add(f.path, strconv.Itoa(f.n), ErrRange, "must be > 0")
+		}
+	}
+	if b.StreamMaxAge < 0 {
+		v.add("bus.stream_max_age", FormatDuration(b.StreamMaxAge), ErrRange, "must be >= 0 (0: no age limit)")
+	}
+	if b.RejectedMaxAge <= 0 {
+		v.add("bus.rejected_max_age", FormatDuration(b.RejectedMaxAge), ErrRange, "must be > 0")
 	}
 	v.envName("bus.password_env", b.PasswordEnv)
 	v.envName("bus.token_env", b.TokenEnv)
