@@ -183,6 +183,7 @@ func (s *Service) controlled(req controlReq) {
 		req.done(fmt.Errorf("ingest: restart: %w", err))
 		return
 	}
+	ref.made.Store(true) // the restart makes its sensor: never swept
 	s.flushWorker(ref.worker)
 	s.workers[ref.worker].in <- &workBatch{restart: &restartJob{ref: ref, from: req.from.UnixNano(), cal: req.cal, done: req.done}}
 	s.dirty, s.urgent = true, true

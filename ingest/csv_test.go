@@ -141,9 +141,10 @@ func TestCSVReader_Rows(t *testing.T) {
 		{"unclosed quote runs to the end", "sensor,time,value\ns,1767225600,1\ns,\"1767225600,1\nt,1767225600,1\n",
 			[]csvRow{good(2, "s", t0, 1), bad(3, "", ingest.ErrQuote)}},
 		// strconv.ParseFloat semantics: hex floats and Go digit separators
-		// are numbers, spaces are not, underflow rounds to zero.
+		// are numbers, spaces are not; a value below the smallest float64
+		// subnormal (4.9e-324) is refused rather than read as zero.
 		{"strconv float forms", "sensor,time,value\ns,0,0x1p-2\ns,0,1_0\ns,0,-0\ns,0,1e-400\ns,0, 1\ns,0,1.5.2\n",
-			[]csvRow{good(2, "s", 0, 0.25), good(3, "s", 0, 10), good(4, "s", 0, math.Copysign(0, -1)), good(5, "s", 0, 0),
+			[]csvRow{good(2, "s", 0, 0.25), good(3, "s", 0, 10), good(4, "s", 0, math.Copysign(0, -1)), bad(5, "value", ingest.ErrNumberRange),
 				bad(6, "value", ingest.ErrNumberSyntax), bad(7, "value", ingest.ErrNumberSyntax)}},
 	}
 	for _, tt := range tests {

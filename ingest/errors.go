@@ -102,3 +102,15 @@ var (
 	// as a quoted number for v.
 	ErrWrongType = errors.New("ingest: wrong JSON type")
 )
+
+// ErrSensorID is returned (inside a *SensorIDError) for a sensor id that
+// CheckSensorID refuses.
+var ErrSensorID = errors.New("ingest: invalid sensor id")
+
+// ErrTooManySensors is the cause of a reading refused because its sensor
+// id is new and the service already holds Options.MaxSensors sensors.
+var ErrTooManySensors = errors.New("ingest: sensor limit reached")
+
+// ErrDuplicate is the cause of a reading refused by Dedup as a repeat of
+// one already applied.
+var ErrDuplicate = errors.New("ingest: duplicate reading")

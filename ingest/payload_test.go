@@ -85,7 +85,10 @@ func TestDecoder_Decode(t *testing.T) {
 			[]wantReading{{ns: 0, v: 0, unit: "\U0001F600\uFFFD"}}, nil},
 		{"duplicate key: last wins", `{"t":1,"v":1,"v":2,"t":1772366400}`, "", []wantReading{r(t2026, 2)}, nil},
 		{"negative zero kept", `{"t":0,"v":-0}`, "", []wantReading{r(0, math.Copysign(0, -1))}, nil},
-		{"underflow is zero", `{"t":0,"v":1e-400}`, "", []wantReading{r(0, 0)}, nil},
+		// 1e-400 is below the smallest float64 subnormal, 4.9e-324 (IEEE
+		// 754 binary64): strconv would read 0, which is not the reading.
+		{"underflow refused", `{"t":0,"v":1e-400}`, "", nil, []wantReject{{0, "v", "1e-400", ingest.ReasonNonFinite, ingest.ErrNumberRange}}},
+		{"smallest subnormal kept", `{"t":0,"v":5e-324}`, "", []wantReading{r(0, 5e-324)}, nil},
 		{"empty array", `[]`, "", nil, nil},
 		{"bad readings among good ones",
 			`[{"t":1772366400,"v":1},

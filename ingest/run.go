@@ -55,12 +55,19 @@ type message struct {
 
 // sensorRef routes one sensor. The dispatcher owns the map of refs; id,
 // worker and unit never change once made; st belongs to the worker alone.
+// made and inflight let the dispatcher forget the route of an id that
+// never produced a reading (see sweep) without reading st.
 type sensorRef struct {
 	id     string
 	worker int
 	unit   string
 	group  string // peer group; "" for none
 	st     *sensorState
+	// made is set by the worker once st.sensor exists; never cleared.
+	made atomic.Bool
+	// inflight counts the jobs routed to the worker and not yet
+	// applied: the dispatcher adds, the worker subtracts.
+	inflight atomic.Int32
 }
 
 type sensorState struct {
@@ -91,6 +98,8 @@ type sensorState struct {
 	outs   []store.AlertWrite
 	acks   []func(error)
 	urgent bool // snapshot at the next commit token, whatever the budget
+	// dedup refuses readings already applied.
+	dedup Dedup
 }
 
 // Service reads readings from NATS into per-sensor fits and commits them
@@ -99,8 +108,10 @@ type Service struct {
 	o      Options
 	log    zerolog.Logger
 	badLog zerolog.Logger // rate-limited, for refused input
+	capLog zerolog.Logger // rate-limited, for the sensor limit
 
 	refs    map[string]*sensorRef // dispatcher only
+	sweepAt int                   // routes without a sensor that start a sweep
 	workers []*worker
 	seed    maphash.Seed
 	prefix  string // SubjectPrefix + "."
@@ -139,7 +150,7 @@ type Service struct {
 
 	messages, applied, rejected atomic.Uint64
 	position                    atomic.Uint64
-	sensors                     atomic.Int64
+	sensors, routes             atomic.Int64
 }
 
 // New checks the options and returns a service ready to Run.
@@ -161,10 +172,12 @@ func New(o Options) (*Service, error) {
 		alertPrefix: o.AlertSubjectPrefix + ".",
 		wakeCommit:  make(chan struct{}, 1),
 		freed:       make(chan struct{}, 1),
+		sweepAt: sweepMin,
 	}
 	s.outbox = newOutbox(s)
 	s.budget = max(1, o.CommitMaxSensors/o.Workers)
 	s.badLog = s.log.Sample(&zerolog.BurstSampler{Burst: 10, Period: 10 * time.Second})
+	s.capLog = s.log.Sample(&zerolog.BurstSampler{Burst: 1, Period: time.Minute})
 	for i := range o.Workers {
 		s.workers = append(s.workers, newWorker(s, i))
 	}
@@ -179,6 +192,7 @@ func (s *Service) Stats() Stats {
 		Applied:  s.applied.Load(),
 		Rejected: s.rejected.Load(),
 		Sensors:  int(s.sensors.Load()),
+		Routes:   int(s.routes.Load()),
 		Position: s.position.Load(),
 		Backlog:  s.backlog.Load(),
 	}
@@ -255,6 +269,7 @@ loop:
 				s.commit()
 			}
 		case <-tick.C:
+			s.sweepIdle()
 			if (s.dirty || s.backlog.Load() || s.outbox.pendingDone()) && s.committerFree() {
 				s.commit()
 			}
@@ -411,31 +426,121 @@ func (s *Service) addRef(id string, cfg SensorConfig, sensor *rolling.Sensor) *s
 		st:     &sensorState{sensor: sensor, windows: cfg.Windows},
 	}
 	s.refs[id] = ref
+	s.routes.Store(int64(len(s.refs)))
 	if sensor != nil {
-		s.sensorMade()
+		ref.st.dedup.Restored(sensor)
+		s.sensorMade(ref)
 	}
 	return ref
 }
 
 // sensorMade counts one more sensor held; safe from any goroutine.
-func (s *Service) sensorMade() {
-	n := s.sensors.Add(1)
+func (s *Service) sensorMade(ref *sensorRef) {
+	ref.made.Store(true)
+	s.sensorsChanged(s.sensors.Add(1))
+}
+
+// admitSensor counts one more sensor held, unless Options.MaxSensors are
+// held already; safe from any goroutine. The dispatcher refuses new ids
+// at the limit too, but several new ids may be in flight to the workers
+// at once: this is where the limit is exact.
+func (s *Service) admitSensor(ref *sensorRef) error {
+	for {
+		n := s.sensors.Load()
+		if n >= int64(s.o.MaxSensors) {
+			s.capLog.Warn().Int("max_sensors", s.o.MaxSensors).Str("sensor", QuoteID(ref.id)).Msg("sensor limit reached: new sensor ids refused")
+			return &tooManySensorsError{id: ref.id, max: s.o.MaxSensors}
+		}
+		if s.sensors.CompareAndSwap(n, n+1) {
+			ref.made.Store(true)
+			s.sensorsChanged(n + 1)
+			return nil
+		}
+	}
+}
+
+func (s *Service) sensorsChanged(n int64) {
 	if m := s.o.Metrics; m != nil {
 		m.Sensors.Set(float64(n))
 	}
 }
 
+// sweepMin is the count of routes without a sensor that starts a sweep;
+// each sweep at least doubles it for the next, so sweeping costs O(1) a
+// new id however the ids come.
+const sweepMin = 4096
+
 // ref returns the route of sensor id, adding one for a configured sensor
-// seen for the first time, or an error for one with no configuration.
+// seen for the first time. It refuses an id that fails CheckSensorID
+// (*SensorIDError), one with no configuration, and a new id while
+// Options.MaxSensors sensors are held (ErrTooManySensors). Routes of
+// new ids whose readings are still in flight do not count against the
+// limit: a flood of bad payloads under new ids then never turns a good
+// new sensor away.
 func (s *Service) ref(id string) (*sensorRef, error) {
 	if ref := s.refs[id]; ref != nil {
 		return ref, nil
 	}
+	if err := CheckSensorID(id); err != nil {
+		return nil, err
+	}
+	if len(s.refs)-int(s.sensors.Load()) >= s.sweepAt {
+		s.sweep()
+	}
+	if s.sensors.Load() >= int64(s.o.MaxSensors) {
+		s.capLog.Warn().Int("max_sensors", s.o.MaxSensors).Str("sensor", QuoteID(id)).Msg("sensor limit reached: new sensor ids refused")
+		return nil, &tooManySensorsError{id: id, max: s.o.MaxSensors}
+	}
 	cfg, err := s.o.Sensor(id)
 	if err != nil {
-		return nil, fmt.Errorf("sensor %q: %w", id, err)
+		return nil, fmt.Errorf("sensor %s: %w", QuoteID(id), err)
 	}
 	return s.addRef(strings.Clone(id), cfg, nil), nil
+}
+
+// sweep forgets the routes of ids whose readings never made a sensor (all
+// refused, say) and that have no job in flight: a flood of distinct ids
+// with bad payloads then holds no memory. A route with a job in flight
+// stays, so one id never has two states. Dispatcher only.
+func (s *Service) sweep() {
+	for id, ref := range s.refs {
+		if !ref.made.Load() && ref.inflight.Load() == 0 {
+			delete(s.refs, id)
+		}
+	}
+	s.sweepAt = max(sweepMin, 2*(len(s.refs)-int(s.sensors.Load())))
+	s.routes.Store(int64(len(s.refs)))
+}
+
+// sweepIdle sweeps, from the commit ticker, when routes without a sensor
+// are held, so none outlives its last message by more than a tick or so.
+func (s *Service) sweepIdle() {
+	if len(s.refs) > int(s.sensors.Load()) {
+		s.sweep()
+	}
+}
+
+// tooManySensorsError refuses a new sensor id beyond Options.MaxSensors.
+type tooManySensorsError struct {
+	id  string
+	max int
+}
+
+func (e *tooManySensorsError) Error() string {
+	return fmt.Sprintf("ingest: sensor %s not taken: %d sensors held, the limit (max_sensors)", QuoteID(e.id), e.max)
+}
+
+func (e *tooManySensorsError) Unwrap() error { return ErrTooManySensors }
+
+// reasonForRoute classifies an error of ref.
+func reasonForRoute(err error) Reason {
+	switch {
+	case errors.Is(err, ErrSensorID):
+		return ReasonBadSensorID
+	case errors.Is(err, ErrTooManySensors):
+		return ReasonTooManySensors
+	}
+	return ReasonMalformed
 }
 
 // source is a running subscription.
@@ -558,9 +663,6 @@ func (s *Service) handle(m message) {
 			mt.StreamLag.Set(float64(m.pending))
 		}
 	}
-	if m.subject == s.o.RejectedSubject {
-		return // our own dead letters, captured by the stream
-	}
 	s.messages.Add(1)
 	if mt := s.o.Metrics; mt != nil {
 		mt.Messages.Inc()
@@ -572,9 +674,10 @@ func (s *Service) handle(m message) {
 	}
 	ref, err := s.ref(id)
 	if err != nil {
-		s.deadLetter(m.subject, m.data, ReasonMalformed, err, nil)
+		s.deadLetter(m.subject, m.data, reasonForRoute(err), err, nil)
 		return
 	}
+	ref.inflight.Add(1)
 	b := s.batchFor(ref.worker)
 	b.jobs = append(b.jobs, job{ref: ref, data: m.data, seq: m.seq})
 	s.dirty = true
@@ -598,12 +701,17 @@ func (s *Service) deadLetter(subject string, data []byte, reason Reason, cause e
 			mt.Rejected.WithLabelValues(r.Reason.String()).Inc()
 		}
 	}
-	s.badLog.Warn().Str("subject", subject).Str("reason", reason.String()).Int("n", n).Err(cause).Msg("input rejected")
+	s.badLog.Warn().Str("subject", QuoteID(subject)).Str("reason", reason.String()).Int("n", n).Err(cause).Msg("input rejected")
 	msg := nats.NewMsg(s.o.RejectedSubject)
 	msg.Data = data
 	msg.Header.Set(HeaderReason, reason.String())
 	if cause != nil {
 		msg.Header.Set(HeaderError, cause.Error())
+	}
+	// A subject may hold bytes that break a header line or a terminal
+	// (a NUL, an escape): those are sent quoted.
+	if CheckSensorID(subject) != nil {
+		subject = QuoteID(subject)
 	}
 	msg.Header.Set(HeaderSubject, subject)
 	if len(rejects) > 0 {

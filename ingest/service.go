@@ -2,7 +2,9 @@ package ingest
 
 import (
 	"errors"
+	"fmt"
 	"runtime"
+	"strings"
 	"time"
 
 	"github.com/nats-io/nats.go"
@@ -73,13 +75,45 @@ type Options struct {
 	// Default "driftfit.in".
 	SubjectPrefix string
 	// RejectedSubject receives refused input with the reason in headers.
-	// Default <SubjectPrefix>.rejected. Messages on it are never read as
-	// readings, so "rejected" cannot be a sensor id.
+	// Default DefaultRejectedSubject(SubjectPrefix), "driftfit.rejected"
+	// for the default prefix. It must not lie under
+	// <SubjectPrefix>.>: the readings stream captures all of that, and
+	// dead letters have a stream of their own (RejectedStream).
 	RejectedSubject string
 	// StreamName is the JetStream stream holding readings (ModeStream).
 	// Default "DRIFTFIT". It is created, capturing <SubjectPrefix>.>, if
-	// it does not exist.
+	// it does not exist. New readings are refused to their producers once
+	// it holds StreamMaxBytes (discard-new), so no reading leaves it
+	// unapplied; what a commit holds is purged from it.
 	StreamName string
+	// StreamMaxBytes bounds the readings stream, in bytes. Default
+	// DefaultStreamMaxBytes (1 GiB). Since committed readings are purged,
+	// the stream holds what serve has not yet committed: the limit is
+	// the backlog kept while serve is down.
+	StreamMaxBytes int64
+	// StreamMaxAge makes the server delete readings older than this from
+	// the stream, applied or not (a gap serve reports). Zero (the
+	// default): no age limit, only StreamMaxBytes.
+	StreamMaxAge time.Duration
+	// RejectedStream is the stream that keeps dead letters (ModeStream),
+	// capturing RejectedSubject, oldest discarded first. Default
+	// <StreamName>_REJECTED.
+	RejectedStream string
+	// RejectedMaxBytes bounds RejectedStream, in bytes. Default
+	// DefaultRejectedMaxBytes (64 MiB).
+	RejectedMaxBytes int64
+	// RejectedMaxAge bounds RejectedStream by age. Default 7 days.
+	RejectedMaxAge time.Duration
+	// ResetPosition starts from the beginning of the readings stream when
+	// the stream is not the one the DB's position was taken in (it was
+	// deleted, rebuilt or renamed); without it, Run refuses to start then
+	// (ErrStreamChanged). ModeStream only.
+	ResetPosition bool
+	// MaxSensors bounds the sensors held (with routes of new ids whose
+	// readings are still in flight): readings of a new id beyond it are
+	// refused as too_many_sensors. Each sensor costs about 8 KiB with the
+	// default windows. Default DefaultMaxSensors (200,000).
+	MaxSensors int
 	// Durable names the pull consumer (ModeStream). Default "driftfit".
 	Durable string
 	// Workers is the count of goroutines that own the sensors, each a
@@ -168,6 +202,33 @@ type Options struct {
 	OnApplied func(id string, readings []rolling.Reading)
 }
 
+// Defaults of Options.
+const (
+	// DefaultStreamMaxBytes is 1 GiB: at about 60 bytes a stored reading
+	// (JSON payload plus the server's per-message overhead, common
+	// practice), some 16 million readings, 800 hours of 20,000 hourly
+	// sensors while serve is down.
+	DefaultStreamMaxBytes = 1 << 30
+	// DefaultRejectedMaxBytes is 64 MiB of dead letters.
+	DefaultRejectedMaxBytes = 64 << 20
+	// DefaultMaxSensors is 200,000 sensors, about 1.6 GB of windows at
+	// the 7.5 KiB a sensor measured for 1d/1h and 30d/1d (README,
+	// Performance).
+	DefaultMaxSensors = 200000
+)
+
+// DefaultRejectedSubject returns the default dead-letter subject for the
+// readings prefix: the prefix with its last token replaced by "rejected"
+// ("driftfit.in" gives "driftfit.rejected"), or "<prefix>_rejected" for a
+// one-token prefix; either way outside <prefix>.>, which the readings
+// stream captures.
+func DefaultRejectedSubject(prefix string) string {
+	if i := strings.LastIndexByte(prefix, '.'); i > 0 {
+		return prefix[:i] + ".rejected"
+	}
+	return prefix + "_rejected"
+}
+
 func (o *Options) fill() error {
 	if o.Conn == nil || o.DB == nil || o.Sensor == nil {
 		return errors.New("ingest: Options need Conn, DB and Sensor")
@@ -179,10 +240,31 @@ func (o *Options) fill() error {
 		o.SubjectPrefix = "driftfit.in"
 	}
 	if o.RejectedSubject == "" {
-		o.RejectedSubject = o.SubjectPrefix + ".rejected"
+		o.RejectedSubject = DefaultRejectedSubject(o.SubjectPrefix)
+	}
+	if strings.HasPrefix(o.RejectedSubject, o.SubjectPrefix+".") {
+		return fmt.Errorf("ingest: RejectedSubject %q lies under the readings subjects %s.>: choose one outside them", o.RejectedSubject, o.SubjectPrefix)
 	}
 	if o.StreamName == "" {
 		o.StreamName = "DRIFTFIT"
+	}
+	if o.StreamMaxBytes <= 0 {
+		o.StreamMaxBytes = DefaultStreamMaxBytes
+	}
+	if o.StreamMaxAge < 0 {
+		return fmt.Errorf("ingest: StreamMaxAge %v is negative", o.StreamMaxAge)
+	}
+	if o.RejectedStream == "" {
+		o.RejectedStream = o.StreamName + "_REJECTED"
+	}
+	if o.RejectedMaxBytes <= 0 {
+		o.RejectedMaxBytes = DefaultRejectedMaxBytes
+	}
+	if o.RejectedMaxAge <= 0 {
+		o.RejectedMaxAge = 7 * 24 * time.Hour
+	}
+	if o.MaxSensors <= 0 {
+		o.MaxSensors = DefaultMaxSensors
 	}
 	if o.Durable == "" {
 		o.Durable = "driftfit"
@@ -244,6 +326,7 @@ type Stats struct {
 	Applied  uint64 // readings applied to the fits (committed or not)
 	Rejected uint64 // readings and payloads refused
 	Sensors  int    // sensors held
+	Routes   int    // sensor ids routed: the sensors, and new ids with readings in flight
 	Position uint64 // stream sequence of the last committed message
 	// Backlog says the last commit left changed sensors for the next
 	// (Options.CommitMaxSensors).

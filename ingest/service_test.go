@@ -23,10 +23,19 @@ import (
 // dir, on port (0: any free one).
 func natsServer(t testing.TB, dir string, port int) *server.Server {
 	t.Helper()
-	if port == 0 {
-		port = -1
+	return natsServerWith(t, &server.Options{StoreDir: dir, Port: port})
+}
+
+// natsServerWith runs a NATS server with JetStream from o, on 127.0.0.1
+// and o.Port (0: any free one), logging and signals off unless o sets a
+// logger through the returned server.
+func natsServerWith(t testing.TB, o *server.Options) *server.Server {
+	t.Helper()
+	if o.Port == 0 {
+		o.Port = -1
 	}
-	ns, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: port, JetStream: true, StoreDir: dir, NoLog: true, NoSigs: true})
+	o.Host, o.JetStream, o.NoLog, o.NoSigs = "127.0.0.1", true, true, true
+	ns, err := server.NewServer(o)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -53,6 +62,13 @@ const testMaxPayload = 64 << 10
 // startService runs a service on url with a real bbolt file in dir.
 func startService(t *testing.T, url, dir string, mode ingest.Mode) *harness {
 	t.Helper()
+	return startServiceWith(t, url, dir, mode, nil)
+}
+
+// startServiceWith is startService with the options changed by edit
+// (nil: none) before the service is made.
+func startServiceWith(t *testing.T, url, dir string, mode ingest.Mode, edit func(*ingest.Options)) *harness {
+	t.Helper()
 	nc, err := nats.Connect(url, nats.MaxReconnects(-1), nats.ReconnectWait(50*time.Millisecond))
 	if err != nil {
 		t.Fatal(err)
@@ -62,7 +78,7 @@ func startService(t *testing.T, url, dir string, mode ingest.Mode) *harness {
 		t.Fatal(err)
 	}
 	m := ingest.NewMetrics()
-	svc, err := ingest.New(ingest.Options{
+	o := ingest.Options{
 		Conn: nc,
 		DB:   db,
 		Mode: mode,
@@ -72,7 +88,11 @@ func startService(t *testing.T, url, dir string, mode ingest.Mode) *harness {
 		CommitInterval: 20 * time.Millisecond,
 		MaxPayload:     testMaxPayload,
 		Metrics:        m,
-	})
+	}
+	if edit != nil {
+		edit(&o)
+	}
+	svc, err := ingest.New(o)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -117,7 +137,7 @@ func TestService_BadInput(t *testing.T) {
 	h := startService(t, ns.ClientURL(), dir, ingest.ModeStream)
 
 	waitStream(t, h.nc)
-	sub, err := h.nc.SubscribeSync("driftfit.in.rejected")
+	sub, err := h.nc.SubscribeSync("driftfit.rejected")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -368,7 +388,8 @@ func TestService_Restart(t *testing.T) {
 		t.Fatal(err)
 	}
 	waitFor(t, "sensor restored", func() bool { return h.svc.Stats().Sensors == 1 })
-	publish(230, 260) // 3 readings: 1 before the cut, 2 after
+	publish(230, 240) // 1 reading before the cut
+	publish(400, 420) // 2 new readings after it
 	waitFor(t, "readings after the service restart", func() bool {
 		st := h.svc.Stats()
 		return st.Applied == 2 && st.Rejected == 1

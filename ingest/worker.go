@@ -96,6 +96,7 @@ func (w *worker) run() {
 		limit := w.s.o.Now().Add(w.s.o.FutureSkew).UnixNano()
 		for i := range b.jobs {
 			w.apply(&b.jobs[i], limit)
+			b.jobs[i].ref.inflight.Add(-1)
 		}
 		clear(b.jobs) // drop the refs and payloads
 		b.jobs = b.jobs[:0]
@@ -155,8 +156,11 @@ func (w *worker) apply(j *job, limit int64) {
 			w.s.deadLetter(w.s.prefix+ref.id, j.data, ReasonMalformed, fmt.Errorf("sensor %q windows: %w", ref.id, err), nil)
 			return
 		}
+		if err := w.s.admitSensor(ref); err != nil {
+			w.s.deadLetter(w.s.prefix+ref.id, j.data, ReasonTooManySensors, err, nil)
+			return
+		}
 		ref.st.sensor = sensor
-		w.s.sensorMade()
 	}
 	if len(rs) > 0 && !ref.st.joined {
 		ref.st.joined = true
@@ -208,6 +212,10 @@ func (w *worker) fold(ref *sensorRef, rs []rolling.Reading, seq uint64) {
 	for _, r := range rs {
 		if r.UnixNano < st.since {
 			w.reject(ref, r, errBeforeRestart)
+			continue
+		}
+		if err := st.dedup.Admit(r.UnixNano); err != nil {
+			w.reject(ref, r, err)
 			continue
 		}
 		if det != nil && w.screen(ref, det, r) {
@@ -289,9 +297,10 @@ func (w *worker) restart(j *restartJob) {
 	j.ref.st.acks = append(j.ref.st.acks, done)
 	j.ref.st.urgent = true
 	if st.sensor == nil {
-		w.s.sensorMade()
+		w.s.sensorMade(j.ref)
 	}
 	st.sensor, st.since, st.dropped = fresh, j.from, true
+	st.dedup = Dedup{} // the fresh sensor holds none of the readings seen
 	w.mark(j.ref)
 	w.s.log.Info().Str("sensor", j.ref.id).Time("from", time.Unix(0, j.from)).Msg("fits restarted")
 }
@@ -329,10 +338,7 @@ func (w *worker) closePanes(ref *sensorRef, mask uint64) {
 
 // reject dead-letters one reading the sensor refused.
 func (w *worker) reject(ref *sensorRef, r rolling.Reading, err error) {
-	reason := ReasonTooOld
-	if !errors.Is(err, rolling.ErrTooOld) && !errors.Is(err, errBeforeRestart) {
-		reason = ReasonUnknown
-	}
+	reason := foldReason(err)
 	msg := nats.NewMsg(w.s.o.RejectedSubject)
 	msg.Data = AppendReading(nil, Decoded{Reading: r})
 	msg.Header.Set(HeaderReason, reason.String())
