@@ -262,6 +262,7 @@ func (s *Service) committer() {
 			}
 			marks = append(marks[:0], marks[n:]...)
 		}
+		s.purgeTo(pos) // the stored position: every message up to it is in the file
 		if r := s.o.HistoryRetention; r > 0 && !time.Now().Before(pruneNext) {
 			n, more, err := s.o.DB.PruneHistory(s.o.Now().Add(-r), 500)
 			switch {

@@ -114,3 +114,7 @@ var ErrTooManySensors = errors.New("ingest: sensor limit reached")
 // ErrDuplicate is the cause of a reading refused by Dedup as a repeat of
 // one already applied.
 var ErrDuplicate = errors.New("ingest: duplicate reading")
+
+// ErrStreamChanged is returned (inside a *StreamChangedError) by Run when
+// the readings stream is not the one the DB's position was taken in.
+var ErrStreamChanged = errors.New("ingest: stream changed under the stored position")

@@ -22,6 +22,16 @@ type Metrics struct {
 	// NotJudged holds, per reason, the sensor windows whose latest
 	// evaluation was not judged (alert.Reason).
 	NotJudged *prometheus.GaugeVec
+
+	StreamBytes      prometheus.Gauge
+	StreamLimitBytes prometheus.Gauge
+	StreamRefetch    prometheus.Counter
+	StreamLost       prometheus.Counter
+	// ServerLog counts the embedded server's warnings and errors, by
+	// level; ServerSlowConsumers is the embedded server's own count of
+	// slow consumers it cut off.
+	ServerLog           *prometheus.CounterVec
+	ServerSlowConsumers prometheus.Gauge
 }
 
 // NewMetrics returns the instruments, not yet registered.
@@ -64,12 +74,31 @@ func NewMetrics() *Metrics {
 		NotJudged: prometheus.NewGaugeVec(prometheus.GaugeOpts{
 			Name: "driftfit_windows_not_judged", Help: "Sensor windows whose latest evaluation was not judged, by reason.",
 		}, []string{"reason"}),
+		StreamBytes: prometheus.NewGauge(prometheus.GaugeOpts{
+			Name: "driftfit_stream_bytes", Help: "Bytes held by the readings stream (stream mode): what is not yet committed.",
+		}),
+		StreamLimitBytes: prometheus.NewGauge(prometheus.GaugeOpts{
+			Name: "driftfit_stream_limit_bytes", Help: "The readings stream's byte limit; producers are refused when it is reached.",
+		}),
+		StreamRefetch: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "driftfit_stream_refetch_total", Help: "Gaps in the delivered stream sequence, each read again from the last applied message.",
+		}),
+		StreamLost: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "driftfit_stream_lost_messages_total", Help: "Stream messages gone before they were applied (aged out or deleted).",
+		}),
+		ServerLog: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "driftfit_bus_server_log_total", Help: "Warnings and errors logged by the embedded NATS server, by level (it drops messages with a warning).",
+		}, []string{"level"}),
+		ServerSlowConsumers: prometheus.NewGauge(prometheus.GaugeOpts{
+			Name: "driftfit_bus_server_slow_consumers", Help: "Clients the embedded NATS server cut off as slow consumers since it started.",
+		}),
 	}
 }
 
 // Register registers every instrument with r.
 func (m *Metrics) Register(r prometheus.Registerer) error {
-	for _, c := range []prometheus.Collector{m.Messages, m.Applied, m.Rejected, m.Sensors, m.CommitTime, m.CommitBytes, m.StreamLag, m.BusConnected, m.SlowConsumer, m.SetAside, m.Spikes, m.NotJudged} {
+	for _, c := range []prometheus.Collector{m.Messages, m.Applied, m.Rejected, m.Sensors, m.CommitTime, m.CommitBytes, m.StreamLag, m.BusConnected, m.SlowConsumer, m.SetAside, m.Spikes, m.NotJudged,
+		m.StreamBytes, m.StreamLimitBytes, m.StreamRefetch, m.StreamLost, m.ServerLog, m.ServerSlowConsumers} {
 		if err := r.Register(c); err != nil {
 			return err
 		}

@@ -51,6 +51,7 @@ type message struct {
 	seq     uint64        // stream sequence; 0 in direct mode
 	pending uint64        // messages left in the stream after this one
 	js      jetstream.Msg // for the acknowledgement; nil in direct mode
+	gen     uint64        // the consumer that delivered it (streamSource.gen)
 }
 
 // sensorRef routes one sensor. The dispatcher owns the map of refs; id,
@@ -125,6 +126,16 @@ type Service struct {
 	commitBase uint64    // applied at the last commit
 	sinceAck   int       // stream messages taken since the last commit
 	dirty      bool
+	// src is the stream source (nil in direct mode); minGen the oldest
+	// consumer whose messages are taken; refetching is set from asking
+	// for a gap to be read again until the next message is taken.
+	src        *streamSource
+	minGen     uint64
+	refetching bool
+	// appliedSeq is lastSeq for other goroutines.
+	appliedSeq atomic.Uint64
+	// purges holds the last committed position to purge (purgeTo).
+	purges chan uint64
 
 	commits chan commitReq
 	control chan controlReq
@@ -172,7 +183,8 @@ func New(o Options) (*Service, error) {
 		alertPrefix: o.AlertSubjectPrefix + ".",
 		wakeCommit:  make(chan struct{}, 1),
 		freed:       make(chan struct{}, 1),
-		sweepAt: sweepMin,
+		sweepAt:     sweepMin,
+		purges:      make(chan uint64, 1),
 	}
 	s.outbox = newOutbox(s)
 	s.budget = max(1, o.CommitMaxSensors/o.Workers)
@@ -584,65 +596,12 @@ func (s *Service) start(ctx context.Context, in chan message) (*source, error) {
 		}}, nil
 	}
 
-	js, err := jetstream.New(s.o.Conn)
+	src, err := s.startStream(ctx, in)
 	if err != nil {
 		return nil, err
 	}
-	if _, err := js.Stream(ctx, s.o.StreamName); errors.Is(err, jetstream.ErrStreamNotFound) {
-		_, err = js.CreateStream(ctx, jetstream.StreamConfig{
-			Name:     s.o.StreamName,
-			Subjects: []string{s.prefix + ">"},
-			Storage:  jetstream.FileStorage,
-		})
-		if err != nil {
-			return nil, fmt.Errorf("ingest: create stream %s: %w", s.o.StreamName, err)
-		}
-		s.log.Info().Str("stream", s.o.StreamName).Str("subject", s.prefix+">").Msg("stream created")
-	} else if err != nil {
-		return nil, fmt.Errorf("ingest: stream %s: %w", s.o.StreamName, err)
-	}
-	// The DB's position, not the consumer's, says where to resume: the
-	// consumer is made anew from the message after it at every start.
-	if err := js.DeleteConsumer(ctx, s.o.StreamName, s.o.Durable); err != nil && !errors.Is(err, jetstream.ErrConsumerNotFound) {
-		return nil, fmt.Errorf("ingest: reset consumer %s: %w", s.o.Durable, err)
-	}
-	cfg := jetstream.ConsumerConfig{
-		Durable:       s.o.Durable,
-		AckPolicy:     jetstream.AckAllPolicy,
-		AckWait:       time.Minute,
-		MaxAckPending: maxAckPending,
-		FilterSubject: s.prefix + ">",
-		DeliverPolicy: jetstream.DeliverAllPolicy,
-	}
-	if pos := s.position.Load(); pos > 0 {
-		cfg.DeliverPolicy, cfg.OptStartSeq = jetstream.DeliverByStartSequencePolicy, pos+1
-	}
-	cons, err := js.CreateConsumer(ctx, s.o.StreamName, cfg)
-	if err != nil {
-		return nil, fmt.Errorf("ingest: create consumer %s: %w", s.o.Durable, err)
-	}
-	cc, err := cons.Consume(func(m jetstream.Msg) {
-		md, err := m.Metadata()
-		if err != nil {
-			s.log.Warn().Err(err).Str("subject", m.Subject()).Msg("message without stream metadata skipped")
-			return
-		}
-		push(message{subject: m.Subject(), data: m.Data(), seq: md.Sequence.Stream, pending: md.NumPending, js: m})
-	}, jetstream.PullMaxMessages(2048), jetstream.ConsumeErrHandler(func(_ jetstream.ConsumeContext, err error) {
-		s.log.Warn().Err(err).Msg("stream consumer")
-	}))
-	if err != nil {
-		return nil, fmt.Errorf("ingest: consume: %w", err)
-	}
-	return &source{stop: func() {
-		cc.Stop()
-		select {
-		case <-cc.Closed():
-		case <-time.After(s.o.StopTimeout):
-			s.log.Warn().Dur("waited", s.o.StopTimeout).Msg("stream consumer not stopped in time")
-		}
-		close(quit)
-	}}, nil
+	s.src = src
+	return &source{stop: src.stop}, nil
 }
 
 // handle routes one message to the worker of its sensor, which decodes
@@ -650,13 +609,33 @@ func (s *Service) start(ctx context.Context, in chan message) (*source, error) {
 // workers share it out over the cores.
 func (s *Service) handle(m message) {
 	if m.seq != 0 {
-		if m.seq <= s.lastSeq {
-			return // a redelivery of a message already applied
+		if m.gen < s.minGen || m.seq <= s.lastSeq {
+			return // from a consumer since replaced, or a redelivery of a message applied
 		}
+		if m.seq != s.lastSeq+1 {
+			// The consumer sees every sequence of the stream (its filter
+			// is all of the stream's subjects), so a message skipped is
+			// one lost in flight: after a reconnect, the client drops
+			// what the server sent while it was away, and the next
+			// acknowledgement (ack-all) would acknowledge it. Read again
+			// from the last applied message, once; if the stream itself
+			// no longer holds the messages, count them lost.
+			missing := m.seq - s.lastSeq - 1
+			if !s.refetching {
+				s.refetching = true
+				s.minGen = s.src.gen.Load() + 1
+				s.src.resume(s.lastSeq + 1)
+				if mt := s.o.Metrics; mt != nil {
+					mt.StreamRefetch.Inc()
+				}
+				s.log.Warn().Uint64("position", s.lastSeq).Uint64("next", m.seq).Uint64("messages", missing).Msg("stream gap: reading again from the last applied message")
+				return
+			}
+			s.lost(missing, s.lastSeq)
+		}
+		s.refetching = false
 		s.lastSeq, s.lastMsg = m.seq, m.js
-		if m.seq%ackEvery == 0 {
-			s.marks = append(s.marks, ackMark{m.seq, m.js})
-		}
+		s.appliedSeq.Store(m.seq)
 		s.sinceAck++
 		s.dirty = true
 		if mt := s.o.Metrics; mt != nil {

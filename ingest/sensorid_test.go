@@ -211,3 +211,12 @@ func TestService_MaxSensors(t *testing.T) {
 		t.Errorf("Stats.Sensors = %d, Routes = %d, want 50 each", st.Sensors, st.Routes)
 	}
 }
+
+func counterValue(t *testing.T, c interface{ Write(*dto.Metric) error }) float64 {
+	t.Helper()
+	var pm dto.Metric
+	if err := c.Write(&pm); err != nil {
+		t.Fatal(err)
+	}
+	return pm.GetCounter().GetValue()
+}

@@ -182,6 +182,10 @@ type Options struct {
 	// by then is sent at the next start). Default 5s.
 	StopTimeout time.Duration
 
+	// CheckInterval is how often the stream's fill is read (ModeStream),
+	// for the StreamBytes metric and the warning when it nears its limit.
+	// Default 10s.
+	CheckInterval time.Duration
 	// Now returns the current time. Default time.Now.
 	Now func() time.Time
 	// Logger receives the service's events. Default: a disabled logger.
@@ -286,6 +290,9 @@ func (o *Options) fill() error {
 	}
 	if o.MaxPayload <= 0 {
 		o.MaxPayload = DefaultMaxBytes
+	}
+	if o.CheckInterval <= 0 {
+		o.CheckInterval = 10 * time.Second
 	}
 	if o.Now == nil {
 		o.Now = time.Now
