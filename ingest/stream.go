@@ -53,8 +53,12 @@ type streamSource struct {
 	gen     atomic.Uint64
 	resumes chan uint64 // sequences to make the consumer anew from
 	quit    chan struct{}
-	wg      sync.WaitGroup // run and purge
-	once    sync.Once
+	// ctx bounds the bus requests of run and purge; stop cancels it, so
+	// a request to a server gone away does not hold up a shutdown.
+	ctx    context.Context
+	cancel context.CancelFunc
+	wg     sync.WaitGroup // run and purge
+	once   sync.Once
 }
 
 // startStream makes or checks the streams, checks the stream against the
@@ -108,6 +112,7 @@ func (s *Service) startStream(ctx context.Context, in chan message) (*streamSour
 	if err != nil {
 		return nil, err
 	}
+	src.ctx, src.cancel = context.WithCancel(context.Background())
 	src.wg.Add(2)
 	go src.run(cc)
 	go src.purge()
@@ -266,7 +271,7 @@ func (src *streamSource) run(cc jetstream.ConsumeContext) {
 		case from := <-src.resumes:
 			cc.Stop()
 			for {
-				ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+				ctx, cancel := context.WithTimeout(src.ctx, 10*time.Second)
 				err := src.checkStream(ctx)
 				var next jetstream.ConsumeContext
 				if err == nil {
@@ -292,7 +297,7 @@ func (src *streamSource) run(cc jetstream.ConsumeContext) {
 				}
 			}
 		case <-tick.C:
-			ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+			ctx, cancel := context.WithTimeout(src.ctx, 10*time.Second)
 			info, err := src.stream.Info(ctx)
 			cancel()
 			if err != nil {
@@ -319,7 +324,7 @@ func (src *streamSource) purge() {
 			if seq <= purged {
 				continue
 			}
-			ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+			ctx, cancel := context.WithTimeout(src.ctx, 10*time.Second)
 			// Keep seq+1 on: everything up to seq is committed.
 			err := src.stream.Purge(ctx, jetstream.WithPurgeSequence(seq+1))
 			cancel()
@@ -364,7 +369,7 @@ func (src *streamSource) watch(info *jetstream.StreamInfo) {
 
 // stop ends run and waits for it. Idempotent.
 func (src *streamSource) stop() {
-	src.once.Do(func() { close(src.quit) })
+	src.once.Do(func() { close(src.quit); src.cancel() })
 	src.wg.Wait()
 }
 
