@@ -118,3 +118,7 @@ var ErrDuplicate = errors.New("ingest: duplicate reading")
 // ErrStreamChanged is returned (inside a *StreamChangedError) by Run when
 // the readings stream is not the one the DB's position was taken in.
 var ErrStreamChanged = errors.New("ingest: stream changed under the stored position")
+
+// ErrPortInUse is the cause of a *PortError when another program listens
+// on the embedded NATS server's port.
+var ErrPortInUse = errors.New("ingest: port in use")

@@ -80,12 +80,13 @@ func runBench(ctx context.Context, args []string, _ io.Reader, stdout, stderr io
 func benchWiring(log zerolog.Logger) bench.Wiring {
 	return bench.Wiring{
 		Connect: func(cfg *configs.Config) (*bench.Bus, error) {
-			// The bus metrics are unused here; connectBus wants somewhere to count.
-			b, err := connectBus(cfg, -1, log, ingest.NewMetrics())
+			ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+			defer cancel()
+			b, err := ingest.Connect(ctx, busOptions(cfg, -1, &log, nil))
 			if err != nil {
 				return nil, err
 			}
-			return &bench.Bus{Conn: b.nc, Server: b.ns, Close: b.close}, nil
+			return &bench.Bus{Conn: b.Conn(), Server: b.Server(), Close: func() { _ = b.Close() }}, nil
 		},
 		IngestOptions: serviceOptions,
 	}

@@ -12,11 +12,9 @@ import (
 	"os"
 	"os/signal"
 	"path/filepath"
-	"strings"
 	"syscall"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
@@ -124,13 +122,16 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		}
 	}()
 
-	bus, err := connectBus(cfg, *natsPort, log, metrics)
+	bus, err := ingest.Connect(ctx, busOptions(cfg, *natsPort, &log, metrics))
+	if errors.Is(err, ingest.ErrPortInUse) {
+		return fmt.Errorf("%w; choose another with --nats-port", err)
+	}
 	if err != nil {
 		return err
 	}
-	defer bus.close()
+	defer bus.Close()
 
-	opts := serviceOptions(cfg, bus.nc, db, &log, metrics)
+	opts := serviceOptions(cfg, bus.Conn(), db, &log, metrics)
 	opts.StopTimeout = *stopTimeout
 	var board *demoplant.Board
 	if *demo {
@@ -142,7 +143,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		return err
 	}
 
-	stopAPI, err := readapi.Serve(bus.nc, db, log, svc.Subjects()...)
+	stopAPI, err := readapi.Serve(bus.Conn(), db, log, svc.Subjects()...)
 	if err != nil {
 		return err
 	}
@@ -199,7 +200,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	boardDone := make(chan struct{})
 	if *demo {
 		go func() {
-			demoDone <- demoplant.Publish(runCtx, bus.nc, demoplant.Options{Prefix: cfg.Bus.SubjectPrefix, Live: true, Bad: true}, log)
+			demoDone <- demoplant.Publish(runCtx, bus.Conn(), demoplant.Options{Prefix: cfg.Bus.SubjectPrefix, Live: true, Bad: true}, log)
 		}()
 		go func() {
 			defer close(boardDone)
@@ -312,119 +313,17 @@ func serveHTTP(addr string, h http.Handler, log zerolog.Logger, what string, tim
 	}, nil
 }
 
-// busConn is the NATS connection, and the embedded server if we run one.
-type busConn struct {
-	nc *nats.Conn
-	ns *server.Server
-}
-
-func (b *busConn) close() {
-	if b.nc != nil {
-		b.nc.Close()
+// busOptions maps the configuration onto the bus connection: the
+// embedded server on 127.0.0.1:port (-1: any free port) with its store
+// under store.dir, or bus.servers with their credentials.
+func busOptions(cfg *configs.Config, port int, log *zerolog.Logger, m *ingest.Metrics) ingest.BusOptions {
+	return ingest.BusOptions{
+		Servers:    cfg.Bus.Servers,
+		Port:       port,
+		StoreDir:   filepath.Join(cfg.Store.Dir, "nats"),
+		MaxPayload: max(cfg.Bus.MaxPayloadBytes, 1<<20),
+		User:       cfg.Bus.User, PasswordEnv: cfg.Bus.PasswordEnv, TokenEnv: cfg.Bus.TokenEnv, CredsFile: cfg.Bus.CredsFile,
+		CAFile: cfg.Bus.TLS.CAFile, CertFile: cfg.Bus.TLS.CertFile, KeyFile: cfg.Bus.TLS.KeyFile,
+		Logger: log, Metrics: m,
 	}
-	if b.ns != nil {
-		b.ns.Shutdown()
-		b.ns.WaitForShutdown()
-	}
-}
-
-// connectBus starts the embedded NATS server when no servers are
-// configured, else connects to them; either way the connection reconnects
-// forever and logs every state change.
-func connectBus(cfg *configs.Config, port int, log zerolog.Logger, m *ingest.Metrics) (*busConn, error) {
-	blog := log.With().Str("component", "bus").Logger()
-	opts := []nats.Option{
-		nats.Name("driftfit"),
-		nats.MaxReconnects(-1),
-		nats.ReconnectWait(time.Second),
-		nats.ReconnectJitter(500*time.Millisecond, 2*time.Second),
-		nats.ConnectHandler(func(nc *nats.Conn) {
-			m.BusConnected.Set(1)
-			blog.Info().Str("url", nc.ConnectedUrlRedacted()).Msg("bus connected")
-		}),
-		nats.DisconnectErrHandler(func(_ *nats.Conn, err error) {
-			m.BusConnected.Set(0)
-			blog.Warn().Err(err).Msg("bus disconnected")
-		}),
-		nats.ReconnectHandler(func(nc *nats.Conn) {
-			m.BusConnected.Set(1)
-			blog.Info().Str("url", nc.ConnectedUrlRedacted()).Msg("bus reconnected")
-		}),
-		nats.ClosedHandler(func(*nats.Conn) {
-			m.BusConnected.Set(0)
-			blog.Info().Msg("bus connection closed")
-		}),
-		nats.ErrorHandler(func(_ *nats.Conn, sub *nats.Subscription, err error) {
-			if errors.Is(err, nats.ErrSlowConsumer) {
-				m.SlowConsumer.Inc()
-			}
-			ev := blog.Warn().Err(err)
-			if sub != nil {
-				ev = ev.Str("subject", sub.Subject)
-			}
-			ev.Msg("bus error")
-		}),
-	}
-	b := &busConn{}
-	if len(cfg.Bus.Servers) == 0 {
-		ns, err := server.NewServer(&server.Options{
-			ServerName: "driftfit-embedded",
-			Host:       "127.0.0.1",
-			Port:       port,
-			JetStream:  true,
-			StoreDir:   filepath.Join(cfg.Store.Dir, "nats"),
-			NoSigs:     true,
-			NoLog:      true,
-			MaxPayload: int32(max(cfg.Bus.MaxPayloadBytes, 1<<20)),
-		})
-		if err != nil {
-			return nil, fmt.Errorf("embedded NATS server: %w", err)
-		}
-		go ns.Start()
-		if !ns.ReadyForConnections(10 * time.Second) {
-			ns.Shutdown()
-			return nil, errors.New("embedded NATS server: not ready after 10s")
-		}
-		b.ns = ns
-		blog.Info().Str("url", ns.ClientURL()).Str("store", filepath.Join(cfg.Store.Dir, "nats")).Msg("embedded NATS server listening")
-		opts = append(opts, nats.InProcessServer(ns))
-		nc, err := nats.Connect(ns.ClientURL(), opts...)
-		if err != nil {
-			b.close()
-			return nil, err
-		}
-		b.nc = nc
-		m.BusConnected.Set(1)
-		return b, nil
-	}
-
-	if cfg.Bus.User != "" {
-		pw := ""
-		if cfg.Bus.PasswordEnv != "" {
-			pw = os.Getenv(cfg.Bus.PasswordEnv)
-		}
-		opts = append(opts, nats.UserInfo(cfg.Bus.User, pw))
-	}
-	if cfg.Bus.TokenEnv != "" {
-		opts = append(opts, nats.Token(os.Getenv(cfg.Bus.TokenEnv)))
-	}
-	if cfg.Bus.CredsFile != "" {
-		opts = append(opts, nats.UserCredentials(cfg.Bus.CredsFile))
-	}
-	if t := cfg.Bus.TLS; t.CAFile != "" || t.CertFile != "" {
-		if t.CAFile != "" {
-			opts = append(opts, nats.RootCAs(t.CAFile))
-		}
-		if t.CertFile != "" {
-			opts = append(opts, nats.ClientCert(t.CertFile, t.KeyFile))
-		}
-	}
-	// Keep trying to connect at start too: the bus may come up after us.
-	opts = append(opts, nats.RetryOnFailedConnect(true))
-	nc, err := nats.Connect(strings.Join(cfg.Bus.Servers, ","), opts...)
-	if err != nil {
-		return nil, fmt.Errorf("connect to %v: %w", cfg.Bus.Servers, err)
-	}
-	b.nc = nc
-	return b, nil
 }

@@ -1,12 +1,14 @@
 package demo
 
 import (
+	"bytes"
 	"context"
 	"math/rand/v2"
 	"strconv"
 	"time"
 
 	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
 	"github.com/rs/zerolog"
 
 	"driftfit/ingest"
@@ -48,12 +50,96 @@ func (o *Options) fill() {
 	}
 }
 
+// demoStreamWait is how long Publish waits for a JetStream stream to
+// capture its subjects (serve makes it as it starts) before it publishes
+// with core NATS.
+const demoStreamWait = 5 * time.Second
+
+// demoAckWindow is how many JetStream publishes may await their
+// acknowledgement at once.
+const demoAckWindow = 1024
+
+// demoPublisher publishes readings with JetStream acknowledgements when a
+// stream captures them, so a reading the stream could not take is seen
+// (and logged) instead of lost; else with core NATS.
+type demoPublisher struct {
+	nc      *nats.Conn
+	js      jetstream.JetStream // nil: core NATS
+	pending []jetstream.PubAckFuture
+	refused int
+	log     zerolog.Logger
+}
+
+func newDemoPublisher(ctx context.Context, nc *nats.Conn, subject string, log zerolog.Logger) *demoPublisher {
+	p := &demoPublisher{nc: nc, log: log}
+	js, err := jetstream.New(nc)
+	if err != nil {
+		return p
+	}
+	deadline := time.Now().Add(demoStreamWait)
+	for {
+		name, err := js.StreamNameBySubject(ctx, subject)
+		if err == nil && name != "" {
+			p.js = js
+			log.Info().Str("stream", name).Msg("demo feed publishes with JetStream acknowledgements")
+			return p
+		}
+		if time.Now().After(deadline) || ctx.Err() != nil {
+			log.Info().Msg("no stream takes the demo readings: publishing with core NATS")
+			return p
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+}
+
+// publish sends one reading; data may be reused once it returns.
+func (p *demoPublisher) publish(ctx context.Context, subject string, data []byte) error {
+	if p.js == nil {
+		return p.nc.Publish(subject, data)
+	}
+	f, err := p.js.PublishAsync(subject, bytes.Clone(data))
+	if err != nil {
+		return err
+	}
+	p.pending = append(p.pending, f)
+	if len(p.pending) >= demoAckWindow {
+		return p.wait(ctx)
+	}
+	return nil
+}
+
+// wait waits for every pending acknowledgement, logging refusals.
+func (p *demoPublisher) wait(ctx context.Context) error {
+	if p.js == nil {
+		return p.nc.Flush()
+	}
+	select {
+	case <-p.js.PublishAsyncComplete():
+	case <-ctx.Done():
+		return ctx.Err()
+	}
+	for _, f := range p.pending {
+		select {
+		case err := <-f.Err():
+			p.refused++
+			p.log.Warn().Err(err).Str("subject", f.Msg().Subject).Int("refused", p.refused).Msg("demo reading refused by the stream")
+		default:
+		}
+	}
+	clear(p.pending)
+	p.pending = p.pending[:0]
+	return nil
+}
+
 // Publish publishes the demo plant's readings on nc: the last o.Backfill of
 // plant time compressed into o.Wall, ending at the present, then (if
 // o.Live) one reading per sensor every LiveEvery. Every 100th step it
 // also sends a burst of bad messages, one of each kind the service
 // rejects, so the dead-letter subject and its counters have something
-// to show.
+// to show. When a JetStream stream captures the readings (serve's stream
+// mode), readings are published with acknowledgements: a flood of core
+// publishes overruns the server's stream ingest, which drops messages
+// with only a warning in its log.
 func Publish(ctx context.Context, nc *nats.Conn, o Options, log zerolog.Logger) error {
 	o.fill()
 	plant := Fleet(o.Sensors)
@@ -67,6 +153,7 @@ func Publish(ctx context.Context, nc *nats.Conn, o Options, log zerolog.Logger) 
 		pause = time.Duration(float64(time.Second) * float64(len(plant)) / o.Rate)
 	}
 	batch := max(o.Batch, 1)
+	pub := newDemoPublisher(ctx, nc, o.Prefix+"."+plant[0].ID, log)
 	var buf []byte
 	var rs []rolling.Reading
 	publishBatch := func(step, n int) error {
@@ -82,7 +169,7 @@ func Publish(ctx context.Context, nc *nats.Conn, o Options, log zerolog.Logger) 
 			} else {
 				buf = ingest.AppendBatch(buf[:0], s.ID, rs)
 			}
-			if err := nc.Publish(o.Prefix+"."+s.ID, buf); err != nil {
+			if err := pub.publish(ctx, o.Prefix+"."+s.ID, buf); err != nil {
 				return err
 			}
 		}
@@ -93,11 +180,11 @@ func Publish(ctx context.Context, nc *nats.Conn, o Options, log zerolog.Logger) 
 		for i := range plant {
 			s := &plant[i]
 			buf = ingest.AppendReading(buf[:0], ingest.Decoded{Reading: rolling.Reading{UnixNano: at.UnixNano(), Value: s.Value(d, rng)}})
-			if err := nc.Publish(o.Prefix+"."+s.ID, buf); err != nil {
+			if err := pub.publish(ctx, o.Prefix+"."+s.ID, buf); err != nil {
 				return err
 			}
 		}
-		return nil
+		return pub.wait(ctx)
 	}
 	tick := time.NewTicker(max(pause, time.Millisecond))
 	defer tick.Stop()
@@ -117,10 +204,10 @@ func Publish(ctx context.Context, nc *nats.Conn, o Options, log zerolog.Logger) 
 			}
 		}
 	}
-	if err := nc.Flush(); err != nil {
+	if err := pub.wait(ctx); err != nil {
 		return err
 	}
-	log.Info().Int("steps", steps).Msg("demo backfill published")
+	log.Info().Int("steps", steps).Int("refused", pub.refused).Msg("demo backfill published")
 	if !o.Live {
 		return nil
 	}
