@@ -119,6 +119,8 @@ func benchService(b *testing.B, nc *nats.Conn, dir string, mode ingest.Mode) *in
 	b.Cleanup(func() { db.Close() })
 	svc, err := ingest.New(ingest.Options{
 		Conn: nc, DB: db, Mode: mode,
+		// The benchmarks send one set of readings over and over.
+		AcceptDuplicates: true,
 		Sensor: func(string) (ingest.SensorConfig, error) {
 			return ingest.SensorConfig{Windows: []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}, {Span: 30 * 24 * time.Hour, Pane: 24 * time.Hour}}}, nil
 		},

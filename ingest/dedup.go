@@ -123,6 +123,15 @@ func (d *Dedup) push(t int64) {
 	d.head = (d.head + 1) % DedupSize
 }
 
+// admit applies the sensor's duplicate check unless
+// Options.AcceptDuplicates turns it off. The sensor's worker calls it.
+func (s *Service) admit(st *sensorState, unixNano int64) error {
+	if s.o.AcceptDuplicates {
+		return nil
+	}
+	return st.dedup.Admit(unixNano)
+}
+
 // Restored sets the floor from a sensor restored from the store: its
 // newest reading in any window. A sensor with no readings sets none.
 func (d *Dedup) Restored(s *rolling.Sensor) {

@@ -167,3 +167,35 @@ func TestService_Duplicates(t *testing.T) {
 		t.Errorf("stored fit holds %d readings (%v), want %d", got, err, n)
 	}
 }
+
+// BenchmarkDedup_Admit is the cost the duplicate check adds to a reading:
+// in order (the common case), and late by a few places.
+func BenchmarkDedup_Admit(b *testing.B) {
+	b.Run("in_order", func(b *testing.B) {
+		var d ingest.Dedup
+		t := int64(0)
+		for b.Loop() {
+			t += 1e9
+			if err := d.Admit(t); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
+	b.Run("late_by_4", func(b *testing.B) {
+		var d ingest.Dedup
+		t := int64(0)
+		for b.Loop() {
+			// Every 8th reading arrives 4 places late: a fresh time
+			// among the newest held.
+			t += 8e9
+			for j := range int64(8) {
+				if j != 3 {
+					_ = d.Admit(t + j*1e9)
+				}
+			}
+			if err := d.Admit(t + 3e9); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
+}

@@ -182,6 +182,12 @@ type Options struct {
 	// by then is sent at the next start). Default 5s.
 	StopTimeout time.Duration
 
+	// AcceptDuplicates turns the duplicate check (Dedup) off: every
+	// reading the windows take is applied, repeats included. For
+	// benchmarks that send one pool of readings over and over; a
+	// deployment leaves it false (the default), so a producer's re-sent
+	// readings do not count twice.
+	AcceptDuplicates bool
 	// CheckInterval is how often the stream's fill is read (ModeStream),
 	// for the StreamBytes metric and the warning when it nears its limit.
 	// Default 10s.

@@ -214,7 +214,7 @@ func (w *worker) fold(ref *sensorRef, rs []rolling.Reading, seq uint64) {
 			w.reject(ref, r, errBeforeRestart)
 			continue
 		}
-		if err := st.dedup.Admit(r.UnixNano); err != nil {
+		if err := w.s.admit(st, r.UnixNano); err != nil {
 			w.reject(ref, r, err)
 			continue
 		}

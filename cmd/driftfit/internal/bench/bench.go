@@ -550,7 +550,8 @@ func (e *benchEnv) startPipeline(ctx context.Context, cfg *configs.Config, path 
 	quiet := e.log.Level(zerolog.ErrorLevel)
 	opts := e.wire.IngestOptions(cfg, e.bus.Conn, db, &quiet, m)
 	opts.Mode, opts.SubjectPrefix, opts.StreamName = mode, prefix, stream
-	opts.RejectedSubject = "" // <prefix>.rejected
+	opts.RejectedSubject = ""    // the default for the prefix
+	opts.AcceptDuplicates = true // a pool repeats once sent in full
 	opts.OnApplied = onApplied
 	p, err := startService(ctx, opts)
 	if err != nil {
