@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -219,4 +220,31 @@ func counterValue(t *testing.T, c interface{ Write(*dto.Metric) error }) float64
 		t.Fatal(err)
 	}
 	return pm.GetCounter().GetValue()
+}
+
+// FuzzCheckSensorID checks on any id that CheckSensorID never panics,
+// that an accepted id is a store key and prints as itself (QuoteID is
+// strconv.Quote of it), and that QuoteID never lets a control byte
+// through, whatever the id.
+func FuzzCheckSensorID(f *testing.F) {
+	for _, s := range []string{"qm.u1.steam.pt-101", "qm.pt\x00x", "qm.\x1b[2Jpt", "qm..pt", "qm.*", "\xff", "kühl.tt-1"} {
+		f.Add(s)
+	}
+	f.Fuzz(func(t *testing.T, id string) {
+		q := ingest.QuoteID(id)
+		for i := 0; i < len(q); i++ {
+			if c := q[i]; c < 0x20 || c == 0x7f {
+				t.Fatalf("QuoteID(%q) = %q holds byte %#x", id, q, c)
+			}
+		}
+		if ingest.CheckSensorID(id) != nil {
+			return
+		}
+		if len(id) > store.MaxSensorID || strings.IndexByte(id, 0) >= 0 || strings.ContainsAny(id, "*> \t\r\n") || strings.Contains(id, "..") {
+			t.Fatalf("CheckSensorID accepted %q", id)
+		}
+		if len(id) <= 256 && q != strconv.Quote(id) {
+			t.Fatalf("QuoteID(%q) = %s, want %s", id, q, strconv.Quote(id))
+		}
+	})
 }
