@@ -636,6 +636,9 @@ func (s *Service) handle(m message) {
 		s.refetching = false
 		s.lastSeq, s.lastMsg = m.seq, m.js
 		s.appliedSeq.Store(m.seq)
+		if m.seq%ackEvery == 0 {
+			s.marks = append(s.marks, ackMark{m.seq, m.js})
+		}
 		s.sinceAck++
 		s.dirty = true
 		if mt := s.o.Metrics; mt != nil {
