@@ -178,7 +178,7 @@ func (w *worker) save(b *store.Batch, ref *sensorRef) error {
 func (s *Service) committer() {
 	var pruneNext, thinNext time.Time
 	var marks []ackMark
-	stored := s.position.Load()
+	var stored uint64
 	for req := range s.commits {
 		parts := make([]part, 0, len(s.workers))
 		applied := s.appliedBase
@@ -202,6 +202,7 @@ func (s *Service) committer() {
 		for i := range parts {
 			batches[i] = parts[i].batch
 		}
+		stored = s.position.Load() // a start with ResetPosition lowers it after this goroutine began
 		if pos < stored {
 			pos = stored // a position never moves back
 		}

@@ -181,6 +181,11 @@ func (src *streamSource) checkIdentity(info *jetstream.StreamInfo) error {
 	s.position.Store(0)
 	s.lastSeq = 0
 	s.appliedSeq.Store(0)
+	// So do the sensors' own sequences, which the DB reset with it. No
+	// worker has a job yet: the dispatcher may still touch their state.
+	for _, ref := range s.refs {
+		ref.st.savedSeq, ref.st.lastSeq, ref.st.firstSeq = 0, 0, 0
+	}
 	return nil
 }
 

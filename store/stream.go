@@ -61,8 +61,9 @@ func (db *DB) Stream() (StreamID, error) {
 }
 
 // SetStream records the stream the position counts in. With
-// resetPosition it also sets the position to 0 in the same transaction,
-// so a file never pairs a position with a stream it was not taken in. It
+// resetPosition it also sets the position, and every sensor's stream
+// sequence (Batch.SetSeq), to 0 in the same transaction, so a file never
+// pairs a position with a stream it was not taken in. It
 // must not run while a commit does: the service calls it once at start,
 // before its first commit.
 func (db *DB) SetStream(id StreamID, resetPosition bool) error {
@@ -81,6 +82,13 @@ func (db *DB) SetStream(id StreamID, resetPosition bool) error {
 			binary.BigEndian.PutUint64(zero[:], 0)
 			if err := b.Put(keyPosition, zero[:]); err != nil {
 				return err
+			}
+			// The sensors' own sequences (Batch.SetSeq) count in the old
+			// stream too.
+			if tx.Bucket(bucketSeqs) != nil {
+				if err := tx.DeleteBucket(bucketSeqs); err != nil {
+					return err
+				}
 			}
 		}
 		return b.Put(keyStreamID, v)

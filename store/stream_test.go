@@ -5,6 +5,7 @@ import (
 	"testing"
 	"time"
 
+	"driftfit/rolling"
 	"driftfit/store"
 )
 
@@ -21,6 +22,20 @@ func TestDB_Stream(t *testing.T) {
 	}
 	var b store.Batch
 	b.SetPosition(28803)
+	spec := rolling.WindowSpec{Span: 24 * time.Hour, Pane: time.Hour}
+	sensor, err := rolling.NewSensor(spec)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := sensor.Add(rolling.Reading{UnixNano: time.Date(2026, 11, 30, 8, 0, 0, 0, time.UTC).UnixNano(), Value: 1003.2}); err != nil {
+		t.Fatal(err)
+	}
+	if err := b.Sensor("qm.u1.steam.pt-101", sensor); err != nil {
+		t.Fatal(err)
+	}
+	if err := b.SetSeq("qm.u1.steam.pt-101", 28800); err != nil {
+		t.Fatal(err)
+	}
 	if _, err := db.Commit(&b); err != nil {
 		t.Fatal(err)
 	}
@@ -54,5 +69,13 @@ func TestDB_Stream(t *testing.T) {
 	}
 	if id, err := db.Stream(); err != nil || !id.Equal(second) {
 		t.Errorf("Stream() after a reset = %v, %v; want %v", id, err, second)
+	}
+	seq := uint64(1)
+	err = db.Restore(func(string) (*rolling.Sensor, error) { return rolling.NewSensor(spec) }, func(r store.Restored) error {
+		seq = r.Seq
+		return nil
+	})
+	if err != nil || seq != 0 {
+		t.Errorf("sensor sequence after a reset = %d (%v), want 0", seq, err)
 	}
 }
