@@ -55,23 +55,33 @@ func (o *Options) fill() {
 // with core NATS.
 const demoStreamWait = 5 * time.Second
 
-// demoAckWindow is how many JetStream publishes may await their
-// acknowledgement at once.
+// demoAckWindow is the most JetStream publishes that may await their
+// acknowledgement at once; demoPublisher halves its window after a
+// refusal and doubles it (up to this) after a window with none.
 const demoAckWindow = 1024
+
+// demoStall is how many rounds in a row may take none of the refused
+// readings before they are given up: the stream is full ("maximum bytes
+// exceeded") and serve is not draining it.
+const demoStall = 8
 
 // demoPublisher publishes readings with JetStream acknowledgements when a
 // stream captures them, so a reading the stream could not take is seen
-// (and logged) instead of lost; else with core NATS.
+// and sent again instead of lost; else with core NATS. The server refuses
+// with "429 Too Many Requests" while its stream ingest queue is full:
+// fewer publishes in flight, and those refused sent again, get them all
+// in.
 type demoPublisher struct {
 	nc      *nats.Conn
 	js      jetstream.JetStream // nil: core NATS
+	window  int
 	pending []jetstream.PubAckFuture
-	refused int
+	refused int // readings given up
 	log     zerolog.Logger
 }
 
 func newDemoPublisher(ctx context.Context, nc *nats.Conn, subject string, log zerolog.Logger) *demoPublisher {
-	p := &demoPublisher{nc: nc, log: log}
+	p := &demoPublisher{nc: nc, log: log, window: demoAckWindow}
 	js, err := jetstream.New(nc)
 	if err != nil {
 		return p
@@ -97,38 +107,89 @@ func (p *demoPublisher) publish(ctx context.Context, subject string, data []byte
 	if p.js == nil {
 		return p.nc.Publish(subject, data)
 	}
-	f, err := p.js.PublishAsync(subject, bytes.Clone(data))
+	return p.send(ctx, &nats.Msg{Subject: subject, Data: bytes.Clone(data)})
+}
+
+func (p *demoPublisher) send(ctx context.Context, m *nats.Msg) error {
+	f, err := p.js.PublishMsgAsync(m)
 	if err != nil {
 		return err
 	}
 	p.pending = append(p.pending, f)
-	if len(p.pending) >= demoAckWindow {
+	if len(p.pending) >= p.window {
 		return p.wait(ctx)
 	}
 	return nil
 }
 
-// wait waits for every pending acknowledgement, logging refusals.
+// wait waits for every pending acknowledgement and sends the refused
+// readings again, a halved window at a time, until all are taken or
+// demoStall rounds in a row took none (those are logged and counted in
+// refused). A refused reading thus arrives late, by a few steps of the
+// fleet at most, which the service accepts.
 func (p *demoPublisher) wait(ctx context.Context) error {
 	if p.js == nil {
 		return p.nc.Flush()
 	}
+	queue := p.settle(ctx, nil)
+	if len(queue) == 0 {
+		p.window = min(demoAckWindow, 2*p.window)
+	}
+	var last error
+	for stall := 0; len(queue) > 0; {
+		if ctx.Err() != nil {
+			return ctx.Err()
+		}
+		p.window = max(1, p.window/2)
+		n := min(len(queue), p.window)
+		for _, m := range queue[:n] {
+			f, err := p.js.PublishMsgAsync(m)
+			if err != nil {
+				return err
+			}
+			p.pending = append(p.pending, f)
+		}
+		failed := p.settle(ctx, &last)
+		queue = append(failed, queue[n:]...)
+		if len(failed) < n {
+			stall = 0
+			continue
+		}
+		if stall++; stall == demoStall {
+			p.refused += len(queue)
+			p.log.Warn().Err(last).Int("readings", len(queue)).Int("refused", p.refused).Msg("demo readings refused by the stream")
+			return nil
+		}
+		select {
+		case <-time.After(time.Duration(stall) * 50 * time.Millisecond):
+		case <-ctx.Done():
+			return ctx.Err()
+		}
+	}
+	return nil
+}
+
+// settle waits for the pending acknowledgements and returns the readings
+// refused, setting *last (if not nil) to a refusal.
+func (p *demoPublisher) settle(ctx context.Context, last *error) []*nats.Msg {
 	select {
 	case <-p.js.PublishAsyncComplete():
 	case <-ctx.Done():
-		return ctx.Err()
 	}
+	var failed []*nats.Msg
 	for _, f := range p.pending {
 		select {
 		case err := <-f.Err():
-			p.refused++
-			p.log.Warn().Err(err).Str("subject", f.Msg().Subject).Int("refused", p.refused).Msg("demo reading refused by the stream")
+			failed = append(failed, f.Msg())
+			if last != nil {
+				*last = err
+			}
 		default:
 		}
 	}
 	clear(p.pending)
 	p.pending = p.pending[:0]
-	return nil
+	return failed
 }
 
 // Publish publishes the demo plant's readings on nc: the last o.Backfill of
