@@ -68,6 +68,25 @@ func (s *Service) startStream(ctx context.Context, in chan message) (*streamSour
 	if err != nil {
 		return nil, err
 	}
+	src := &streamSource{s: s, js: js, in: in, resumes: make(chan uint64, 1), quit: make(chan struct{})}
+	checked := false
+	// An existing stream is checked against the DB, and what the DB holds
+	// purged, before its limits are set: a stream of an earlier version
+	// holds every reading ever sent. (A byte limit below what it still
+	// holds makes the server refuse new readings, not drop old ones, with
+	// discard-new: TestService_StreamOfEarlierVersion.)
+	existing := func(st jetstream.Stream) error {
+		checked = true
+		if err := src.checkIdentity(st.CachedInfo()); err != nil {
+			return err
+		}
+		if pos := s.position.Load(); pos > 0 {
+			if err := st.Purge(ctx, jetstream.WithPurgeSequence(pos+1)); err != nil {
+				s.log.Warn().Err(err).Uint64("position", pos).Msg("stream purge failed; retried with the next commit")
+			}
+		}
+		return nil
+	}
 	stream, err := s.ensureStream(ctx, js, jetstream.StreamConfig{
 		Name:      s.o.StreamName,
 		Subjects:  []string{s.prefix + ">"},
@@ -79,9 +98,16 @@ func (s *Service) startStream(ctx context.Context, in chan message) (*streamSour
 		Discard:  jetstream.DiscardNew,
 		MaxBytes: s.o.StreamMaxBytes,
 		MaxAge:   s.o.StreamMaxAge,
-	})
+	}, existing)
 	if err != nil {
 		return nil, err
+	}
+	src.stream = stream
+	info := stream.CachedInfo()
+	if !checked {
+		if err := src.checkIdentity(info); err != nil {
+			return nil, err
+		}
 	}
 	if _, err := s.ensureStream(ctx, js, jetstream.StreamConfig{
 		Name:     s.o.RejectedStream,
@@ -90,17 +116,7 @@ func (s *Service) startStream(ctx context.Context, in chan message) (*streamSour
 		Discard:  jetstream.DiscardOld,
 		MaxBytes: s.o.RejectedMaxBytes,
 		MaxAge:   s.o.RejectedMaxAge,
-	}); err != nil {
-		return nil, err
-	}
-	info := stream.CachedInfo()
-	src := &streamSource{
-		s: s, js: js, stream: stream, in: in,
-		id:      store.StreamID{Name: info.Config.Name, Created: info.Created.UTC()},
-		resumes: make(chan uint64, 1),
-		quit:    make(chan struct{}),
-	}
-	if err := src.checkIdentity(info); err != nil {
+	}, nil); err != nil {
 		return nil, err
 	}
 	src.watch(info)
@@ -120,8 +136,9 @@ func (s *Service) startStream(ctx context.Context, in chan message) (*streamSour
 }
 
 // ensureStream makes the stream of cfg, or brings the limits of an
-// existing one to cfg's. Its subjects are left as they are.
-func (s *Service) ensureStream(ctx context.Context, js jetstream.JetStream, cfg jetstream.StreamConfig) (jetstream.Stream, error) {
+// existing one to cfg's after calling existing (if not nil) on it. Its
+// subjects are left as they are.
+func (s *Service) ensureStream(ctx context.Context, js jetstream.JetStream, cfg jetstream.StreamConfig, existing func(jetstream.Stream) error) (jetstream.Stream, error) {
 	st, err := js.Stream(ctx, cfg.Name)
 	if errors.Is(err, jetstream.ErrStreamNotFound) {
 		st, err = js.CreateStream(ctx, cfg)
@@ -133,6 +150,11 @@ func (s *Service) ensureStream(ctx context.Context, js jetstream.JetStream, cfg 
 	}
 	if err != nil {
 		return nil, fmt.Errorf("ingest: stream %s: %w", cfg.Name, err)
+	}
+	if existing != nil {
+		if err := existing(st); err != nil {
+			return nil, err
+		}
 	}
 	have := st.CachedInfo().Config
 	if have.MaxBytes == cfg.MaxBytes && have.MaxAge == cfg.MaxAge && have.Discard == cfg.Discard {
@@ -153,6 +175,7 @@ func (s *Service) ensureStream(ctx context.Context, js jetstream.JetStream, cfg 
 // they differ and Options.ResetPosition allows it.
 func (src *streamSource) checkIdentity(info *jetstream.StreamInfo) error {
 	s := src.s
+	src.id = store.StreamID{Name: info.Config.Name, Created: info.Created.UTC()}
 	stored, err := s.o.DB.Stream()
 	if err != nil {
 		return err

@@ -198,3 +198,39 @@ func TestService_StreamBounded(t *testing.T) {
 	}
 	waitFor(t, "reading after the purge", func() bool { return h.svc.Stats().Applied == uint64(acked)+1 })
 }
+
+// TestService_StreamOfEarlierVersion starts a service on a stream made as
+// earlier versions made it (no limits, every reading kept), holding more
+// unapplied readings than the byte limit the service sets, and checks
+// that none is lost to the new limit (the server, with discard-new, does
+// not drop what a stream holds beyond a lowered limit): all are applied,
+// then purged, and the limit holds.
+func TestService_StreamOfEarlierVersion(t *testing.T) {
+	dir := t.TempDir()
+	ns := natsServer(t, filepath.Join(dir, "nats"), 0)
+	defer ns.Shutdown()
+	nc, err := nats.Connect(ns.ClientURL())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	js, err := nc.JetStream()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := js.AddStream(&nats.StreamConfig{Name: "DRIFTFIT", Subjects: []string{"driftfit.in.>"}, Storage: nats.FileStorage}); err != nil {
+		t.Fatal(err)
+	}
+	publishReadings(t, js, "qm.old.pt-1", 0, 1000) // some 70 KB
+	small := func(o *ingest.Options) { o.StreamMaxBytes = 16 << 10 }
+	h := startServiceWith(t, ns.ClientURL(), dir, ingest.ModeStream, small)
+	waitFor(t, "every reading applied", func() bool { return h.svc.Stats().Applied == 1000 })
+	waitFor(t, "applied readings purged", func() bool {
+		info, err := js.StreamInfo("DRIFTFIT")
+		return err == nil && info.State.Msgs == 0
+	})
+	waitFor(t, "limit set", func() bool {
+		info, err := js.StreamInfo("DRIFTFIT")
+		return err == nil && info.Config.MaxBytes == 16<<10 && info.Config.Discard == nats.DiscardNew
+	})
+}
