@@ -10,7 +10,8 @@ import (
 
 // keyStreamID holds, in the stream bucket, the identity of the stream
 // the stored position counts in (DB.SetStream): Created as Unix ns
-// (uint64 BE, sign flipped like every stored time), then Name.
+// (uint64 BE, sign flipped like every stored time), then Name; sealed
+// like every value (seal.go).
 var keyStreamID = []byte("stream-id")
 
 // StreamID identifies one incarnation of a JetStream stream. A stream
@@ -44,9 +45,9 @@ func (db *DB) Stream() (StreamID, error) {
 		if b == nil {
 			return nil
 		}
-		v := b.Get(keyStreamID)
-		if v == nil {
-			return nil
+		v, err := get(b, bucketStream, keyStreamID)
+		if err != nil || v == nil {
+			return err
 		}
 		if len(v) < 8 {
 			return fmt.Errorf("%w: stream identity of %d bytes", ErrCorrupt, len(v))
@@ -80,7 +81,7 @@ func (db *DB) SetStream(id StreamID, resetPosition bool) error {
 		if resetPosition {
 			var zero [8]byte
 			binary.BigEndian.PutUint64(zero[:], 0)
-			if err := b.Put(keyPosition, zero[:]); err != nil {
+			if err := b.Put(keyPosition, appendSealed(nil, keyPosition, zero[:])); err != nil {
 				return err
 			}
 			// The sensors' own sequences (Batch.SetSeq) count in the old
@@ -91,7 +92,7 @@ func (db *DB) SetStream(id StreamID, resetPosition bool) error {
 				}
 			}
 		}
-		return b.Put(keyStreamID, v)
+		return b.Put(keyStreamID, appendSealed(nil, keyStreamID, v))
 	})
 	if err != nil {
 		return fmt.Errorf("store: set stream identity %s: %w", id, err)
