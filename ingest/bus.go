@@ -272,7 +272,7 @@ func Connect(ctx context.Context, o BusOptions) (*Bus, error) {
 		}
 		select {
 		case <-ctx.Done():
-			err := fmt.Errorf("ingest: connect to %s: %w; last attempt: %w", redactURLs(o.Servers), ctx.Err(), last())
+			err := fmt.Errorf("ingest: connect to %s: %w; last attempt: %w%s", redactURLs(o.Servers), ctx.Err(), last(), certHint(o))
 			nc.Close()
 			return nil, err
 		case <-time.After(20 * time.Millisecond):
@@ -380,6 +380,21 @@ func (m *Metrics) connected(v float64) {
 	if m != nil {
 		m.BusConnected.Set(v)
 	}
+}
+
+// certHint adds to a failed TLS connection without a client certificate
+// what a server that demands one shows only as a closed connection:
+// whether the TLS alert or the closed socket reaches the client first is
+// a race, and nats.go reports the latter.
+func certHint(o BusOptions) string {
+	tlsURL := false
+	for _, u := range o.Servers {
+		tlsURL = tlsURL || strings.HasPrefix(u, "tls://") || strings.HasPrefix(u, "wss://")
+	}
+	if o.CertFile != "" || o.CAFile == "" && !tlsURL {
+		return ""
+	}
+	return " (no client certificate is configured: if the server demands one, set bus.tls.cert_file and key_file)"
 }
 
 // redactURLs lists urls with any password masked, for error messages.
