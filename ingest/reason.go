@@ -15,21 +15,21 @@ import (
 type Reason uint8
 
 const (
-	ReasonUnknown           Reason = iota // zero value: not classified
-	ReasonMalformed                       // payload is not valid JSON or not a reading or batch
-	ReasonMissingField                    // t or v absent or null
-	ReasonBadTime                         // t present but not a usable time
-	ReasonNonFinite                       // v or ref is NaN, infinite or beyond float64
-	ReasonWrongType                       // a field or array element of the wrong JSON type
-	ReasonOversized                       // payload larger than the limit
-	ReasonFutureTime                      // t later than now plus the allowed skew
-	ReasonTooOld                          // t older than every window of the sensor
-	ReasonUnitMismatch                    // unit differs from the sensor's configured unit
-	ReasonLengthMismatch                  // batch arrays of different lengths
-	ReasonBadSensorID                     // the subject's sensor id fails CheckSensorID
-	ReasonTooManySensors                  // a new sensor id beyond Options.MaxSensors
-	ReasonDuplicate                       // a reading the sensor already holds (see Dedup)
-	ReasonForeignDeadLetter               // a message on the rejected subject not published by this service
+	ReasonUnknown        Reason = iota // zero value: not classified
+	ReasonMalformed                    // payload is not valid JSON or not a reading or batch
+	ReasonMissingField                 // t or v absent or null
+	ReasonBadTime                      // t present but not a usable time
+	ReasonNonFinite                    // v or ref is NaN, infinite or beyond float64
+	ReasonWrongType                    // a field or array element of the wrong JSON type
+	ReasonOversized                    // payload larger than the limit
+	ReasonFutureTime                   // t later than now plus the allowed skew
+	ReasonTooOld                       // t older than every window of the sensor
+	ReasonUnitMismatch                 // unit differs from the sensor's configured unit
+	ReasonLengthMismatch               // batch arrays of different lengths
+	ReasonBadSensorID                  // the subject's sensor id fails CheckSensorID
+	ReasonTooManySensors               // a new sensor id beyond Options.MaxSensors
+	ReasonDuplicate                    // a reading the sensor already holds (see Dedup)
+	ReasonOutOfRange                   // v beyond ±rolling.MaxValue: a pane's sums of its squares would overflow
 )
 
 var reasonNames = [...]string{
@@ -47,6 +47,7 @@ var reasonNames = [...]string{
 	ReasonBadSensorID:    "bad_sensor_id",
 	ReasonTooManySensors: "too_many_sensors",
 	ReasonDuplicate:      "duplicate",
+	ReasonOutOfRange:     "out_of_range",
 }
 
 // String returns the label, e.g. "bad_time"; values outside the list
@@ -65,6 +66,8 @@ func foldReason(err error) Reason {
 		return ReasonDuplicate
 	case errors.Is(err, rolling.ErrTooOld), errors.Is(err, errBeforeRestart):
 		return ReasonTooOld
+	case errors.Is(err, rolling.ErrOutOfRange):
+		return ReasonOutOfRange
 	}
 	return ReasonUnknown
 }

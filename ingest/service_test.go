@@ -162,6 +162,9 @@ func TestService_BadInput(t *testing.T) {
 		{"unit_mismatch", `{"t": ` + ts(-47*time.Minute) + `, "v": 1, "unit": "psi"}`, 0},
 		{"length_mismatch", `{"sensor": "qm.t.pt-1", "t": [` + ts(-46*time.Minute) + `], "v": [1, 2]}`, 0},
 		{"oversized", `{"t": ` + ts(-45*time.Minute) + `, "v": 1, "pad": "` + strings.Repeat("x", testMaxPayload) + `"}`, 0},
+		// 1e200 then 0 made a pane's sum of squares overflow, and the
+		// stored state could not be restored (rolling.MaxValue).
+		{"out_of_range", `[` + good(-44*time.Minute, 13) + `, {"t": ` + ts(-43*time.Minute) + `, "v": 1e200}]`, 1},
 	}
 	subject := "driftfit.in.qm.t.pt-1"
 	wantApplied := 0

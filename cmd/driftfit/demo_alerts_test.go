@@ -55,7 +55,8 @@ func TestDemo_HeadlineSensorsTicketed(t *testing.T) {
 		t.Fatal(err)
 	}
 	log := zerolog.New(zerolog.NewTestWriter(t)).Level(zerolog.InfoLevel)
-	opts := serviceOptions(cfg, nc, db, &log, nil)
+	opts := serviceOptions(cfg, db, &log, nil)
+	opts.Conn = nc
 	svc, err := ingest.New(opts)
 	if err != nil {
 		t.Fatal(err)

@@ -7,8 +7,6 @@ import (
 	"io"
 	"os"
 
-	"github.com/nats-io/nats.go"
-
 	"driftfit/cmd/driftfit/internal/replay"
 	"driftfit/configs"
 	"driftfit/ingest"
@@ -77,8 +75,8 @@ func runReplayFlow(ctx context.Context, in io.Reader, fl flowFlags, csvOpts inge
 		Strict:       strict,
 		Calibrations: cals,
 		Errors:       stderr,
-		Service: func(nc *nats.Conn, db *store.DB) ingest.Options {
-			return serviceOptions(cfg, nc, db, &log, nil)
+		Service: func(db *store.DB) ingest.Options {
+			return serviceOptions(cfg, db, &log, nil)
 		},
 	})
 	if err != nil {

@@ -114,7 +114,9 @@ func serveFlowRun(t *testing.T, cfgPath string, rs []flowReading, calID string, 
 		t.Fatal(err)
 	}
 	log := zerolog.New(zerolog.NewTestWriter(t)).Level(zerolog.ErrorLevel)
-	svc, err := ingest.New(serviceOptions(cfg, nc, db, &log, nil))
+	opts := serviceOptions(cfg, db, &log, nil)
+	opts.Conn = nc
+	svc, err := ingest.New(opts)
 	if err != nil {
 		t.Fatal(err)
 	}

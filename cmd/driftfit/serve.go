@@ -15,7 +15,6 @@ import (
 	"syscall"
 	"time"
 
-	"github.com/nats-io/nats.go"
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
 	"github.com/prometheus/client_golang/prometheus/promhttp"
@@ -48,6 +47,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	logFormat := fs.String("log-format", "json", "log format: json or console")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
 	stopTimeout := fs.Duration("stop-timeout", 10*time.Second, "bound of each step of the shutdown (bus drain, publishing the last alerts, listeners)")
+	resetPosition := fs.Bool("reset-position", false, "read the readings stream from its start, as after the stream was deleted or rebuilt (serve refuses to start on such a stream without it); the sensors' state is kept and repeats are refused as duplicates")
 	if pos, err := fs.parse(args); err != nil || len(pos) != 0 {
 		return cmp.Or(err, usageError("unexpected arguments %q", pos))
 	}
@@ -131,8 +131,10 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 	}
 	defer bus.Close()
 
-	opts := serviceOptions(cfg, bus.Conn(), db, &log, metrics)
+	opts := serviceOptions(cfg, db, &log, metrics)
+	opts.Conn = bus.Conn()
 	opts.StopTimeout = *stopTimeout
+	opts.ResetPosition = *resetPosition
 	var board *demoplant.Board
 	if *demo {
 		board = demoplant.NewBoard(classUnit(cfg))
@@ -223,9 +225,9 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 
 // serviceOptions maps the configuration onto the service's options:
 // serve and bench build their service from it alike.
-func serviceOptions(cfg *configs.Config, nc *nats.Conn, db *store.DB, log *zerolog.Logger, m *ingest.Metrics) ingest.Options {
+// The caller sets Conn, the one thing the configuration does not give.
+func serviceOptions(cfg *configs.Config, db *store.DB, log *zerolog.Logger, m *ingest.Metrics) ingest.Options {
 	return ingest.Options{
-		Conn:                     nc,
 		DB:                       db,
 		Sensor:                   sensorConfig(cfg),
 		Rule:                     rules(cfg, log),
@@ -245,6 +247,11 @@ func serviceOptions(cfg *configs.Config, nc *nats.Conn, db *store.DB, log *zerol
 		HistoryRetention:         cfg.Store.HistoryRetention,
 		HistoryThinAfter:         cfg.Store.HistoryThinAfter,
 		HistoryThinTo:            cfg.Store.HistoryThinTo,
+		StreamMaxBytes:           int64(cfg.Bus.StreamMaxBytes),
+		StreamMaxAge:             cfg.Bus.StreamMaxAge,
+		RejectedMaxBytes:         int64(cfg.Bus.RejectedMaxBytes),
+		RejectedMaxAge:           cfg.Bus.RejectedMaxAge,
+		MaxSensors:               cfg.Bus.MaxSensors,
 		Logger:                   log,
 		Metrics:                  m,
 	}

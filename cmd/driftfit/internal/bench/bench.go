@@ -84,7 +84,8 @@ type Wiring struct {
 	Connect func(cfg *configs.Config) (*Bus, error)
 	// IngestOptions maps cfg onto the service's options as serve does,
 	// alert rules, subjects and webhook included.
-	IngestOptions func(cfg *configs.Config, nc *nats.Conn, db *store.DB, log *zerolog.Logger, m *ingest.Metrics) ingest.Options
+	// The bench sets Conn.
+	IngestOptions func(cfg *configs.Config, db *store.DB, log *zerolog.Logger, m *ingest.Metrics) ingest.Options
 }
 
 // dbFile is the state file's name in each pipeline's directory.
@@ -282,7 +283,7 @@ func Run(ctx context.Context, o Options, log zerolog.Logger, progress io.Writer)
 	e := &benchEnv{cfg: cfg, bus: bus, wire: o.Serve, dir: dir, log: log, tag: strconv.FormatUint(rand.Uint64()&0xffffff, 36)}
 	// The windows serve gives a sensor no class matches; only the
 	// mapping is asked for, so no file or metrics are needed.
-	sc, _ := o.Serve.IngestOptions(cfg, bus.Conn, nil, &log, nil).Sensor("bench")
+	sc, _ := o.Serve.IngestOptions(cfg, nil, &log, nil).Sensor("bench")
 	e.specs = sc.Windows
 	e.fleet = demo.Fleet(max(o.Sensors, o.SensorsMax))
 
@@ -548,7 +549,8 @@ func (e *benchEnv) startPipeline(ctx context.Context, cfg *configs.Config, path 
 	m := ingest.NewMetrics()
 	// The probes raise alerts on purpose: keep them out of the log.
 	quiet := e.log.Level(zerolog.ErrorLevel)
-	opts := e.wire.IngestOptions(cfg, e.bus.Conn, db, &quiet, m)
+	opts := e.wire.IngestOptions(cfg, db, &quiet, m)
+	opts.Conn = e.bus.Conn
 	opts.Mode, opts.SubjectPrefix, opts.StreamName = mode, prefix, stream
 	opts.RejectedSubject = ""    // the default for the prefix
 	opts.AcceptDuplicates = true // a pool repeats once sent in full

@@ -79,7 +79,7 @@ type FlowOptions struct {
 	// then keeps what a replay must: stream mode (direct mode may drop
 	// readings under a flood), no webhook (tickets of the past must not
 	// reach a live receiver), no pruning or thinning of fit history.
-	Service func(nc *nats.Conn, db *store.DB) ingest.Options
+	Service func(db *store.DB) ingest.Options
 	// Calibrations, sorted by time (ReadCalibrations), are sent on the
 	// calibration subject as the readings reach them: a sensor's
 	// calibration goes out just before the first row of that sensor at
@@ -250,7 +250,7 @@ func RunFlow(ctx context.Context, in io.Reader, o FlowOptions) (res *FlowResult,
 	}
 	defer func() { err = errors.Join(err, db.Close()) }()
 
-	opts := o.Service(f.nc, db)
+	opts := o.Service(db)
 	opts.Conn, opts.DB = f.nc, db
 	opts.Mode = ingest.ModeStream
 	opts.Webhook = ingest.Webhook{}
