@@ -64,8 +64,14 @@
 //	history-by-time  day(i64) id 0x00 span(u64) pane(u64) → empty: the
 //	                 sensor window has records in that UTC day
 //	stream           "position" → uint64 stream sequence
+//	                 "applied" → uint64 readings applied
+//	                 "stream-id" → the stream's name and creation time
+//	                 (DB.SetStream), checked against the bus at start
 //	restarts         id → time(i64) the sensor's fits last restarted
 //	                 (made with its first key)
+//	seqs             id → uint64 stream sequence of the last message the
+//	                 sensor's stored state holds (made with its first key)
+//	alerts, events, tickets, outbox: see alerts.go
 //	set-aside        id 0x00 bucket 0x00 key → bytes found there, of a
 //	                 sensor Restore could not trust (made with its first key)
 //
