@@ -158,7 +158,9 @@ func TestService_BadInput(t *testing.T) {
 		{"non_finite", `[` + good(-50*time.Minute, 10) + `, {"t": ` + ts(-49*time.Minute) + `, "v": 1e999}]`, 1},
 		{"wrong_type", `{"t": ` + ts(-time.Hour) + `, "v": "12"}`, 0},
 		{"future_time", `[` + good(-48*time.Minute, 11) + `,` + good(time.Hour, 12) + `]`, 1},
-		{"too_old", `{"t": 946684800, "v": 1}`, 0},
+		// Before 1970, for a sensor never calibrated: older than every
+		// window, not "older than the last calibration".
+		{"too_old", `{"t": -86400, "v": 1}`, 0},
 		{"unit_mismatch", `{"t": ` + ts(-47*time.Minute) + `, "v": 1, "unit": "psi"}`, 0},
 		{"length_mismatch", `{"sensor": "qm.t.pt-1", "t": [` + ts(-46*time.Minute) + `], "v": [1, 2]}`, 0},
 		{"oversized", `{"t": ` + ts(-45*time.Minute) + `, "v": 1, "pad": "` + strings.Repeat("x", testMaxPayload) + `"}`, 0},
@@ -199,6 +201,9 @@ func TestService_BadInput(t *testing.T) {
 		}
 		if m.Header.Get(ingest.HeaderSubject) != subject || m.Header.Get(ingest.HeaderError) == "" {
 			t.Errorf("%s: headers %v", c.reason, m.Header)
+		}
+		if c.reason == "too_old" && strings.Contains(m.Header.Get(ingest.HeaderError), "calibration") {
+			t.Errorf("too_old: error %q blames a calibration the sensor never had", m.Header.Get(ingest.HeaderError))
 		}
 		var pm dto.Metric
 		if err := h.m.Rejected.WithLabelValues(c.reason).Write(&pm); err != nil {

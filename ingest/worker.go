@@ -210,7 +210,7 @@ func (w *worker) fold(ref *sensorRef, rs []rolling.Reading, seq uint64) {
 	det := w.detectors(ref)
 	taken := w.dq.ok[:0]
 	for _, r := range rs {
-		if r.UnixNano < st.since {
+		if st.since != 0 && r.UnixNano < st.since { // since 0: never restarted
 			w.reject(ref, r, errBeforeRestart)
 			continue
 		}
