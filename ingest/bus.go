@@ -40,6 +40,16 @@ type BusOptions struct {
 	// MaxStore bounds the embedded server's JetStream files, in bytes.
 	// Zero: the server's own default (a share of the free disk).
 	MaxStore int64
+	// Users of the embedded server, with the permissions of their roles
+	// over Subjects. Empty: no authentication. With users, the service
+	// connects as ServiceUser with a password made at start.
+	Users []BusUser
+	// Subjects are the service's subjects, from which the users'
+	// permissions are built.
+	Subjects BusSubjects
+	// MQTT is the host:port of the embedded server's MQTT listener
+	// (port -1: any free port). Empty: no MQTT.
+	MQTT string
 
 	// User and the password in the environment variable PasswordEnv
 	// authenticate to Servers; so do a token in TokenEnv, or a
@@ -77,6 +87,9 @@ type Bus struct {
 	ns      *server.Server
 	servers []string
 	log     zerolog.Logger
+	// self authenticates connections to the embedded server; nil when it
+	// runs without users.
+	self nats.Option
 
 	stop chan struct{}
 	wg   sync.WaitGroup
@@ -87,13 +100,30 @@ type Bus struct {
 func (b *Bus) Conn() *nats.Conn { return b.nc }
 
 // NewConn opens another connection to the same bus: in process to the
-// embedded server, else to Servers with opts only (no credentials). The
-// caller closes it.
+// embedded server (as ServiceUser when it has users), else to Servers
+// with opts only (no credentials). The caller closes it.
 func (b *Bus) NewConn(opts ...nats.Option) (*nats.Conn, error) {
 	if b.ns != nil {
-		return nats.Connect(b.ns.ClientURL(), append(opts, nats.InProcessServer(b.ns))...)
+		opts = append(opts, nats.InProcessServer(b.ns))
+		if b.self != nil {
+			opts = append(opts, b.self)
+		}
+		return nats.Connect(b.ns.ClientURL(), opts...)
 	}
 	return nats.Connect(strings.Join(b.servers, ","), opts...)
+}
+
+// MQTTAddr returns the host:port of the embedded server's MQTT
+// listener, or "" when there is none.
+func (b *Bus) MQTTAddr() string {
+	if b.ns == nil {
+		return ""
+	}
+	v, err := b.ns.Varz(nil)
+	if err != nil || v.MQTT.Port <= 0 {
+		return ""
+	}
+	return net.JoinHostPort(v.MQTT.Host, strconv.Itoa(v.MQTT.Port))
 }
 
 // Server returns the embedded server, or nil when connected to Servers.
@@ -184,7 +214,7 @@ func Connect(ctx context.Context, o BusOptions) (*Bus, error) {
 		nats.ReconnectJitter(500*time.Millisecond, time.Second),
 		nats.ConnectHandler(func(nc *nats.Conn) {
 			m.connected(1)
-			b.log.Info().Str("url", nc.ConnectedUrlRedacted()).Msg("bus connected")
+			b.log.Info().Str("url", RedactURL(nc.ConnectedUrl())).Msg("bus connected")
 		}),
 		nats.DisconnectErrHandler(func(_ *nats.Conn, err error) {
 			m.connected(0)
@@ -192,7 +222,7 @@ func Connect(ctx context.Context, o BusOptions) (*Bus, error) {
 		}),
 		nats.ReconnectHandler(func(nc *nats.Conn) {
 			m.connected(1)
-			b.log.Info().Str("url", nc.ConnectedUrlRedacted()).Msg("bus reconnected")
+			b.log.Info().Str("url", RedactURL(nc.ConnectedUrl())).Msg("bus reconnected")
 		}),
 		nats.ReconnectErrHandler(func(_ *nats.Conn, err error) {
 			lastErr.Store(&err)
@@ -218,6 +248,9 @@ func Connect(ctx context.Context, o BusOptions) (*Bus, error) {
 			return nil, err
 		}
 		opts = append(opts, nats.InProcessServer(b.ns))
+		if b.self != nil {
+			opts = append(opts, b.self)
+		}
 		nc, err := nats.Connect(b.ns.ClientURL(), opts...)
 		if err != nil {
 			b.Close()
@@ -230,6 +263,49 @@ func Connect(ctx context.Context, o BusOptions) (*Bus, error) {
 		return b, nil
 	}
 
+	opts = append(opts, ClientOptions(o)...)
+	// The bus may come up after us: keep trying, one log line an attempt.
+	opts = append(opts, nats.RetryOnFailedConnect(true))
+	urls := strings.Join(o.Servers, ",")
+	nc, err := nats.Connect(urls, opts...)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: connect to %s: %w", RedactURLs(o.Servers), err)
+	}
+	b.nc = nc
+	for !nc.IsConnected() {
+		last := func() error {
+			if p := lastErr.Load(); p != nil {
+				return *p
+			}
+			if err := nc.LastError(); err != nil {
+				return err
+			}
+			return errors.New("no attempt finished")
+		}
+		if nc.IsClosed() {
+			return nil, fmt.Errorf("ingest: connect to %s: connection closed: %w", RedactURLs(o.Servers), last())
+		}
+		select {
+		case <-ctx.Done():
+			err := fmt.Errorf("ingest: connect to %s: %w; last attempt: %w%s", RedactURLs(o.Servers), ctx.Err(), last(), certHint(o))
+			nc.Close()
+			return nil, err
+		case <-time.After(20 * time.Millisecond):
+		}
+	}
+	return b, nil
+}
+
+// ClientOptions are the credential and TLS options of a connection to
+// o.Servers: user and password (from the variable PasswordEnv), token
+// (from TokenEnv), credentials file, CA and client certificate. Connect
+// uses them, and so does every other client of the service's bus, so
+// that all connect alike. A nil o.Getenv reads os.Getenv.
+func ClientOptions(o BusOptions) []nats.Option {
+	if o.Getenv == nil {
+		o.Getenv = os.Getenv
+	}
+	var opts []nats.Option
 	if o.User != "" {
 		pw := ""
 		if o.PasswordEnv != "" {
@@ -249,36 +325,7 @@ func Connect(ctx context.Context, o BusOptions) (*Bus, error) {
 	if o.CertFile != "" {
 		opts = append(opts, nats.ClientCert(o.CertFile, o.KeyFile))
 	}
-	// The bus may come up after us: keep trying, one log line an attempt.
-	opts = append(opts, nats.RetryOnFailedConnect(true))
-	urls := strings.Join(o.Servers, ",")
-	nc, err := nats.Connect(urls, opts...)
-	if err != nil {
-		return nil, fmt.Errorf("ingest: connect to %s: %w", redactURLs(o.Servers), err)
-	}
-	b.nc = nc
-	for !nc.IsConnected() {
-		last := func() error {
-			if p := lastErr.Load(); p != nil {
-				return *p
-			}
-			if err := nc.LastError(); err != nil {
-				return err
-			}
-			return errors.New("no attempt finished")
-		}
-		if nc.IsClosed() {
-			return nil, fmt.Errorf("ingest: connect to %s: connection closed: %w", redactURLs(o.Servers), last())
-		}
-		select {
-		case <-ctx.Done():
-			err := fmt.Errorf("ingest: connect to %s: %w; last attempt: %w%s", redactURLs(o.Servers), ctx.Err(), last(), certHint(o))
-			nc.Close()
-			return nil, err
-		case <-time.After(20 * time.Millisecond):
-		}
-	}
-	return b, nil
+	return opts
 }
 
 // startServer starts the embedded server and waits until it takes
@@ -310,7 +357,11 @@ func (b *Bus) startServer(o BusOptions) error {
 	if maxPayload <= 0 {
 		maxPayload = 1 << 20
 	}
-	ns, err := server.NewServer(&server.Options{
+	users, selfPw, err := serverUsers(o)
+	if err != nil {
+		return err
+	}
+	sopts := &server.Options{
 		ServerName:        "driftfit-embedded",
 		Host:              host,
 		Port:              port,
@@ -320,9 +371,37 @@ func (b *Bus) startServer(o BusOptions) error {
 		NoSigs:            true,
 		NoLog:             true, // the logger is set below
 		MaxPayload:        int32(min(maxPayload, 64<<20)),
-	})
+		Users:             users,
+	}
+	if o.MQTT != "" {
+		mh, mp, err := net.SplitHostPort(o.MQTT)
+		if err != nil {
+			return fmt.Errorf("ingest: MQTT listen address %q: %w", o.MQTT, err)
+		}
+		p, err := strconv.Atoi(mp)
+		if err != nil || p < -1 || p == 0 || p > 65535 {
+			return fmt.Errorf("ingest: MQTT listen address %q: port must be 1..65535 or -1", o.MQTT)
+		}
+		if p > 0 {
+			ln, err := net.Listen("tcp", o.MQTT)
+			if err != nil {
+				if errors.Is(err, syscall.EADDRINUSE) {
+					err = ErrPortInUse
+				}
+				return &PortError{Addr: o.MQTT, Err: err}
+			}
+			ln.Close()
+		}
+		// nats-server's MQTT keeps sessions and QoS 1 messages in
+		// JetStream, which the embedded server runs anyway.
+		sopts.MQTT = server.MQTTOpts{Host: mh, Port: p}
+	}
+	ns, err := server.NewServer(sopts)
 	if err != nil {
 		return fmt.Errorf("ingest: embedded NATS server: %w", err)
+	}
+	if selfPw != "" {
+		b.self = nats.UserInfo(ServiceUser, selfPw)
 	}
 	sl := newServerLog(*o.Logger, o.Metrics)
 	ns.SetLogger(sl, false, false)
@@ -335,7 +414,16 @@ func (b *Bus) startServer(o BusOptions) error {
 		return fmt.Errorf("ingest: embedded NATS server on %s: not ready after 10s", addr)
 	}
 	b.ns = ns
-	b.log.Info().Str("url", ns.ClientURL()).Str("store", o.StoreDir).Msg("embedded NATS server listening")
+	b.log.Info().Str("url", ns.ClientURL()).Str("store", o.StoreDir).Int("users", len(o.Users)).Msg("embedded NATS server listening")
+	if len(o.Users) == 0 && beyondLoopback(host) {
+		b.log.Warn().Str("host", host).Msg("embedded NATS server listens beyond loopback without authentication: anyone who reaches it can publish readings, calibrate sensors and read all history; configure bus.embedded.users")
+	}
+	if o.MQTT != "" {
+		b.log.Info().Str("addr", b.MQTTAddr()).Msg("embedded MQTT listener open")
+		if len(o.Users) == 0 && beyondLoopback(sopts.MQTT.Host) {
+			b.log.Warn().Str("host", sopts.MQTT.Host).Msg("embedded MQTT listener open beyond loopback without authentication; configure bus.embedded.users")
+		}
+	}
 	return nil
 }
 
@@ -397,18 +485,38 @@ func certHint(o BusOptions) string {
 	return " (no client certificate is configured: if the server demands one, set bus.tls.cert_file and key_file)"
 }
 
-// redactURLs lists urls with any password masked, for error messages.
-func redactURLs(urls []string) string {
+// RedactURLs lists urls, comma-separated, each as RedactURL shows it.
+func RedactURLs(urls []string) string {
 	out := make([]string, len(urls))
 	for i, u := range urls {
-		out[i] = u
-		if at := strings.LastIndexByte(u, '@'); at >= 0 {
-			if c := strings.Index(u, "://"); c >= 0 && c < at {
-				if colon := strings.IndexByte(u[c+3:at], ':'); colon >= 0 {
-					out[i] = u[:c+3+colon] + ":xxxxx" + u[at:]
-				}
-			}
-		}
+		out[i] = RedactURL(u)
 	}
 	return strings.Join(out, ",")
+}
+
+// RedactURL returns a NATS URL fit for logs and messages: a password is
+// masked, and so is user information without one, which NATS takes as a
+// token (nats://TOKEN@host). It works on text that does not parse as a
+// URL too.
+func RedactURL(u string) string {
+	c := strings.Index(u, "://")
+	if c < 0 {
+		return u
+	}
+	rest := u[c+3:]
+	end := strings.IndexAny(rest, "/?#")
+	if end < 0 {
+		end = len(rest)
+	}
+	at := strings.LastIndexByte(rest[:end], '@')
+	if at < 0 {
+		return u
+	}
+	user, _, hasPw := strings.Cut(rest[:at], ":")
+	if !hasPw {
+		user = "xxxxx"
+	} else {
+		user += ":xxxxx"
+	}
+	return u[:c+3] + user + rest[at:]
 }

@@ -122,3 +122,11 @@ var ErrStreamChanged = errors.New("ingest: stream changed under the stored posit
 // ErrPortInUse is the cause of a *PortError when another program listens
 // on the embedded NATS server's port.
 var ErrPortInUse = errors.New("ingest: port in use")
+
+// ErrRole is returned by Connect and RolePermissions for a user of the
+// embedded server with an unknown role or a bad name.
+var ErrRole = errors.New("ingest: bad bus user")
+
+// ErrNoPassword is returned by Connect when a user's password variable
+// of the embedded server is empty or not set.
+var ErrNoPassword = errors.New("ingest: bus user without a password")

@@ -7,6 +7,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"strings"
 	"time"
 
 	"github.com/nats-io/nats.go"
@@ -24,14 +25,23 @@ type Client struct {
 	url string
 }
 
-// Dial connects to the NATS server at url; name labels the connection
-// in the server's monitoring.
+// Dial connects to the NATS server at url, without credentials; name
+// labels the connection in the server's monitoring.
 func Dial(url, name string) (*Client, error) {
-	nc, err := nats.Connect(url, nats.Name(name), nats.Timeout(2*time.Second))
+	return DialBus(ingest.BusOptions{Servers: []string{url}}, name)
+}
+
+// DialBus connects to the service's bus as o says: any of o.Servers, with
+// the credentials and TLS of ingest.ClientOptions, as serve connects.
+// Messages name the servers with their secrets masked.
+func DialBus(o ingest.BusOptions, name string) (*Client, error) {
+	shown := ingest.RedactURLs(o.Servers)
+	opts := append([]nats.Option{nats.Name(name), nats.Timeout(2 * time.Second)}, ingest.ClientOptions(o)...)
+	nc, err := nats.Connect(strings.Join(o.Servers, ","), opts...)
 	if err != nil {
-		return nil, fmt.Errorf("connect to the service at %s: %w", url, err)
+		return nil, fmt.Errorf("connect to the service at %s: %w", shown, err)
 	}
-	return &Client{nc: nc, url: url}, nil
+	return &Client{nc: nc, url: shown}, nil
 }
 
 // Path names where the client reads, for messages.
