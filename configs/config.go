@@ -127,6 +127,55 @@ type Bus struct {
 	// TLS configures TLS to the servers. All empty means the URL scheme
 	// decides.
 	TLS TLS
+	// Embedded configures the embedded NATS server (Servers empty).
+	Embedded Embedded
+	// MQTT configures the embedded server's MQTT listener.
+	MQTT MQTT
+}
+
+// Embedded configures the embedded NATS server.
+type Embedded struct {
+	// Host is the address the server listens on, with serve's --nats-port.
+	// Default "127.0.0.1" (loopback). serve warns when it is anything
+	// else and Users is empty.
+	Host string
+	// Users may connect, each with the permissions of its role; once
+	// there is one, every client must authenticate. Empty (the default):
+	// no authentication.
+	Users []BusUser
+}
+
+// Roles of a BusUser.
+const (
+	RolePublisher  = "publisher"  // publishes readings of its sensors
+	RoleTechnician = "technician" // sends calibrations of its sensors
+	RoleReader     = "reader"     // asks the read API, hears alerts and tickets
+)
+
+// BusUser is a user of the embedded server.
+type BusUser struct {
+	// User is the name the client gives. Required; "driftfit-service"
+	// is the service's own.
+	User string
+	// PasswordEnv names the environment variable holding the user's
+	// password; serve refuses to start when it is empty. Required.
+	PasswordEnv string
+	// Role is publisher, technician or reader.
+	Role string
+	// Sensors are the sensor-id patterns of a publisher or technician,
+	// with the NATS wildcards * (one token) and > (the rest): a
+	// technician of unit 1 of Quillmere Vale has ["qm.u1.>"]. Required
+	// for a technician; a publisher without it publishes any sensor's
+	// readings; a reader has none (the read API serves every sensor).
+	Sensors []string
+}
+
+// MQTT configures nats-server's MQTT listener on the embedded server:
+// a reading published to the topic "<subject prefix, dots as
+// slashes>/<sensor id, dots as slashes>" arrives as one on NATS.
+type MQTT struct {
+	// Listen is the host:port of the listener. Empty (the default): off.
+	Listen string
 }
 
 // TLS holds paths of PEM files. CertFile and KeyFile come as a pair.

@@ -459,7 +459,35 @@ func (d *decoder) bus(n ast.Node, path string, b *Bus) {
 				"key_file":  d.str(&b.TLS.KeyFile),
 			})
 		},
+		"embedded": func(n ast.Node, p string) {
+			d.fields(n, p, map[string]handler{
+				"host":  d.str(&b.Embedded.Host),
+				"users": func(n ast.Node, p string) { d.busUsers(n, p, &b.Embedded.Users) },
+			})
+		},
+		"mqtt": func(n ast.Node, p string) {
+			d.fields(n, p, map[string]handler{"listen": d.str(&b.MQTT.Listen)})
+		},
 	})
+}
+
+func (d *decoder) busUsers(n ast.Node, path string, dst *[]BusUser) {
+	items, ok := d.seq(n, path)
+	if !ok {
+		return
+	}
+	*dst = make([]BusUser, len(items))
+	for i, it := range items {
+		u := &(*dst)[i]
+		ip := fmt.Sprintf("%s[%d]", path, i)
+		d.pos[ip] = nodePos(it)
+		d.fields(it, ip, map[string]handler{
+			"user":         d.str(&u.User),
+			"password_env": d.str(&u.PasswordEnv),
+			"role":         d.str(&u.Role),
+			"sensors":      d.strList(&u.Sensors),
+		})
+	}
 }
 
 func (d *decoder) store(n ast.Node, path string, s *Store) {

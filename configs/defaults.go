@@ -13,6 +13,7 @@ const (
 	defaultTicketSubject            = "driftfit.tickets"
 	defaultCalibrationSubjectPrefix = "driftfit.calibrations"
 	defaultStreamName               = "DRIFTFIT"
+	defaultEmbeddedHost             = "127.0.0.1"
 	defaultMaxPayloadBytes          = 1 << 20 // NATS server default max_payload, from memory
 	maxMaxPayloadBytes              = 64 << 20
 	defaultFutureSkew               = 5 * time.Minute
@@ -88,6 +89,7 @@ func (c *Config) applyDefaults() {
 		b.Mode = ModeStream
 	}
 	str(&b.StreamName, "bus.stream_name", defaultStreamName)
+	str(&b.Embedded.Host, "bus.embedded.host", defaultEmbeddedHost)
 	num(&b.MaxPayloadBytes, "bus.max_payload_bytes", defaultMaxPayloadBytes)
 	dur(&b.FutureSkew, "bus.future_skew", defaultFutureSkew)
 	num(&b.StreamMaxBytes, "bus.stream_max_bytes", defaultStreamMaxBytes)

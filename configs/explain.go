@@ -29,10 +29,26 @@ func (c *Config) Explain(w io.Writer) {
 	p("bus\n")
 	if len(b.Servers) == 0 {
 		p("  servers:         embedded NATS server with JetStream under %s\n", c.Store.Dir)
+		users := make([]string, len(b.Embedded.Users))
+		for i, u := range b.Embedded.Users {
+			what := u.Role
+			if len(u.Sensors) > 0 {
+				what += " of " + strings.Join(u.Sensors, ", ")
+			}
+			users[i] = fmt.Sprintf("%s (%s, password from $%s)", u.User, what, u.PasswordEnv)
+		}
+		if len(users) == 0 {
+			p("  embedded:        listens on %s; no authentication\n", b.Embedded.Host)
+		} else {
+			p("  embedded:        listens on %s; users %s\n", b.Embedded.Host, strings.Join(users, ", "))
+		}
+		if b.MQTT.Listen != "" {
+			p("  mqtt:            %s, topics %s/<sensor id with / for .>\n", b.MQTT.Listen, strings.ReplaceAll(b.SubjectPrefix, ".", "/"))
+		}
 	} else {
 		red := make([]string, len(b.Servers))
 		for i, s := range b.Servers {
-			red[i] = redactURL(s)
+			red[i] = redactServerURL(s)
 		}
 		p("  servers:         %s\n", strings.Join(red, ", "))
 	}

@@ -145,6 +145,10 @@ func (v *validator) bus() {
 		case u.User != nil:
 			if _, has := u.User.Password(); has {
 				v.add(p, redactURL(s), ErrCredential, "remove the password from the URL and name its environment variable in bus.password_env")
+			} else {
+				// nats.go sends a user name alone in a URL as a token, in
+				// place of bus.user and its password.
+				v.add(p, redactServerURL(s), ErrCredential, "NATS takes a name alone before @ as a token and sends it instead of bus.user: remove it and set bus.user (or the token's variable in bus.token_env)")
 			}
 		}
 		switch u.Scheme {
@@ -156,6 +160,7 @@ func (v *validator) bus() {
 			v.add(p, redactURL(s), ErrRange, "missing host")
 		}
 	}
+	v.embedded()
 	if len(b.Servers) == 0 {
 		for _, f := range []struct{ path, val string }{
 			{"bus.user", b.User}, {"bus.password_env", b.PasswordEnv}, {"bus.token_env", b.TokenEnv},
@@ -217,6 +222,101 @@ func (v *validator) bus() {
 	}
 }
 
+// embedded checks the embedded server's users and listeners. Passwords
+// are never read here: only the names of their variables are checked.
+func (v *validator) embedded() {
+	b := &v.c.Bus
+	e := &b.Embedded
+	if len(b.Servers) > 0 {
+		for _, p := range []string{"bus.embedded.host", "bus.embedded.users", "bus.mqtt.listen"} {
+			if v.c.written(p) {
+				v.add(p, "", ErrConflict, "has no effect with bus.servers: configure users and MQTT on that NATS deployment")
+			}
+		}
+		return
+	}
+	if e.Host == "" || strings.ContainsAny(e.Host, " \t/@") {
+		v.add("bus.embedded.host", e.Host, ErrRange, "must be a host name or IP address to listen on, such as 127.0.0.1")
+	}
+	seen := map[string]int{}
+	for i, u := range e.Users {
+		p := fmt.Sprintf("bus.embedded.users[%d]", i)
+		switch {
+		case u.User == "":
+			v.add(p+".user", "", ErrMissing, "name the user")
+		case strings.IndexFunc(u.User, unicode.IsSpace) >= 0 || strings.ContainsAny(u.User, ":@"):
+			v.add(p+".user", u.User, ErrRange, "a user name cannot contain white space, : or @")
+		case u.User == ServiceUser:
+			v.add(p+".user", u.User, ErrConflict, "is the service's own user; choose another name")
+		default:
+			if j, dup := seen[u.User]; dup {
+				v.add(p+".user", u.User, ErrDuplicate, "also bus.embedded.users[%d]", j)
+			}
+			seen[u.User] = i
+		}
+		if u.PasswordEnv == "" {
+			v.add(p+".password_env", "", ErrMissing, "name the environment variable holding the password")
+		}
+		v.envName(p+".password_env", u.PasswordEnv)
+		switch u.Role {
+		case RolePublisher, RoleTechnician:
+			if u.Role == RoleTechnician && len(u.Sensors) == 0 {
+				v.add(p+".sensors", "", ErrMissing, "a technician calibrates the sensors its patterns name, such as [\"qm.u1.>\"]; write [\">\"] for all")
+			}
+		case RoleReader:
+			if len(u.Sensors) > 0 {
+				v.add(p+".sensors", strings.Join(u.Sensors, ","), ErrConflict, "a reader reads every sensor (the read API does not filter by sensor); remove it")
+			}
+		case "":
+			v.add(p+".role", "", ErrMissing, "must be publisher, technician or reader")
+		default:
+			v.add(p+".role", u.Role, ErrRange, "must be publisher, technician or reader")
+		}
+		for j, pat := range u.Sensors {
+			v.sensorPattern(fmt.Sprintf("%s.sensors[%d]", p, j), pat)
+		}
+	}
+	if l := b.MQTT.Listen; l != "" {
+		host, port, err := net.SplitHostPort(l)
+		n, perr := strconv.Atoi(port)
+		switch {
+		case err != nil:
+			v.add("bus.mqtt.listen", l, ErrRange, "must be host:port, such as 127.0.0.1:1883")
+		case perr != nil || n < 1 || n > 65535:
+			v.add("bus.mqtt.listen", l, ErrRange, "port must be 1..65535")
+		case strings.ContainsAny(host, " \t/@"):
+			v.add("bus.mqtt.listen", l, ErrRange, "must be host:port, such as 127.0.0.1:1883")
+		}
+	}
+}
+
+// ServiceUser is the embedded server's own user of the service
+// (ingest.ServiceUser): no configured user may take its name.
+const ServiceUser = "driftfit-service"
+
+// sensorPattern checks a sensor-id pattern of NATS subject tokens: no
+// empty token, * only as a whole token, > only as the whole last token.
+func (v *validator) sensorPattern(path, s string) {
+	toks := strings.Split(s, ".")
+	for i, tok := range toks {
+		bad := ""
+		switch {
+		case tok == "":
+			bad = "empty token (two dots in a row, or a leading or trailing dot)"
+		case strings.IndexFunc(tok, unicode.IsSpace) >= 0:
+			bad = "white space"
+		case strings.Contains(tok, ">") && (tok != ">" || i != len(toks)-1):
+			bad = "> must be the whole last token"
+		case strings.Contains(tok, "*") && tok != "*":
+			bad = "* must be a whole token"
+		}
+		if bad != "" {
+			v.add(path, s, ErrRange, "not a sensor-id pattern: %s", bad)
+			return
+		}
+	}
+}
+
 func (v *validator) subject(path, s string) {
 	if s == "" {
 		v.add(path, s, ErrRange, "must not be empty")
@@ -242,7 +342,8 @@ func (v *validator) envName(path, s string) {
 	}
 	for i, r := range s {
 		if !(r == '_' || r >= 'A' && r <= 'Z' || r >= 'a' && r <= 'z' || i > 0 && r >= '0' && r <= '9') {
-			v.add(path, s, ErrRange, "must be the name of an environment variable (letters, digits, _), not the secret itself")
+			// Not a name: most likely the secret itself, so not echoed.
+			v.add(path, "xxxxx", ErrRange, "must be the name of an environment variable (letters, digits, _), not the secret itself")
 			return
 		}
 	}
@@ -269,6 +370,25 @@ func redactURL(s string) string {
 		user = user[:c] + ":xxxxx"
 	}
 	return s[:i+3] + user + rest[at:]
+}
+
+// redactServerURL hides all user information of a NATS URL, which
+// without a password is a token.
+func redactServerURL(s string) string {
+	r := redactURL(s)
+	i := strings.Index(r, "://")
+	if i < 0 {
+		return r
+	}
+	rest := r[i+3:]
+	end := strings.IndexAny(rest, "/?#")
+	if end < 0 {
+		end = len(rest)
+	}
+	if at := strings.LastIndexByte(rest[:end], '@'); at >= 0 && !strings.Contains(rest[:at], ":") {
+		return r[:i+3] + "xxxxx" + rest[at:]
+	}
+	return r
 }
 
 // redactQuery masks the values of a URL's query parameters, keeping their
