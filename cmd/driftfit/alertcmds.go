@@ -1,6 +1,7 @@
 package main
 
 import (
+	"cmp"
 	"context"
 	"fmt"
 	"io"
@@ -11,6 +12,7 @@ import (
 	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/query"
 	"driftfit/cmd/driftfit/internal/report"
+	"driftfit/configs"
 	"driftfit/ingest"
 	"driftfit/ingest/readapi"
 )
@@ -60,11 +62,11 @@ func (l *listFlags) parse(args []string, kind report.Kind, stdout io.Writer) (qu
 	if f.Until, err = query.ParseTime("until", *l.until, now); err != nil {
 		return nil, f, nil, err
 	}
-	dbPath, servers, _, err := l.src.resolve()
+	dbPath, bus, _, err := l.src.resolve()
 	if err != nil {
 		return nil, f, nil, err
 	}
-	src, err := query.Open(dbPath, servers, "driftfit "+l.fs.Name())
+	src, err := query.Open(dbPath, bus, "driftfit "+l.fs.Name())
 	return src, f, out, err
 }
 
@@ -118,8 +120,10 @@ func runCalibrated(ctx context.Context, args []string, _ io.Reader, stdout, _ io
 	asFound := fs.String("as-found", "", "the reading before adjustment, against the standard (engineering unit)")
 	asLeft := fs.String("as-left", "", "the reading after adjustment (engineering unit)")
 	at := fs.String("at", "", "when the calibration was done: RFC 3339 or Unix seconds (default: now)")
-	servers := fs.String("servers", readapi.DefaultURL, "NATS `URL` of the running service")
-	prefix := fs.String("prefix", "driftfit.calibrations", "calibration subject prefix (bus.calibration_subject_prefix)")
+	servers := fs.String("servers", "", "comma-separated NATS `URLs` of the running service (default: from --config, else "+readapi.DefaultURL+")")
+	cfgPath := fs.String("config", "", "service config `FILE`: gives the bus connection (servers, credentials, TLS) and the calibration subject prefix")
+	user := addUserFlag(fs)
+	prefix := fs.String("prefix", "", "calibration subject prefix (default: bus.calibration_subject_prefix in --config, else driftfit.calibrations)")
 	force := fs.Bool("force", false, "record it even if the service has never seen SENSOR (a mistyped id is refused without it)")
 	pos, err := fs.parse(args)
 	if err != nil {
@@ -141,7 +145,21 @@ func runCalibrated(ctx context.Context, args []string, _ io.Reader, stdout, _ io
 			return usageError("--at %q: %v", *at, err)
 		}
 	}
-	c, err := readapi.Dial(*servers, "driftfit calibrated")
+	var cfg *configs.Config
+	if *cfgPath != "" {
+		if cfg, err = configs.Load(*cfgPath); err != nil {
+			return fmt.Errorf("--config: %w", err)
+		}
+		if *prefix == "" {
+			*prefix = cfg.Bus.CalibrationSubjectPrefix
+		}
+	}
+	*prefix = cmp.Or(*prefix, "driftfit.calibrations")
+	bus, err := clientBus(cfg, *servers, *user, configs.RoleTechnician)
+	if err != nil {
+		return err
+	}
+	c, err := readapi.DialBus(bus, "driftfit calibrated")
 	if err != nil {
 		return err
 	}

@@ -8,6 +8,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"net"
 	"path/filepath"
 	"slices"
 	"strings"
@@ -17,6 +18,7 @@ import (
 	"driftfit/cmd/driftfit/internal/query"
 	"driftfit/cmd/driftfit/internal/report"
 	"driftfit/configs"
+	"driftfit/ingest"
 	"driftfit/ingest/readapi"
 	"driftfit/rolling"
 )
@@ -89,8 +91,11 @@ read-only open takes a shared lock, the writer (driftfit serve) an
 exclusive one for as long as it runs, and the two conflict. So when the
 file is in use (history waits up to 1s for the lock), history asks the
 running service instead, over NATS (subject driftfit.api.history), at
---servers: by default the first of bus.servers in --config, else the
-embedded server's default address nats://127.0.0.1:4222. The service
+--servers: by default bus.servers in --config, with the same credentials
+and TLS as serve, else the embedded server's address (bus.embedded.host,
+port 4222) as a reader of bus.embedded.users (--user picks one). Before
+it reads, history checks that the service answering holds this very file,
+and stops naming both files if not. The service
 reads the same file and sends the records back unchanged. Several history
 runs may read one file at once.
 When nothing matches, nothing is printed on standard output and a note on
@@ -102,37 +107,82 @@ func runHistory(ctx context.Context, args []string, _ io.Reader, stdout, stderr 
 
 // sourceFlags are the flags that find the state file or the service.
 type sourceFlags struct {
-	db, data, cfg, servers *string
+	db, data, cfg, servers, user *string
 }
 
 func addSourceFlags(fs *flags) sourceFlags {
 	return sourceFlags{
 		db:      fs.String("db", "", "database `FILE` (default: "+dbFile+" in the data directory, "+defaultDBPath()+" unless --data or --config say otherwise)"),
 		data:    fs.String("data", "", "the service's data `DIR` (as for driftfit serve --data): read "+dbFile+" in it"),
-		cfg:     fs.String("config", "", "service config `FILE`: gives store.dir, bus.servers and the sensors' units"),
-		servers: fs.String("servers", "", "NATS `URL` of the running service to ask when the file is in use (default: bus.servers in --config, else "+readapi.DefaultURL+")"),
+		cfg:     fs.String("config", "", "service config `FILE`: gives store.dir, the bus connection (servers, credentials, TLS) and the sensors' units"),
+		servers: fs.String("servers", "", "comma-separated NATS `URLs` of the running service to ask when the file is in use (default: bus.servers in --config, else the embedded server's address, "+readapi.DefaultURL+")"),
+		user:    addUserFlag(fs),
 	}
 }
 
-// resolve returns the file and service address the flags name, and the
-// configuration if --config was given.
-func (s sourceFlags) resolve() (dbPath, servers string, cfg *configs.Config, err error) {
-	dbPath, servers = *s.db, *s.servers
+func addUserFlag(fs *flags) *string {
+	return fs.String("user", "", "connect to the embedded server as `NAME`, one of bus.embedded.users in --config, with the password in its password_env variable (default: the first with the role the command needs)")
+}
+
+// resolve returns the file and service connection the flags name, and
+// the configuration if --config was given.
+func (s sourceFlags) resolve() (dbPath string, bus ingest.BusOptions, cfg *configs.Config, err error) {
+	dbPath = *s.db
 	if dbPath == "" && *s.data != "" {
 		dbPath = filepath.Join(*s.data, dbFile)
 	}
 	if *s.cfg != "" {
 		if cfg, err = configs.Load(*s.cfg); err != nil {
-			return "", "", nil, fmt.Errorf("--config: %w", err)
+			return "", bus, nil, fmt.Errorf("--config: %w", err)
 		}
 		if dbPath == "" {
 			dbPath = filepath.Join(cfg.Store.Dir, dbFile)
 		}
-		if servers == "" && len(cfg.Bus.Servers) > 0 {
-			servers = cfg.Bus.Servers[0]
-		}
 	}
-	return cmp.Or(dbPath, defaultDBPath()), cmp.Or(servers, readapi.DefaultURL), cfg, nil
+	bus, err = clientBus(cfg, *s.servers, *s.user, configs.RoleReader)
+	return cmp.Or(dbPath, defaultDBPath()), bus, cfg, err
+}
+
+// clientBus is how a command reaches the running service: serve's own
+// connection options from cfg (servers, user and password variable,
+// token, credentials file, TLS), or, for the embedded server, its
+// address on bus.embedded.host and a user of bus.embedded.users (user,
+// else the first with role). servers, if not empty, replaces the
+// addresses. cfg may be nil.
+func clientBus(cfg *configs.Config, servers, user, role string) (ingest.BusOptions, error) {
+	var bus ingest.BusOptions
+	if cfg != nil {
+		bus = busOptions(cfg, 0, nil, nil)
+		if len(cfg.Bus.Servers) == 0 {
+			host := cfg.Bus.Embedded.Host
+			if ip := net.ParseIP(host); ip != nil && ip.IsUnspecified() {
+				host = "127.0.0.1"
+			}
+			bus.Servers = []string{"nats://" + net.JoinHostPort(host, "4222")}
+			var found *configs.BusUser
+			for i, u := range cfg.Bus.Embedded.Users {
+				if user == u.User || user == "" && u.Role == role {
+					found = &cfg.Bus.Embedded.Users[i]
+					break
+				}
+			}
+			switch {
+			case found != nil:
+				bus.User, bus.PasswordEnv = found.User, found.PasswordEnv
+			case user != "":
+				return bus, usageError("--user %q: not among bus.embedded.users in the configuration", user)
+			}
+		}
+	} else if user != "" {
+		return bus, usageError("--user needs --config, which names the user's password variable")
+	}
+	if servers != "" {
+		bus.Servers = strings.Split(servers, ",")
+	}
+	if len(bus.Servers) == 0 {
+		bus.Servers = []string{readapi.DefaultURL}
+	}
+	return bus, nil
 }
 
 // classUnit returns the class unit of a sensor under cfg ("" when no
@@ -198,11 +248,11 @@ func history(ctx context.Context, now time.Time, args []string, stdout, stderr i
 	if !q.Since.IsZero() && !q.Until.IsZero() && !q.Since.Before(q.Until) {
 		return usageError("--since %s is not before --until %s", q.Since.UTC().Format(time.RFC3339), q.Until.UTC().Format(time.RFC3339))
 	}
-	dbPath, servers, cfg, err := src.resolve()
+	dbPath, bus, cfg, err := src.resolve()
 	if err != nil {
 		return err
 	}
-	db, err := query.Open(dbPath, servers, "driftfit history")
+	db, err := query.Open(dbPath, bus, "driftfit history")
 	if err != nil {
 		return err
 	}

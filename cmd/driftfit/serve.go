@@ -99,7 +99,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		}
 	}()
 
-	if err := os.MkdirAll(cfg.Store.Dir, 0o700); err != nil {
+	if err := privateDir(cfg.Store.Dir, log); err != nil {
 		return err
 	}
 	reg := prometheus.NewRegistry()
@@ -321,16 +321,51 @@ func serveHTTP(addr string, h http.Handler, log zerolog.Logger, what string, tim
 }
 
 // busOptions maps the configuration onto the bus connection: the
-// embedded server on 127.0.0.1:port (-1: any free port) with its store
-// under store.dir, or bus.servers with their credentials.
+// embedded server on bus.embedded.host and port (-1: any free port)
+// with its store under store.dir, its users and MQTT listener, or
+// bus.servers with their credentials. The read commands connect with the
+// same options.
 func busOptions(cfg *configs.Config, port int, log *zerolog.Logger, m *ingest.Metrics) ingest.BusOptions {
+	b := &cfg.Bus
+	users := make([]ingest.BusUser, len(b.Embedded.Users))
+	for i, u := range b.Embedded.Users {
+		users[i] = ingest.BusUser{User: u.User, PasswordEnv: u.PasswordEnv, Role: ingest.Role(u.Role), Sensors: u.Sensors}
+	}
 	return ingest.BusOptions{
-		Servers:    cfg.Bus.Servers,
+		Servers:    b.Servers,
+		Host:       b.Embedded.Host,
 		Port:       port,
 		StoreDir:   filepath.Join(cfg.Store.Dir, "nats"),
-		MaxPayload: max(cfg.Bus.MaxPayloadBytes, 1<<20),
-		User:       cfg.Bus.User, PasswordEnv: cfg.Bus.PasswordEnv, TokenEnv: cfg.Bus.TokenEnv, CredsFile: cfg.Bus.CredsFile,
-		CAFile: cfg.Bus.TLS.CAFile, CertFile: cfg.Bus.TLS.CertFile, KeyFile: cfg.Bus.TLS.KeyFile,
+		MaxPayload: max(b.MaxPayloadBytes, 1<<20),
+		Users:      users,
+		Subjects: ingest.BusSubjects{
+			Readings: b.SubjectPrefix, Rejected: b.RejectedSubject, Alerts: b.AlertSubjectPrefix, Tickets: b.TicketSubject,
+			Calibrations: b.CalibrationSubjectPrefix, API: readapi.Prefix, Stream: b.StreamName,
+		},
+		MQTT: b.MQTT.Listen,
+		User: b.User, PasswordEnv: b.PasswordEnv, TokenEnv: b.TokenEnv, CredsFile: b.CredsFile,
+		CAFile: b.TLS.CAFile, CertFile: b.TLS.CertFile, KeyFile: b.TLS.KeyFile,
 		Logger: log, Metrics: m,
 	}
+}
+
+// privateDir creates the data directory with mode 0700, or tightens an
+// existing one to it: the state file, the JetStream store and the
+// webhook's outbox are nobody else's to read. A directory that had to be
+// tightened is logged, once.
+func privateDir(dir string, log zerolog.Logger) error {
+	if err := os.MkdirAll(dir, 0o700); err != nil {
+		return err
+	}
+	fi, err := os.Stat(dir)
+	if err != nil {
+		return err
+	}
+	if perm := fi.Mode().Perm(); perm&0o077 != 0 {
+		if err := os.Chmod(dir, 0o700); err != nil {
+			return fmt.Errorf("data directory %s has mode %04o, readable by others, and cannot be tightened: %w", dir, perm, err)
+		}
+		log.Warn().Str("dir", dir).Str("was", fmt.Sprintf("%04o", perm)).Str("now", "0700").Msg("data directory was open to other users: tightened")
+	}
+	return nil
 }

@@ -177,6 +177,33 @@ func (c *Client) Tickets(fn func(id string, data []byte) error) error {
 	})
 }
 
+// Identity asks the service which state file it holds.
+func (c *Client) Identity() (Identity, error) {
+	var id Identity
+	var data []byte
+	err := c.request(IdentitySubject, nil, func(b []byte) error { data = append(data, b...); return nil })
+	if err != nil {
+		return id, err
+	}
+	if err := json.Unmarshal(data, &id); err != nil || id.Path == "" {
+		return id, fmt.Errorf("%w: identity %q", ErrMalformedReply, data)
+	}
+	return id, nil
+}
+
+// CheckHolds returns nil when the service holds the state file at path
+// (compared as CanonicalPath), else a *MismatchError naming both files.
+func (c *Client) CheckHolds(path string) error {
+	id, err := c.Identity()
+	if err != nil {
+		return fmt.Errorf("cannot tell which state file the service at %s holds: %w", c.url, err)
+	}
+	if want := CanonicalPath(path); id.Path != want {
+		return &MismatchError{URL: c.url, Want: want, Holds: id.Path}
+	}
+	return nil
+}
+
 // Calibrate sends a calibration of sensor to the service on
 // prefix.sensor and waits for its answer (at most Timeout).
 func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal ingest.CalibrationMsg) error {

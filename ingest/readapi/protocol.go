@@ -18,7 +18,8 @@
 //   - sensors: sensor ids, each followed by a newline;
 //   - events: per event its time (varint Unix ns) and its JSON as a frame
 //     (uvarint length, then the bytes);
-//   - tickets: per ticket its id as a frame, then its JSON as a frame.
+//   - tickets: per ticket its id as a frame, then its JSON as a frame;
+//   - identity: a JSON Identity, in one message.
 //
 // Calibrations travel the other way, as a request on
 // <calibration prefix>.<sensor> with a JSON ingest.CalibrationMsg,
@@ -28,12 +29,14 @@ package readapi
 
 import "time"
 
-// Subjects of the read API.
+// Subjects of the read API, all under Prefix.
 const (
-	HistorySubject = "driftfit.api.history"
-	SensorsSubject = "driftfit.api.sensors"
-	EventsSubject  = "driftfit.api.events"
-	TicketsSubject = "driftfit.api.tickets"
+	Prefix          = "driftfit.api"
+	HistorySubject  = Prefix + ".history"
+	SensorsSubject  = Prefix + ".sensors"
+	EventsSubject   = Prefix + ".events"
+	TicketsSubject  = Prefix + ".tickets"
+	IdentitySubject = Prefix + ".identity"
 )
 
 // Reply headers.
@@ -52,6 +55,15 @@ const (
 	// the embedded NATS server's default address.
 	DefaultURL = "nats://127.0.0.1:4222"
 )
+
+// Identity is the answer on IdentitySubject (empty request): which
+// state file the service holds, so a client given a file can check it is
+// asking the service that holds that file.
+type Identity struct {
+	// Path is the state file's absolute path, symbolic links resolved
+	// (CanonicalPath).
+	Path string `json:"path"`
+}
 
 // Request is the JSON request of the history and events subjects. Zero
 // fields leave that filter open.

@@ -4,6 +4,7 @@ import (
 	"encoding/binary"
 	"encoding/json"
 	"fmt"
+	"path/filepath"
 	"strings"
 	"time"
 
@@ -14,7 +15,7 @@ import (
 	"driftfit/store"
 )
 
-// Serve answers history, sensor-list, event and ticket requests from db
+// Serve answers identity, history, sensor-list, event and ticket requests from db
 // on nc until the returned stop is called; stop unsubscribes. Handlers
 // run on nc's delivery goroutine, each inside one read transaction of db.
 // A request whose reply subject lies under the API's own subjects or
@@ -68,7 +69,12 @@ func Serve(nc *nats.Conn, db *store.DB, log zerolog.Logger, own ...string) (stop
 		}
 		return q, true
 	}
+	ident, err := json.Marshal(Identity{Path: CanonicalPath(db.Path())})
+	if err != nil {
+		return nil, err
+	}
 	handlers := map[string]nats.MsgHandler{
+		IdentitySubject: func(m *nats.Msg) { send(m, ident, false, nil) },
 		HistorySubject: func(m *nats.Msg) {
 			q, ok := request(m)
 			if !ok {
@@ -126,6 +132,18 @@ func Serve(nc *nats.Conn, db *store.DB, log zerolog.Logger, own ...string) (stop
 		subs = append(subs, sub)
 	}
 	return stop, nil
+}
+
+// CanonicalPath is path made absolute with its symbolic links resolved,
+// as far as they resolve: two names of one file compare equal.
+func CanonicalPath(path string) string {
+	if abs, err := filepath.Abs(path); err == nil {
+		path = abs
+	}
+	if real, err := filepath.EvalSymlinks(path); err == nil {
+		path = real
+	}
+	return path
 }
 
 func appendFrame(dst, b []byte) []byte {

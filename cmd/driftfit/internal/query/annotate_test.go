@@ -8,6 +8,7 @@ import (
 
 	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/query"
+	"driftfit/ingest"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -45,7 +46,7 @@ func reviewFile(t *testing.T, evs []alert.Event, tks []alert.Ticket) (query.Sour
 	if err := db.Close(); err != nil {
 		t.Fatal(err)
 	}
-	src, err := query.Open(path, "nats://127.0.0.1:1", "query test")
+	src, err := query.Open(path, ingest.BusOptions{Servers: []string{"nats://127.0.0.1:1"}}, "query test")
 	if err != nil {
 		t.Fatal(err)
 	}

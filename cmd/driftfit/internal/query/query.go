@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"driftfit/configs"
+	"driftfit/ingest"
 	"driftfit/ingest/readapi"
 	"driftfit/rolling"
 	"driftfit/store"
@@ -41,9 +42,11 @@ var (
 const LockWait = time.Second
 
 // Open opens the state file at path read-only; when a running service
-// holds it, it asks that service at servers instead (name labels the
-// connection). The common failures come back as advice.
-func Open(path, servers, name string) (Source, error) {
+// holds it, it asks that service on the bus instead, connecting as bus
+// says (name labels the connection), once the service has said it holds
+// this very file. The common failures come back as advice; no message
+// shows a password.
+func Open(path string, bus ingest.BusOptions, name string) (Source, error) {
 	if _, err := os.Stat(path); err != nil {
 		if errors.Is(err, os.ErrNotExist) {
 			return nil, fmt.Errorf("no database file at %s (give --db FILE, --data DIR or --config FILE)", path)
@@ -52,13 +55,17 @@ func Open(path, servers, name string) (Source, error) {
 	}
 	db, err := store.Open(path, store.Options{ReadOnly: true, LockTimeout: LockWait})
 	if errors.Is(err, store.ErrLocked) {
-		remote, rerr := readapi.Dial(servers, name)
-		if rerr == nil {
-			return remote, nil
+		remote, rerr := readapi.DialBus(bus, name)
+		if rerr != nil {
+			return nil, fmt.Errorf("%s is in use by a running driftfit serve (or another process writing it), "+
+				"and no service answers at %s (%v): give --servers with the service's NATS address, "+
+				"or stop the service and retry: %w", path, ingest.RedactURLs(bus.Servers), rerr, err)
 		}
-		return nil, fmt.Errorf("%s is in use by a running driftfit serve (or another process writing it), "+
-			"and no service answers at %s (%v): give --servers with the service's NATS address, "+
-			"or stop the service and retry: %w", path, servers, rerr, err)
+		if err := remote.CheckHolds(path); err != nil {
+			remote.Close()
+			return nil, fmt.Errorf("%s is in use, but not by the service asked: %w", path, err)
+		}
+		return remote, nil
 	}
 	if err != nil {
 		return nil, err

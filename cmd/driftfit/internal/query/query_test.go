@@ -11,6 +11,7 @@ import (
 
 	"driftfit/cmd/driftfit/internal/query"
 	"driftfit/cmd/driftfit/internal/report"
+	"driftfit/ingest"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -70,7 +71,7 @@ func (c *count) Fit(_, _ string, sol *rolling.Solution, _ rolling.Model) error {
 
 func TestHistory_RecentByDefault(t *testing.T) {
 	path, t0 := hourlyFile(t)
-	src, err := query.Open(path, "nats://127.0.0.1:1", "query test")
+	src, err := query.Open(path, ingest.BusOptions{Servers: []string{"nats://127.0.0.1:1"}}, "query test")
 	if err != nil {
 		t.Fatal(err)
 	}
