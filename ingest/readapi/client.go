@@ -36,7 +36,11 @@ func Dial(url, name string) (*Client, error) {
 // Messages name the servers with their secrets masked.
 func DialBus(o ingest.BusOptions, name string) (*Client, error) {
 	shown := ingest.RedactURLs(o.Servers)
-	opts := append([]nats.Option{nats.Name(name), nats.Timeout(2 * time.Second)}, ingest.ClientOptions(o)...)
+	opts := append([]nats.Option{nats.Name(name), nats.Timeout(2 * time.Second),
+		// Refusals are read from LastError where they matter (refused);
+		// nats.go would print them on standard error.
+		nats.ErrorHandler(func(*nats.Conn, *nats.Subscription, error) {}),
+	}, ingest.ClientOptions(o)...)
 	nc, err := nats.Connect(strings.Join(o.Servers, ","), opts...)
 	if err != nil {
 		return nil, fmt.Errorf("connect to the service at %s: %w", shown, err)
@@ -62,6 +66,9 @@ func (c *Client) request(subject string, data []byte, fn func([]byte) error) err
 	if err := c.nc.PublishRequest(subject, inbox, data); err != nil {
 		return err
 	}
+	if err := c.refused(subject); err != nil {
+		return err
+	}
 	for {
 		m, err := sub.NextMsg(Timeout)
 		if errors.Is(err, nats.ErrTimeout) {
@@ -82,6 +89,20 @@ func (c *Client) request(subject string, data []byte, fn func([]byte) error) err
 			return nil
 		}
 	}
+}
+
+// refused waits until the server has read what was sent, and returns
+// the refusal if it refused to let this client publish on subject or
+// take the reply (the server answers a PING only after the error of
+// what came before it, and nats.go records that error on reading it).
+func (c *Client) refused(subject string) error {
+	if err := c.nc.Flush(); err != nil {
+		return err
+	}
+	if err := c.nc.LastError(); errors.Is(err, nats.ErrPermissionViolation) {
+		return fmt.Errorf("%w: a request on %s at %s: %w", ErrRefused, subject, c.url, err)
+	}
+	return nil
 }
 
 func newRequest(sensor string, window rolling.WindowSpec, since, until time.Time) ([]byte, error) {
@@ -213,7 +234,20 @@ func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal inges
 	}
 	ctx, cancel := context.WithTimeout(ctx, Timeout)
 	defer cancel()
-	msg, err := c.nc.RequestWithContext(ctx, prefix+"."+sensor, payload)
+	subject := prefix + "." + sensor
+	inbox := c.nc.NewRespInbox()
+	sub, err := c.nc.SubscribeSync(inbox)
+	if err != nil {
+		return err
+	}
+	defer sub.Unsubscribe()
+	if err := c.nc.PublishRequest(subject, inbox, payload); err != nil {
+		return err
+	}
+	if err := c.refused(subject); err != nil {
+		return err
+	}
+	msg, err := sub.NextMsgWithContext(ctx)
 	if err != nil {
 		return fmt.Errorf("%w at %s: %w", ErrNoAnswer, c.url, err)
 	}

@@ -11,6 +11,10 @@ var (
 	// no reply came within Timeout.
 	ErrNoAnswer = errors.New("readapi: no answer from the service")
 
+	// ErrRefused is returned, wrapped with the subject, when the bus's
+	// permissions do not let the client send a request.
+	ErrRefused = errors.New("readapi: not permitted on the bus")
+
 	// ErrOtherService is returned (inside a *MismatchError) when the
 	// service that answers holds another state file than the one asked
 	// about.

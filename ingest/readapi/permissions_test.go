@@ -148,6 +148,9 @@ func TestPermissions_DocumentedConfig(t *testing.T) {
 	if err := calibrateAs(t, url, "qm-tech-u1", testPasswords["QM_TECH_U1_PASSWORD"], "qm.u1.steam.pt-101", cal); err != nil {
 		t.Errorf("technician: calibration of its own sensor: %v", err)
 	}
+	if err := calibrateAs(t, url, "qm-tech-u1", testPasswords["QM_TECH_U1_PASSWORD"], "qm.u2.steam.pt-101", cal); !errors.Is(err, readapi.ErrRefused) {
+		t.Errorf("technician: client's calibration of another unit's sensor = %v, want ErrRefused", err)
+	}
 	if err := calibrate(tech, "qm.u2.steam.pt-101"); err == nil {
 		t.Error("technician: calibration of another unit's sensor answered")
 	}
