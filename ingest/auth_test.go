@@ -168,8 +168,11 @@ func TestConnect_WarnsWithoutAuth(t *testing.T) {
 				t.Fatal(err)
 			}
 			b.Close()
-			if n := strings.Count(logs.b.String(), warning); (n == 1) != c.warn || n > 1 {
-				t.Errorf("warning %q logged %d times, want it %v (once):\n%s", warning, n, c.warn, logs.b.String())
+			logs.mu.Lock() // nats.go may still log the closed connection
+			out := logs.b.String()
+			logs.mu.Unlock()
+			if n := strings.Count(out, warning); (n == 1) != c.warn || n > 1 {
+				t.Errorf("warning %q logged %d times, want it %v (once):\n%s", warning, n, c.warn, out)
 			}
 		})
 	}
@@ -214,7 +217,7 @@ func TestConnect_TokenNeverLogged(t *testing.T) {
 	// The connect handler runs on nats.go's callback goroutine.
 	for deadline := time.Now().Add(5 * time.Second); !logs.has("bus connected"); time.Sleep(10 * time.Millisecond) {
 		if time.Now().After(deadline) {
-			t.Fatalf("no connection logged:\n%s", logs.b.String())
+			t.Fatal("no connection logged")
 		}
 	}
 	b.Close()
@@ -226,7 +229,7 @@ func TestConnect_TokenNeverLogged(t *testing.T) {
 		t.Fatal("Connect to a port nobody listens on succeeded")
 	}
 	if strings.Contains(err.Error(), token) || logs.has(token) {
-		t.Errorf("token shown: error %v\nlog:\n%s", err, logs.b.String())
+		t.Errorf("token shown in the error (%v) or the log", err)
 	}
 	if !strings.Contains(err.Error(), "nats://xxxxx@127.0.0.1:1") {
 		t.Errorf("error does not name the server with its token masked: %v", err)
