@@ -49,6 +49,9 @@ type Decision struct {
 	Opened *Ticket
 	// Closed is the ticket a calibration closed, if any.
 	Closed *Ticket
+	// Revised is the open ticket when this evaluation re-estimated it
+	// and its due date moved materially (see Ticket.Revision).
+	Revised *Ticket
 	// Judgement says whether Evaluate judged the window, or why not;
 	// zero for Observe and Calibrate.
 	Judgement Judgement
