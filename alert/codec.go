@@ -9,11 +9,11 @@ import (
 	"driftfit/rolling"
 )
 
-// State encoding, version 1, little endian, fixed width so that every
+// State encoding, version 2, little endian, fixed width so that every
 // state has exactly one encoding (a decoded state re-encodes to the same
 // bytes):
 //
-//	"DFA" 0x01
+//	"DFA" 0x02
 //	sensor str; asLeft f64; hasAsLeft bool; calibrated time
 //	u32 machine count, each: span i64, pane i64, kind u8, state u8,
 //	  sev u8, streak u32, crit u32, since time, cleared time
@@ -22,9 +22,15 @@ import (
 // str is u32 length + bytes; bool is one byte 0 or 1; time is a bool
 // (present) + i64 Unix nanoseconds, 0 when absent; f64 is IEEE 754 bits
 // and must be finite. The ticket is every field of Ticket in declaration
-// order except Caution, FitSummary slices as u8 count (2 or 3) + values,
-// the calibration as a bool + its three fields.
-var stateMagic = [4]byte{'D', 'F', 'A', 1}
+// order except Caution and the fields added in version 2, FitSummary
+// slices as u8 count (2 or 3) + values, the calibration as a bool + its
+// three fields; then (version 2) Revision u32, AsOf time, Overdue bool,
+// ExitLowerBound time, ExitCI as two times, AsFound.Interval str.
+//
+// Version 1, the same without the version 2 fields, still decodes: its
+// ticket's estimates were made at Opened (AsOf), with the prediction
+// interval, and a later evaluation revises it.
+var stateMagic = [4]byte{'D', 'F', 'A', 2}
 
 // MarshalBinary encodes the tracker's state (not its rule, which comes
 // from configuration): the as-left value, the last calibration, every
@@ -60,9 +66,10 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 // malformed data or the state of another sensor.
 func (t *Tracker) UnmarshalBinary(data []byte) error {
 	d := dec{b: data}
-	if len(data) < len(stateMagic) || [4]byte(data[:4]) != stateMagic {
-		return fmt.Errorf("%w: sensor %s: not a version 1 state", ErrBadState, t.sensor)
+	if len(data) < len(stateMagic) || [3]byte(data[:3]) != [3]byte(stateMagic[:3]) || data[3] < 1 || data[3] > stateMagic[3] {
+		return fmt.Errorf("%w: sensor %s: not a version 1 or 2 state", ErrBadState, t.sensor)
 	}
+	d.version = data[3]
 	d.b = d.b[4:]
 	var n Tracker
 	n.rule, n.alpha = t.rule, t.alpha
@@ -200,13 +207,21 @@ func (e *enc) ticket(k *Ticket) {
 		e.f64(c.AsFound)
 		e.f64(c.AsLeft)
 	}
+	e.u32(uint32(k.Revision))
+	e.time(k.AsOf)
+	e.bool(k.Overdue)
+	e.time(k.ExitLowerBound)
+	e.time(k.ExitCI[0])
+	e.time(k.ExitCI[1])
+	e.str(k.AsFound.Interval)
 }
 
 // dec reads the encoding with a sticky error: after the first problem
 // every read returns zero values.
 type dec struct {
-	b   []byte
-	err error
+	b       []byte
+	err     error
+	version byte
 }
 
 func (d *dec) fail(format string, args ...any) {
@@ -364,4 +379,19 @@ func (d *dec) ticket(k *Ticket) {
 		k.Calibration = &Calibration{Time: d.time(), AsFound: d.f64(), AsLeft: d.f64()}
 	}
 	k.Caution = Caution
+	if d.version < 2 {
+		k.AsOf, k.AsFound.Interval = k.Opened, PredictionInterval
+		return
+	}
+	rev := d.u32()
+	if d.err == nil && rev > math.MaxInt32 {
+		d.fail("ticket revision %d", rev)
+	}
+	k.Revision = int(rev)
+	k.AsOf = d.time()
+	k.Overdue = d.bool()
+	k.ExitLowerBound = d.time()
+	k.ExitCI[0] = d.time()
+	k.ExitCI[1] = d.time()
+	k.AsFound.Interval = d.str()
 }

@@ -260,6 +260,42 @@ func (r *Rule) crossing(f *rolling.Fit, asLeft float64) (cr rolling.Crossing, up
 	return cu, true, true
 }
 
+// meanExit returns when the fitted mean of trend f reaches the edge of
+// the tolerance band it heads for (rolling.Fit.MeanTimeToLimit), on the
+// serially corrected covariance, as seFor judges: the plain one for a fit
+// that carries no serial information (Pairs 0). The edge is the one the
+// mean is past, else the one with the sooner lower bound, else the one
+// the fitted mean reaches, else the one the slope points to. upper says
+// which; ok is false when MeanTimeToLimit refused the fit.
+func (r *Rule) meanExit(f *rolling.Fit, asLeft float64) (mc rolling.MeanCross, upper, ok bool) {
+	corrected := f.Pairs > 0
+	mu, err := f.MeanTimeToLimit(asLeft+r.Tolerance, true, corrected, r.Horizon)
+	if err != nil {
+		return mc, false, false
+	}
+	md, err := f.MeanTimeToLimit(asLeft-r.Tolerance, false, corrected, r.Horizon)
+	if err != nil {
+		return mc, false, false
+	}
+	rank := func(c rolling.MeanCross) (int, float64) {
+		switch {
+		case c.Kind == rolling.CrossPast:
+			return 0, 0
+		case c.LowerOK:
+			return 1, c.LowerDays
+		case c.Kind == rolling.CrossAhead:
+			return 2, c.Days
+		}
+		return 3, 0
+	}
+	ru, du := rank(mu)
+	rd, dd := rank(md)
+	if rd < ru || (rd == ru && (dd < du || (dd == du && f.Coef[1] < 0))) {
+		return md, false, true
+	}
+	return mu, true, true
+}
+
 // sooner reports whether crossing a comes strictly before b.
 func sooner(a, b rolling.Crossing) bool {
 	rank := func(c rolling.Crossing) int {

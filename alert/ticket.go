@@ -12,17 +12,36 @@ import (
 // A ticket opens when an alert of a kind in Rule.TicketKinds (by default
 // Slope and LeadTime) is raised, at either severity (a warning is the
 // time to plan the work; waiting for critical would spend the margin),
-// and no ticket of the sensor is open. It stays
-// open until Tracker.Calibrate closes it; later alerts do not open a
-// second one or change it.
+// and no ticket of the sensor is open. It stays open until
+// Tracker.Calibrate closes it; later alerts do not open a second one.
 //
-// Due is when the fitted trend (of the rule's trend model, on the window
-// that raised the alert) is predicted to leave the tolerance band, minus
-// the rule's TicketMargin, and never before Opened. When the trend does
-// not leave the band within the rule's horizon, Due is Opened plus the
-// lead-time warning level (else its critical level, else the horizon).
-// DueBasis says which: "already_out", "predicted_exit", "lead_time" or
-// "horizon".
+// # Due date
+//
+// Due is the one-sided 95% lower confidence bound of the time the fitted
+// mean of the trend (the rule's trend model, on the window that raised the
+// alert) reaches the tolerance edge it heads for (ExitLowerBound, from
+// rolling.Fit.MeanTimeToLimit with the serially corrected covariance:
+// Fieller's bound for a line, the inverted confidence band of the mean
+// for a parabola), minus the rule's TicketMargin, and never before Opened.
+// So the sensor's mean is still inside tolerance at Due, less the margin,
+// with 95% confidence. When no bound exists (the rate towards the edge is
+// not significant at the one-sided 95% level, or the bound lies beyond the
+// rule's horizon) no date can be bounded, and Due is the evaluation time
+// plus the lead-time warning level (else its critical level, else the
+// horizon). DueBasis says which: "already_out" (the fitted mean is beyond
+// the edge: due at once), "exit_lower_bound", "unbounded_lead_time" or
+// "unbounded_horizon".
+//
+// # Revisions
+//
+// Each evaluation of the ticket's window that is judged re-estimates the
+// due date from the new fit. When it moves by more than a day or a tenth
+// of the time Due had left, whichever is more, or the ticket becomes
+// overdue, the ticket is revised: Revision counts up, AsOf is the
+// evaluation time, every estimate is the new one, and Decision.Revised
+// carries it. An estimate without a bound never revises a bounded one
+// (weaker evidence does not push a date out). Overdue says that Due had
+// passed at AsOf (a ticket due at once is not overdue at its opening).
 type Ticket struct {
 	ID       string    `json:"id"` // sensor id + "@" + Opened in compact UTC
 	Sensor   string    `json:"sensor"`
@@ -37,19 +56,35 @@ type Ticket struct {
 	Tolerance float64    `json:"tolerance"`
 	Span      [2]float64 `json:"span,omitzero"` // calibrated range, if given
 
-	// Crossing is rolling.CrossKind's name for the soonest band edge:
-	// "ahead", "never" or "already past"; Edge is "upper" or "lower".
+	// Revision is 0 as opened and counts the revisions since; AsOf is when
+	// the estimates below were made (Opened, then each revision's
+	// evaluation time). Overdue reports that AsOf was after Due.
+	Revision int       `json:"revision"`
+	AsOf     time.Time `json:"as_of"`
+	Overdue  bool      `json:"overdue"`
+
+	// Crossing is rolling.CrossKind's name for the fitted mean at the
+	// edge it heads for: "ahead", "never" (within the horizon) or
+	// "already past"; Edge is "upper" or "lower".
 	Crossing string `json:"crossing"`
 	Edge     string `json:"edge"`
-	// Exit is when the fitted trend leaves the band (zero unless ahead);
-	// EarliestExit when its 95% prediction band first touches the edge
-	// (zero if not within the horizon).
-	Exit         time.Time `json:"exit,omitzero"`
-	EarliestExit time.Time `json:"earliest_exit,omitzero"`
-	Due          time.Time `json:"due"`
-	DueBasis     string    `json:"due_basis"`
+	// Exit is when the fitted mean leaves the band (zero unless ahead);
+	// ExitLowerBound the one-sided 95% lower confidence bound of that time
+	// (zero when there is none); ExitCI Fieller's two-sided 95% interval
+	// of it (Line only, zero unless bounded; it may begin in the past).
+	// EarliestExit is when the 95% prediction band of single readings
+	// first touches the edge (zero if not within the horizon): when a
+	// reading may first be found out, always sooner than the mean.
+	Exit           time.Time    `json:"exit,omitzero"`
+	ExitLowerBound time.Time    `json:"exit_lower_bound,omitzero"`
+	ExitCI         [2]time.Time `json:"exit_ci95,omitzero"`
+	EarliestExit   time.Time    `json:"earliest_exit,omitzero"`
+	Due            time.Time    `json:"due"`
+	DueBasis       string       `json:"due_basis"`
 
-	// AsFound is the expected deviation from the as-left value at Due.
+	// AsFound is the expected deviation from the as-left value at Due,
+	// with the 95% prediction interval of a single reading there (what a
+	// technician may find), labelled by its Interval.
 	AsFound Estimate `json:"as_found"`
 	// Evidence is the trend fit the due date comes from.
 	Evidence FitSummary `json:"evidence"`
@@ -59,12 +94,27 @@ type Ticket struct {
 	Caution     string       `json:"caution"`
 }
 
+// Due bases (Ticket.DueBasis).
+const (
+	DueAlreadyOut       = "already_out"
+	DueExitLowerBound   = "exit_lower_bound"
+	DueUnboundedLead    = "unbounded_lead_time"
+	DueUnboundedHorizon = "unbounded_horizon"
+)
+
+// PredictionInterval labels Estimate.Interval: the 95% prediction
+// interval of a single reading (rolling.Prediction).
+const PredictionInterval = "prediction_95"
+
 // Estimate is a predicted deviation from the as-left value, in Unit, with
-// its 95% prediction interval (rolling.Prediction less the as-left).
+// its interval [Low, High]: the 95% prediction interval of a single
+// reading (rolling.Prediction less the as-left), Interval
+// PredictionInterval.
 type Estimate struct {
 	Deviation float64 `json:"deviation"`
 	Low       float64 `json:"low"`
 	High      float64 `json:"high"`
+	Interval  string  `json:"interval"`
 }
 
 // FitSummary is the evidence of a ticket: one fit of one window, with
@@ -113,35 +163,91 @@ func (t *Tracker) openTicket(now time.Time, w rolling.WindowSpec, coverage float
 		ID: t.sensor + "@" + now.Format("20060102T150405Z"), Sensor: t.sensor, Class: r.Class,
 		Opened: now, Reason: k, Severity: sev, Window: windowLabel(w), Unit: r.Unit,
 		AsLeft: t.asLeft, Tolerance: r.Tolerance, Span: [2]float64{r.SpanLower, r.SpanUpper},
-		Evidence: summarize(f, coverage), Caution: Caution,
+		Caution: Caution,
 	}
-	cr, upper, _ := r.crossing(f, t.asLeft)
-	tk.Crossing, tk.Edge = cr.Kind.String(), "lower"
+	t.estimate(&tk, now, coverage, f)
+	return tk
+}
+
+// estimate fills the estimates of tk (AsOf to AsFound) from trend fit f
+// at evaluation time now.
+func (t *Tracker) estimate(tk *Ticket, now time.Time, coverage float64, f *rolling.Fit) {
+	r := &t.rule
+	tk.AsOf, tk.Evidence = now, summarize(f, coverage)
+	tk.Exit, tk.ExitLowerBound, tk.ExitCI, tk.EarliestExit = time.Time{}, time.Time{}, [2]time.Time{}, time.Time{}
+	mc, upper, ok := r.meanExit(f, t.asLeft)
+	tk.Crossing, tk.Edge = mc.Kind.String(), "lower"
+	limit := t.asLeft - r.Tolerance
 	if upper {
-		tk.Edge = "upper"
+		tk.Edge, limit = "upper", t.asLeft+r.Tolerance
 	}
 	last := utc(f.Last)
-	if cr.EarliestOK {
+	at := func(d float64) time.Time { return last.Add(time.Duration(d * float64(day))) }
+	if cr, err := f.TimeToLimit(limit, upper, r.Horizon); err == nil && cr.EarliestOK {
 		tk.EarliestExit = last.Add(cr.Earliest)
 	}
-	switch cr.Kind {
-	case rolling.CrossPast:
-		tk.Due, tk.DueBasis = now, "already_out"
-	case rolling.CrossAhead:
-		tk.Exit = last.Add(cr.At)
-		tk.Due, tk.DueBasis = tk.Exit.Add(-r.TicketMargin), "predicted_exit"
+	if ok && mc.Kind == rolling.CrossAhead {
+		tk.Exit = at(mc.Days)
+	}
+	if ok && mc.LowerOK {
+		tk.ExitLowerBound = at(mc.LowerDays)
+	}
+	if ok && mc.IntervalOK {
+		tk.ExitCI = [2]time.Time{at(mc.LowDays), at(mc.HighDays)}
+	}
+	switch {
+	case ok && mc.Kind == rolling.CrossPast:
+		tk.Due, tk.DueBasis = now, DueAlreadyOut
+	case ok && mc.LowerOK:
+		tk.Due, tk.DueBasis = tk.ExitLowerBound.Add(-r.TicketMargin), DueExitLowerBound
 	default:
 		if lt := r.Limits.LeadTime.lowest(); lt > 0 {
-			tk.Due, tk.DueBasis = now.Add(lt), "lead_time"
+			tk.Due, tk.DueBasis = now.Add(lt), DueUnboundedLead
 		} else {
-			tk.Due, tk.DueBasis = now.Add(r.Horizon), "horizon"
+			tk.Due, tk.DueBasis = now.Add(r.Horizon), DueUnboundedHorizon
 		}
 	}
-	if tk.Due.Before(now) {
-		tk.Due = now
+	if tk.Due.Before(tk.Opened) {
+		tk.Due = tk.Opened
 	}
+	tk.Overdue = now.After(tk.Due)
+	tk.AsFound = Estimate{Interval: PredictionInterval}
 	if p, err := f.Predict(tk.Due); err == nil {
-		tk.AsFound = Estimate{Deviation: p.Value - t.asLeft, Low: p.Low - t.asLeft, High: p.High - t.asLeft}
+		tk.AsFound = Estimate{Deviation: p.Value - t.asLeft, Low: p.Low - t.asLeft, High: p.High - t.asLeft, Interval: PredictionInterval}
 	}
-	return tk
+}
+
+// bounded reports whether the due date of tk rests on evidence: the mean
+// is out or its exit has a lower bound.
+func (tk *Ticket) bounded() bool {
+	return tk.DueBasis == DueAlreadyOut || tk.DueBasis == DueExitLowerBound
+}
+
+// revise re-estimates the open ticket from trend fit f of its window,
+// judged at now, and returns the revision, or nil when the due date did
+// not move materially (see Ticket).
+func (t *Tracker) revise(now time.Time, coverage float64, f *rolling.Fit) *Ticket {
+	old := &t.ticket
+	if !now.After(old.AsOf) {
+		return nil
+	}
+	next := *old
+	t.estimate(&next, now, coverage, f)
+	if !next.bounded() && old.bounded() {
+		next = *old // keep the bounded date; only overdue may change
+		next.Overdue = now.After(next.Due)
+		next.AsOf = now
+	}
+	moved := next.Due.Sub(old.Due)
+	if moved < 0 {
+		moved = -moved
+	}
+	material := max(day, old.Due.Sub(now)/10)
+	if moved <= material && next.Overdue == old.Overdue {
+		return nil
+	}
+	next.Revision = old.Revision + 1
+	t.ticket = next
+	tk := next
+	return &tk
 }

@@ -49,8 +49,9 @@ type Decision struct {
 	Opened *Ticket
 	// Closed is the ticket a calibration closed, if any.
 	Closed *Ticket
-	// Revised is the open ticket when this evaluation re-estimated it
-	// and its due date moved materially (see Ticket.Revision).
+	// Revised is the open ticket when an evaluation of its window revised
+	// it: its due date moved materially or it fell overdue (see Ticket,
+	// Revisions). The caller publishes and stores it like an opening.
 	Revised *Ticket
 	// Judgement says whether Evaluate judged the window, or why not;
 	// zero for Observe and Calibrate.
@@ -195,6 +196,16 @@ func (t *Tracker) evaluate(now time.Time, sol *rolling.Solution, peers *[2]int) 
 			t.ticket, t.hasTicket = t.openTicket(now, sol.Window, sol.Coverage(), trend, k, m.sev), true
 			tk := t.ticket
 			d.Opened = &tk
+		}
+	}
+	if t.hasTicket && d.Opened == nil && t.ticket.Window == windowLabel(sol.Window) {
+		if judged {
+			d.Revised = t.revise(now, sol.Coverage(), trend)
+		} else if tk := &t.ticket; !tk.Overdue && now.After(tk.Due) {
+			// No new estimate, but the date has passed.
+			tk.Overdue, tk.AsOf, tk.Revision = true, now, tk.Revision+1
+			c := *tk
+			d.Revised = &c
 		}
 	}
 	return d, nil

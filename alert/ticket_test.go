@@ -1,0 +1,138 @@
+package alert_test
+
+import (
+	"math"
+	"reflect"
+	"testing"
+	"time"
+
+	"gonum.org/v1/gonum/stat/distuv"
+
+	"driftfit/alert"
+	"driftfit/rolling"
+)
+
+// fiellerLower is the one-sided 95% lower bound of the time a line
+// c0 + c1·τ reaches L from below, with Var c0 = v00, Cov = 0 and
+// Var c1 = v11 at df degrees of freedom: the smaller root of Fieller's
+// quadratic (c1² − t²v11)τ² + 2(c0 − L)c1·τ + (c0 − L)² − t²v00 = 0
+// (Fieller 1954, J. R. Stat. Soc. B 16(2), 175–185), t = t⁻¹(0.95; df),
+// written out here apart from rolling's code.
+func fiellerLower(c0, c1, v00, v11, L float64, df int) float64 {
+	tq := distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(df)}.Quantile(0.95)
+	b0 := c0 - L
+	a, b, c := c1*c1-tq*tq*v11, b0*c1, b0*b0-tq*tq*v00
+	return (-b - math.Sqrt(b*b-a*c)) / a
+}
+
+// TestTracker_Ticket_DueFromLowerBound: the scenario's ticket (month
+// window, line at the as-left 100 kPa rising 0.15 kPa/d, SE 0.01 on both
+// coefficients, 28 df, band ±1 kPa) with a margin of 1 day. By hand:
+// t = 1.7011 (R qt(0.95, 28), from memory), a = 0.0225 − 2.894e-4,
+// b = −0.15, c = 1 − 2.894e-4, lower root 5.979 days; the point exit is
+// 1/0.15 = 6.667 days. Due = 5.979 − 1 = 4.979 days after the newest
+// reading.
+func TestTracker_Ticket_DueFromLowerBound(t *testing.T) {
+	r := scenarioRule()
+	r.TicketMargin = day
+	tr := mustTracker(t, "qm.u2.dp-7", r)
+	sol := lineSol(month, t0, warnC1, se)
+	d, err := tr.Evaluate(t0, &sol)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d.Opened == nil {
+		t.Fatal("no ticket opened")
+	}
+	tk := *d.Opened
+	lower := fiellerLower(100, warnC1, 0.01*0.01, se*se, 101, 28)
+	if math.Abs(lower-5.979) > 0.001 {
+		t.Fatalf("hand-worked lower bound %v, want 5.979", lower)
+	}
+	at := func(days float64) time.Time { return t0.Add(time.Duration(days * float64(day))) }
+	if got := tk.ExitLowerBound.Sub(at(lower)); got < -time.Second || got > time.Second {
+		t.Errorf("ExitLowerBound %v, want %v (%.4f days)", tk.ExitLowerBound, at(lower), lower)
+	}
+	if got := tk.Due.Sub(at(lower - 1)); got < -time.Second || got > time.Second || tk.DueBasis != alert.DueExitLowerBound {
+		t.Errorf("Due %v (%s), want %v: the lower bound less the 1-day margin", tk.Due, tk.DueBasis, at(lower-1))
+	}
+	if !tk.Exit.After(tk.ExitLowerBound) || !tk.ExitCI[0].Before(tk.Exit) || !tk.ExitCI[1].After(tk.Exit) {
+		t.Errorf("exit %v, lower bound %v, Fieller interval %v: want bound < exit inside the interval", tk.Exit, tk.ExitLowerBound, tk.ExitCI)
+	}
+	if tk.Revision != 0 || !tk.AsOf.Equal(t0) || tk.Overdue || tk.AsFound.Interval != alert.PredictionInterval {
+		t.Errorf("ticket revision %d as of %v overdue %v interval %q, want 0, %v, false, %q",
+			tk.Revision, tk.AsOf, tk.Overdue, tk.AsFound.Interval, t0, alert.PredictionInterval)
+	}
+}
+
+// TestTracker_Ticket_Revisions re-estimates the ticket of
+// TestTracker_Ticket_DueFromLowerBound (due 4.979 days after t0) at
+// later evaluations of its window. The rule: revise when Due moves by
+// more than max(1 day, a tenth of the time it had left) or falls overdue;
+// an estimate without a bound keeps the bounded date.
+func TestTracker_Ticket_Revisions(t *testing.T) {
+	r := scenarioRule()
+	r.TicketMargin = day
+	// Line at level c0 rising c1 per day, newest reading at `last`.
+	sol := func(last time.Time, c0, c1 float64) rolling.Solution {
+		s := lineSol(month, last, c1, se)
+		s.Line.Coef[0] = c0
+		s.Line.CI[0] = [2]float64{c0 - s.Line.TCrit*0.01, c0 + s.Line.TCrit*0.01}
+		return s
+	}
+	type step struct {
+		name    string
+		at      time.Duration // after t0
+		c0, c1  float64
+		revised bool
+		basis   string
+		overdue bool
+	}
+	steps := []step{
+		{"same trend a day later: due unchanged", day, 100.15, warnC1, false, "", false},
+		// c1 0.12: bound (101 − 100.3)/… about 5.2 days from day 2, due
+		// about day 6.2, 1.2 days later than 4.98: more than max(1 d,
+		// 0.298 d).
+		{"slower drift moves due by over a day", 2 * day, 100.3, 0.12, true, alert.DueExitLowerBound, false},
+		{"no significant rate: the bounded date stays", 3 * day, 100.3, 0.001, false, "", false},
+		{"due date passed", 8 * day, 100.3, 0.001, true, alert.DueExitLowerBound, true},
+		{"overdue already flagged", 9 * day, 100.3, 0.001, false, "", true},
+	}
+	tr := mustTracker(t, "qm.u2.dp-7", r)
+	first := sol(t0, 100, warnC1)
+	if d, err := tr.Evaluate(t0, &first); err != nil || d.Opened == nil {
+		t.Fatalf("opening: %v, %+v", err, d)
+	}
+	rev := 0
+	for _, s := range steps {
+		now := t0.Add(s.at)
+		in := sol(now, s.c0, s.c1)
+		before, _ := tr.Ticket()
+		d, err := tr.Evaluate(now, &in)
+		if err != nil {
+			t.Fatal(err)
+		}
+		after, _ := tr.Ticket()
+		if (d.Revised != nil) != s.revised {
+			t.Errorf("%s: revised %v, want %v (due %v → %v)", s.name, d.Revised != nil, s.revised, before.Due, after.Due)
+			continue
+		}
+		if after.Overdue != s.overdue {
+			t.Errorf("%s: overdue %v, want %v (due %v, now %v)", s.name, after.Overdue, s.overdue, after.Due, now)
+		}
+		if !s.revised {
+			if after.Due != before.Due || after.Revision != before.Revision {
+				t.Errorf("%s: ticket changed without a revision: due %v → %v", s.name, before.Due, after.Due)
+			}
+			continue
+		}
+		rev++
+		tk := d.Revised
+		if tk.Revision != rev || !tk.AsOf.Equal(now) || tk.DueBasis != s.basis || tk.ID != before.ID || !tk.Opened.Equal(t0) {
+			t.Errorf("%s: revision %d as of %v basis %s id %s, want %d, %v, %s, %s", s.name, tk.Revision, tk.AsOf, tk.DueBasis, tk.ID, rev, now, s.basis, before.ID)
+		}
+		if !reflect.DeepEqual(*tk, after) {
+			t.Errorf("%s: Decision.Revised differs from the tracker's ticket", s.name)
+		}
+	}
+}
