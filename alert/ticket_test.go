@@ -66,10 +66,13 @@ func TestTracker_Ticket_DueFromLowerBound(t *testing.T) {
 }
 
 // TestTracker_Ticket_Revisions re-estimates the ticket of
-// TestTracker_Ticket_DueFromLowerBound (due 4.979 days after t0) at
-// later evaluations of its window. The rule: revise when Due moves by
-// more than max(1 day, a tenth of the time it had left) or falls overdue;
-// an estimate without a bound keeps the bounded date.
+// TestTracker_Ticket_DueFromLowerBound (due 4.979 days after t0, fitted
+// exit 6.667) at later evaluations of its window. The rule (see Ticket):
+// revise when Due moves sooner by more than max(1 day, a quarter of the
+// time it had left), later by more than max(7 days, a quarter) with the
+// new lower bound past the old fitted exit, or it falls overdue; an
+// estimate without a bound keeps the bounded date; an overdue ticket is
+// not revised again while it stays overdue. Bounds by fiellerLower.
 func TestTracker_Ticket_Revisions(t *testing.T) {
 	r := scenarioRule()
 	r.TicketMargin = day
@@ -82,21 +85,24 @@ func TestTracker_Ticket_Revisions(t *testing.T) {
 	}
 	type step struct {
 		name    string
-		at      time.Duration // after t0
+		at      float64 // days after t0
 		c0, c1  float64
 		revised bool
 		basis   string
 		overdue bool
 	}
 	steps := []step{
-		{"same trend a day later: due unchanged", day, 100.15, warnC1, false, "", false},
-		// c1 0.12: bound (101 − 100.3)/… about 5.2 days from day 2, due
-		// about day 6.2, 1.2 days later than 4.98: more than max(1 d,
-		// 0.298 d).
-		{"slower drift moves due by over a day", 2 * day, 100.3, 0.12, true, alert.DueExitLowerBound, false},
-		{"no significant rate: the bounded date stays", 3 * day, 100.3, 0.001, false, "", false},
-		{"due date passed", 8 * day, 100.3, 0.001, true, alert.DueExitLowerBound, true},
-		{"overdue already flagged", 9 * day, 100.3, 0.001, false, "", true},
+		// Bound 5.979 d from day 1: due 5.979 d after t0, 1 day later:
+		// under 7 days.
+		{"same trend a day later", 1, 100.15, warnC1, false, "", false},
+		// Bound about 1.5 d from day 1.5: due near day 2, about 3 days
+		// sooner, more than max(1 d, 3.48/4 d).
+		{"faster drift: due sooner", 1.5, 100.5, 0.3, true, alert.DueExitLowerBound, false},
+		{"no significant rate: the bounded date stays", 1.75, 100.5, 0.001, false, "", false},
+		// Bound about 2.2 d from day 1.8: due about a day later: under 7 days.
+		{"a little slower: within the evidence", 1.8, 100.5, 0.2, false, "", false},
+		{"due date passed", 3, 100.5, 0.001, true, alert.DueExitLowerBound, true},
+		{"overdue already flagged", 4, 100.5, 0.3, false, "", true},
 	}
 	tr := mustTracker(t, "qm.u2.dp-7", r)
 	first := sol(t0, 100, warnC1)
@@ -105,7 +111,7 @@ func TestTracker_Ticket_Revisions(t *testing.T) {
 	}
 	rev := 0
 	for _, s := range steps {
-		now := t0.Add(s.at)
+		now := t0.Add(time.Duration(s.at * float64(day)))
 		in := sol(now, s.c0, s.c1)
 		before, _ := tr.Ticket()
 		d, err := tr.Evaluate(now, &in)

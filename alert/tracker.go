@@ -201,11 +201,8 @@ func (t *Tracker) evaluate(now time.Time, sol *rolling.Solution, peers *[2]int) 
 	if t.hasTicket && d.Opened == nil && t.ticket.Window == windowLabel(sol.Window) {
 		if judged {
 			d.Revised = t.revise(now, sol.Coverage(), trend)
-		} else if tk := &t.ticket; !tk.Overdue && now.After(tk.Due) {
-			// No new estimate, but the date has passed.
-			tk.Overdue, tk.AsOf, tk.Revision = true, now, tk.Revision+1
-			c := *tk
-			d.Revised = &c
+		} else {
+			d.Revised = t.markOverdue(now) // no new estimate, but the date may have passed
 		}
 	}
 	return d, nil
