@@ -42,10 +42,11 @@
 // A window is judged only when it holds MinReadings readings, MinCoverage
 // of its panes have data, its trend fit is OK, positive definite, has a
 // condition number at most MaxCond and finite numbers, and its standard
-// errors can be trusted (seFor: the serial-correlation correction, once
-// rolling provides it, could be estimated); otherwise Decision.Judgement
-// says why not (TooFewReadings, LowCoverage, IllConditioned,
-// SerialUnknown, and PeersIncomplete from EvaluatePeers). Each limit
+// errors can be trusted (seFor: the serial-correlation correction could
+// be estimated, and the effective count of independent readings it
+// implies is at least MinReadings); otherwise Decision.Judgement says why
+// not (TooFewReadings, LowCoverage, IllConditioned, SerialUnknown,
+// FewEffective, and PeersIncomplete from EvaluatePeers). Each limit
 // level L is then breached when the bound of the 95% confidence interval
 // nearest to "no change" lies beyond L, and the estimate lies beyond the
 // significance floor q·SE, q from the alarm budget (see Budget):

@@ -38,10 +38,12 @@ type Rule struct {
 	// or rolling.Parabola. Zero means rolling.Line.
 	TrendModel rolling.Model
 
-	// MinReadings is the least N of a window before it is evaluated.
-	// Zero means 30 (the usual rule-of-thumb sample size for
-	// normal-theory intervals, common practice). At least 4, so that a
-	// parabola keeps one degree of freedom.
+	// MinReadings is the least N of a window before it is evaluated,
+	// and the least effective count of independent readings of its
+	// trend fit (Fit.NEff, when the fit carries the serial correction;
+	// see FewEffective). Zero means 30 (the usual rule-of-thumb sample
+	// size for normal-theory intervals, common practice). At least 4, so
+	// that a parabola keeps one degree of freedom.
 	MinReadings int
 	// MinCoverage is the least fraction of a window's panes holding
 	// readings before it is evaluated, 0..1. Zero means no requirement
