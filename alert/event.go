@@ -22,10 +22,14 @@ const Caution = "driftfit is an aid to maintenance planning: it supports, and ne
 //   - Doubling: c1 of the exp fit, the growth rate in 1/d; the doubling
 //     time is ln 2 / Value and the limit ln 2 / (level in days).
 //   - LeadTime: days from the fit's newest reading until the fitted trend
-//     leaves the tolerance band (0: already out); CI is from the earliest
-//     touch of the 95% prediction band to when the whole band is out.
-//     When the trend stays inside within the horizon, Value (and any CI
-//     end not reached) is the horizon and BeyondHorizon is true.
+//     leaves the tolerance band (0: already out); CI is the 95%
+//     confidence interval of that time from the confidence band of the
+//     mean the gate judges (serially corrected): from when the band's
+//     near edge reaches the tolerance edge to when the whole band is out,
+//     CI[1] being the bound the gate compared with Limit (a breach also
+//     needs the mean to clear the significance floor, see doc.go). When
+//     the trend stays inside within the horizon, Value (and any CI end
+//     not reached) is the horizon and BeyondHorizon is true.
 //   - Step: the estimated step size in Unit; Limit the CUSUM's decision
 //     interval in standard deviations.
 //   - Flatline and Silent: days stuck or silent; Limit the configured

@@ -187,7 +187,7 @@ func (r *Rule) leadEvidence(f *rolling.Fit, asLeft float64, needCross bool, p fl
 	if ev.sev == SeverityUnknown && !needCross {
 		return ev
 	}
-	cr, _, ok := r.crossing(f, asLeft)
+	cr, upper, ok := r.crossing(f, asLeft)
 	if !ok {
 		return evidence{}
 	}
@@ -201,15 +201,56 @@ func (r *Rule) leadEvidence(f *rolling.Fit, asLeft float64, needCross bool, p fl
 	default:
 		ev.beyond = true
 	}
-	if cr.EarliestOK {
-		ev.ci[0] = days(cr.Earliest)
+	// The interval of the exit time from the gate's own band: the near
+	// edge of the mean's band reaching the tolerance edge, and the far
+	// edge (the whole band out, what the gate compares with the level).
+	edge, sgn := asLeft-r.Tolerance, -1.0
+	if upper {
+		edge, sgn = asLeft+r.Tolerance, 1
 	}
-	if cr.LatestOK {
-		ev.ci[1] = days(cr.Latest)
+	out := func(far float64) func(float64) float64 {
+		return func(tau float64) float64 {
+			m, h := b.at(tau)
+			return sgn*(m-edge) - far*h*scale
+		}
+	}
+	if tau, ok := firstNonNegative(out(-1), hd); ok {
+		ev.ci[0] = tau
+	}
+	if tau, ok := firstNonNegative(out(1), hd); ok {
+		ev.ci[1] = tau
 	}
 	ev.clear = cr.Kind == rolling.CrossNever ||
 		(cr.Kind == rolling.CrossAhead && float64(cr.At) > float64(l.lowest())/r.ClearFraction)
 	return ev
+}
+
+// firstNonNegative returns the first τ in [0, h] with g(τ) ≥ 0, to a
+// millionth of h: a scan of 256 steps, then bisection of the step where
+// g changes sign. False when g stays negative at every step.
+func firstNonNegative(g func(float64) float64, h float64) (float64, bool) {
+	const steps = 256
+	if g(0) >= 0 {
+		return 0, true
+	}
+	prev := 0.0
+	for k := 1; k <= steps; k++ {
+		tau := h * float64(k) / steps
+		if g(tau) < 0 {
+			prev = tau
+			continue
+		}
+		lo, hi := prev, tau
+		for hi-lo > h*1e-6 {
+			if mid := (lo + hi) / 2; g(mid) >= 0 {
+				hi = mid
+			} else {
+				lo = mid
+			}
+		}
+		return hi, true
+	}
+	return 0, false
 }
 
 // band is the fitted trend m(τ) and the variance of its mean,

@@ -12,17 +12,51 @@ import (
 	"driftfit/rolling"
 )
 
-// fiellerLower is the one-sided 95% lower bound of the time a line
-// c0 + c1·τ reaches L from below, with Var c0 = v00, Cov = 0 and
-// Var c1 = v11 at df degrees of freedom: the smaller root of Fieller's
-// quadratic (c1² − t²v11)τ² + 2(c0 − L)c1·τ + (c0 − L)² − t²v00 = 0
-// (Fieller 1954, J. R. Stat. Soc. B 16(2), 175–185), t = t⁻¹(0.95; df),
-// written out here apart from rolling's code.
-func fiellerLower(c0, c1, v00, v11, L float64, df int) float64 {
-	tq := distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(df)}.Quantile(0.95)
+// fiellerRoots are the roots lo ≤ hi of Fieller's quadratic for the time
+// a line c0 + c1·τ reaches L from below, with Var c0 = v00, Cov = 0 and
+// Var c1 = v11 at df degrees of freedom,
+// (c1² − t²v11)τ² + 2(c0 − L)c1·τ + (c0 − L)² − t²v00 = 0
+// (Fieller 1954, J. R. Stat. Soc. B 16(2), 175–185), t the quantile at
+// level of Student's t, written out here apart from the package's code.
+func fiellerRoots(c0, c1, v00, v11, L float64, df int, level float64) (lo, hi float64) {
+	tq := distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(df)}.Quantile(level)
 	b0 := c0 - L
 	a, b, c := c1*c1-tq*tq*v11, b0*c1, b0*b0-tq*tq*v00
-	return (-b - math.Sqrt(b*b-a*c)) / a
+	return (-b - math.Sqrt(b*b-a*c)) / a, (-b + math.Sqrt(b*b-a*c)) / a
+}
+
+// fiellerLower is the one-sided 95% lower bound: the smaller root at 0.95.
+func fiellerLower(c0, c1, v00, v11, L float64, df int) float64 {
+	lo, _ := fiellerRoots(c0, c1, v00, v11, L, df, 0.95)
+	return lo
+}
+
+// TestTracker_LeadTimeEvent_Interval: the scenario's lead-time alert on
+// the month window shows the 95% interval of the exit time from the
+// confidence band of the mean the gate judges; for a line it is
+// Fieller's two-sided interval, (5.855, 7.731) days for c0 = 100,
+// c1 = 0.15, SE 0.01 each, 28 df, the edge at 101, and the ticket's
+// ExitCI (rolling's closed form) agrees.
+func TestTracker_LeadTimeEvent_Interval(t *testing.T) {
+	_, events, tk := scenario(t)
+	lo, hi := fiellerRoots(100, warnC1, 1e-4, se*se, 101, 28, 0.975)
+	var found bool
+	for _, e := range events {
+		if e.Kind != alert.LeadTime || e.Window != "30d/1d" || e.Type != alert.Raised {
+			continue
+		}
+		found = true
+		if math.Abs(e.CI[0]-lo) > 1e-3 || math.Abs(e.CI[1]-hi) > 1e-3 {
+			t.Errorf("lead-time CI %v, want Fieller's (%.4f, %.4f) days", e.CI, lo, hi)
+		}
+	}
+	if !found {
+		t.Fatal("no lead-time alert raised on the month window")
+	}
+	at := func(d float64) time.Time { return t0.Add(time.Duration(d * float64(day))) }
+	if d0, d1 := tk.ExitCI[0].Sub(at(lo)), tk.ExitCI[1].Sub(at(hi)); d0.Abs() > time.Second || d1.Abs() > time.Second {
+		t.Errorf("ticket ExitCI %v, want Fieller's %v, %v", tk.ExitCI, at(lo), at(hi))
+	}
 }
 
 // TestTracker_Ticket_DueFromLowerBound: the scenario's ticket (month
