@@ -18,6 +18,7 @@ import (
 //	u32 machine count, each: span i64, pane i64, kind u8, state u8,
 //	  sev u8, streak u32, crit u32, since time, cleared time
 //	hasTicket bool, then the ticket if true
+//	(version 2) serial r1 f64, pairs u32, window span i64, pane i64
 //
 // str is u32 length + bytes; bool is one byte 0 or 1; time is a bool
 // (present) + i64 Unix nanoseconds, 0 when absent; f64 is IEEE 754 bits
@@ -56,6 +57,10 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	if t.hasTicket {
 		e.ticket(&t.ticket)
 	}
+	e.f64(t.serialR1)
+	e.u32(t.serialPairs)
+	e.i64(int64(t.serialWin.Span))
+	e.i64(int64(t.serialWin.Pane))
 	return e.b, nil
 }
 
@@ -119,6 +124,21 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	n.hasTicket = d.bool()
 	if n.hasTicket {
 		d.ticket(&n.ticket)
+	}
+	if d.version >= 2 {
+		n.serialR1 = d.f64()
+		n.serialPairs = d.u32()
+		n.serialWin.Span = time.Duration(d.i64())
+		n.serialWin.Pane = time.Duration(d.i64())
+		if d.err == nil && !(n.serialR1 > -1 && n.serialR1 < 1) {
+			d.fail("serial r1 %v outside (-1, 1)", n.serialR1)
+		}
+		if d.err == nil && (n.serialPairs == 0) != (n.serialWin == rolling.WindowSpec{}) {
+			d.fail("serial estimate of %d pairs on window %v/%v", n.serialPairs, n.serialWin.Span, n.serialWin.Pane)
+		}
+		if d.err == nil && n.serialPairs == 0 && n.serialR1 != 0 {
+			d.fail("serial r1 %v without pairs", n.serialR1)
+		}
 	}
 	if d.err == nil && len(d.b) != 0 {
 		d.fail("%d bytes after the state", len(d.b))

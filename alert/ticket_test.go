@@ -2,6 +2,7 @@ package alert_test
 
 import (
 	"math"
+	"math/rand/v2"
 	"reflect"
 	"testing"
 	"time"
@@ -174,5 +175,71 @@ func TestTracker_Ticket_Revisions(t *testing.T) {
 		if !reflect.DeepEqual(*tk, after) {
 			t.Errorf("%s: Decision.Revised differs from the tracker's ticket", s.name)
 		}
+	}
+}
+
+// TestTracker_Evaluate_LongerSerialEstimate: AR(1) noise of φ 0.9 read
+// every 10 minutes for 31 days. The 1-day window's own lag-1 estimate
+// (143 pairs) is biased low; the tracker judges it with the 30-day
+// window's (4,319 pairs) when that is larger, so its effective count is
+// N(1 − r)/(1 + r) with the 30-day r, about 144·0.1/1.9 = 7.6, below
+// MinReadings 30: not judged (FewEffective). The estimate survives a
+// state round trip.
+func TestTracker_Evaluate_LongerSerialEstimate(t *testing.T) {
+	const seed = 20261204
+	t.Logf("seed %d", seed)
+	rng := rand.New(rand.NewPCG(seed, 1))
+	r := ptRule()
+	tr := mustTracker(t, "qm.u1.steam.pt-101", r)
+	s, err := rolling.NewSensor(r.Windows...)
+	if err != nil {
+		t.Fatal(err)
+	}
+	g := newNoiseGen(noiseSpec{step: 10 * time.Minute, phi: 0.9}, rng)
+	end := t0.Add(31 * day)
+	for at := t0; !at.After(end); at = at.Add(10 * time.Minute) {
+		if at.Equal(end) {
+			break
+		}
+		if err := s.Add(rolling.Reading{UnixNano: at.UnixNano(), Value: ptLevel + g.next(rng, 0, at.Equal(t0))}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	long := s.SolveJudged(1)
+	short := s.SolveJudged(0)
+	if long.Parabola.SerialErr != nil || short.Parabola.SerialErr != nil || short.Parabola.R1 >= long.Parabola.R1 {
+		t.Fatalf("r1 of the 1-day window %v (%v), of the 30-day window %v (%v): want both known, the 1-day smaller",
+			short.Parabola.R1, short.Parabola.SerialErr, long.Parabola.R1, long.Parabola.SerialErr)
+	}
+	if _, err := tr.Evaluate(end, &long); err != nil {
+		t.Fatal(err)
+	}
+	d, err := tr.Evaluate(end, &short)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rr := max(long.Parabola.R1, 0)
+	want := float64(short.Line.N) * (1 - rr) / (1 + rr)
+	if d.Judgement.Reason != alert.FewEffective || math.Abs(d.Judgement.NEff-want) > 1e-9*want {
+		t.Errorf("1-day window judgement %v, n_eff %.3f; want %v with n_eff %.3f from the 30-day r1 %.4f (own %.4f)",
+			d.Judgement.Reason, d.Judgement.NEff, alert.FewEffective, want, long.Parabola.R1, short.Parabola.R1)
+	}
+	b, err := tr.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	back := mustTracker(t, "qm.u1.steam.pt-101", r)
+	if err := back.UnmarshalBinary(b); err != nil {
+		t.Fatal(err)
+	}
+	if !reflect.DeepEqual(tr, back) {
+		t.Error("state round trip lost the serial estimate")
+	}
+	d2, err := back.Evaluate(end.Add(time.Hour), &short)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d2.Judgement.NEff != d.Judgement.NEff {
+		t.Errorf("after a round trip n_eff %v, want %v", d2.Judgement.NEff, d.Judgement.NEff)
 	}
 }

@@ -25,6 +25,14 @@ type Tracker struct {
 	ticket     Ticket
 	hasTicket  bool
 
+	// The serial-correlation estimate of the sensor's window with the
+	// most pairs (its Parabola fit's R1 and Pairs), kept across
+	// evaluations and calibrations (it describes the noise, not an
+	// alert); see withSerial.
+	serialR1    float64
+	serialPairs uint32
+	serialWin   rolling.WindowSpec
+
 	alpha [][]float64 // per window and kind, from the budget; not state
 }
 
@@ -159,6 +167,7 @@ func (t *Tracker) evaluate(now time.Time, sol *rolling.Solution, peers *[2]int) 
 		return d, fmt.Errorf("%w: sensor %s window %s first reading %v, calibrated %v",
 			ErrStale, t.sensor, WindowName(sol.Window), utc(sol.First), t.calibrated)
 	}
+	sol = t.withSerial(sol)
 	trend := sol.Fit(r.TrendModel)
 	if !r.usable(trend) && r.usable(&sol.Line) {
 		trend = &sol.Line
@@ -208,6 +217,37 @@ func (t *Tracker) evaluate(now time.Time, sol *rolling.Solution, peers *[2]int) 
 	return d, nil
 }
 
+// withSerial keeps the serial-correlation estimate of the sensor's
+// window with the most pairs, and returns sol carrying that estimate
+// (rolling.Solution.WithSerial) when sol's own is smaller, or unknown,
+// and rests on fewer pairs; else sol.
+//
+// A short window's own lag-1 autocorrelation is biased low and spread
+// wide when the noise's correlation time is not small against the window:
+// its residuals about a fitted trend have lost the slow part of the
+// noise. On AR(1) noise of φ 0.9 read every 10 minutes, the 1-day
+// window's own estimate (143 pairs) let it judge and open 2 false slope
+// tickets in 11 sensor-years (TestDetection_PlantNoise before the drift),
+// where the 30-day window's 4,319 pairs say n_e = 7.6, too few to judge
+// (FewEffective). Taking the larger r1 never narrows an interval.
+// rolling.Sensor.SolveJudged borrows only when a window has fewer than
+// rolling.MinPairs pairs; this goes on from there. A solution that
+// carries no serial information (Pairs 0) is left alone.
+func (t *Tracker) withSerial(sol *rolling.Solution) *rolling.Solution {
+	p := &sol.Parabola
+	if p.Pairs <= 0 {
+		return sol
+	}
+	if p.SerialErr == nil && (uint32(p.Pairs) >= t.serialPairs || sol.Window == t.serialWin) {
+		t.serialR1, t.serialPairs, t.serialWin = p.R1, uint32(p.Pairs), sol.Window
+	}
+	if t.serialPairs > uint32(p.Pairs) && (p.SerialErr != nil || t.serialR1 > p.R1) {
+		c := sol.WithSerial(t.serialR1, int(t.serialPairs))
+		return &c
+	}
+	return sol
+}
+
 // OpenTicket opens the ticket of the firing alert of kind k on sol's
 // window, for a caller that decides on tickets itself: a peer-group
 // member whose rule sets TicketKinds to an empty slice, so that raises
@@ -230,6 +270,7 @@ func (t *Tracker) OpenTicket(now time.Time, sol *rolling.Solution, k Kind) (Deci
 		return d, fmt.Errorf("%w: sensor %s window %s first reading %v, calibrated %v",
 			ErrStale, t.sensor, WindowName(sol.Window), utc(sol.First), t.calibrated)
 	}
+	sol = t.withSerial(sol)
 	trend := sol.Fit(r.TrendModel)
 	if !r.usable(trend) && r.usable(&sol.Line) {
 		trend = &sol.Line
