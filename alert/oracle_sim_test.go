@@ -2,6 +2,7 @@ package alert_test
 
 import (
 	"math"
+	"testing"
 
 	"gonum.org/v1/gonum/stat/distuv"
 
@@ -152,4 +153,70 @@ func (o *oracleGate) judge(w int) bool {
 		}
 	}
 	return raised
+}
+
+// TestOracleGate_AR1Inverse checks the oracle's formulas: Σ·Q/(σ²(1 − φ²))
+// is the identity for Σᵢⱼ = σ²·φ^|i−j| and Q the tridiagonal matrix of
+// oracleGate's comment (n = 7, φ = 0.7, σ² = 2.5, exact to rounding);
+// the covariance gls forms from the Prais–Winsten sums equals
+// (Xᵀ Σ⁻¹ X)⁻¹ formed with Q directly; and z975 is gonum's normal
+// quantile.
+func TestOracleGate_AR1Inverse(t *testing.T) {
+	const n, phi, s2 = 7, 0.7, 2.5
+	var sigma, q [n][n]float64
+	for i := range n {
+		for j := range n {
+			sigma[i][j] = s2 * math.Pow(phi, math.Abs(float64(i-j)))
+		}
+		q[i][i] = 1 + phi*phi
+		if i > 0 {
+			q[i][i-1], q[i-1][i] = -phi, -phi
+		}
+	}
+	q[0][0], q[n-1][n-1] = 1, 1
+	for i := range n {
+		for j := range n {
+			var v float64
+			for k := range n {
+				v += sigma[i][k] * q[k][j]
+			}
+			v /= s2 * (1 - phi*phi)
+			want := 0.0
+			if i == j {
+				want = 1
+			}
+			if math.Abs(v-want) > 1e-12 {
+				t.Fatalf("(Σ·Q)/(σ²(1−φ²))[%d][%d] = %v, want %v", i, j, v, want)
+			}
+		}
+	}
+	// gls on readings at τ = 0..n−1 days against (Xᵀ Σ⁻¹ X)⁻¹ from Q.
+	o := &oracleGate{phi: phi, s2e: s2 * (1 - phi*phi), d: make([]float64, n), v: make([]float64, n)}
+	for i := range n {
+		o.add(float64(i), float64(i*i%5))
+	}
+	_, _, v00, v01, v11 := o.gls(n)
+	var a00, a01, a11 float64 // Xᵀ Q X with x = (1, τ − τ_last)
+	for i := range n {
+		for j := range n {
+			ti, tj := float64(i-(n-1)), float64(j-(n-1))
+			a00 += q[i][j]
+			a01 += q[i][j] * tj
+			a11 += ti * q[i][j] * tj
+		}
+	}
+	k := 1 / (s2 * (1 - phi*phi))
+	a00, a01, a11 = k*a00, k*a01, k*a11
+	det := a00*a11 - a01*a01
+	for _, c := range []struct {
+		name      string
+		got, want float64
+	}{{"Var c0", v00, a11 / det}, {"Cov", v01, -a01 / det}, {"Var c1", v11, a00 / det}} {
+		if math.Abs(c.got-c.want) > 1e-12*math.Abs(c.want) {
+			t.Errorf("gls %s = %v, want %v from Q", c.name, c.got, c.want)
+		}
+	}
+	if z := distuv.UnitNormal.Quantile(0.975); math.Abs(z-z975) > 1e-14 {
+		t.Errorf("z975 = %v, gonum %v", z975, z)
+	}
 }
