@@ -6,6 +6,7 @@ import (
 	"math/rand/v2"
 	"runtime"
 	"slices"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -16,7 +17,21 @@ import (
 	"driftfit/rolling"
 )
 
-var simLong = flag.Bool("sim", false, "run the long simulations of plant noise: 1,000 sensor-years per noise type")
+var (
+	simLong = flag.Bool("sim", false, "run the long simulations of plant noise: 1,000 sensor-years per noise type")
+	simOnly = flag.String("sim.noise", "", "with -sim, run only the noise types whose name contains this")
+)
+
+// simNoises returns the noise types of noises that -sim.noise selects.
+func simNoises(noises []noiseSpec) []noiseSpec {
+	var out []noiseSpec
+	for _, ns := range noises {
+		if strings.Contains(ns.name, *simOnly) {
+			out = append(out, ns)
+		}
+	}
+	return out
+}
 
 // ptLevel and ptSigma are the simulated pressure transmitter: a true level
 // of 1,000 kPa, left there by its last calibration, with noise of
@@ -287,7 +302,7 @@ func poissonUpper(mean float64) int {
 func TestBudget_PlantNoise(t *testing.T) {
 	noises, n := []noiseSpec{plantNoises[2]}, 50
 	if *simLong {
-		noises, n = plantNoises, 1000
+		noises, n = simNoises(plantNoises), 1000
 	} else if testing.Short() {
 		t.Skip("simulation of 50 sensor-years; run without -short")
 	}
@@ -345,7 +360,7 @@ var detectNoises = []noiseSpec{plantNoises[0], plantNoises[2], plantNoises[1], p
 func TestDetection_PlantNoise(t *testing.T) {
 	noises, mults, n := []noiseSpec{plantNoises[0]}, []float64{2}, 40
 	if *simLong {
-		noises, mults, n = detectNoises, []float64{1, 2, 3}, 100
+		noises, mults, n = simNoises(detectNoises), []float64{1, 2, 3}, 100
 	} else if testing.Short() {
 		t.Skip("simulation of 40 drifting sensors; run without -short")
 	}
