@@ -19,7 +19,7 @@ import (
 
 var (
 	simLong = flag.Bool("sim", false, "run the long simulations of plant noise: 1,000 sensor-years per noise type")
-	simOnly = flag.String("sim.noise", "", "with -sim, run only the noise types whose name contains this")
+	simOnly = flag.String("sim.noise", "", "with -sim, run only the noise types whose name contains this (seeds count from the first type selected)")
 )
 
 // simNoises returns the noise types of noises that -sim.noise selects.
