@@ -177,7 +177,7 @@ func (w *worker) decided(ref *sensorRef, e *alertEntry, d alert.Decision) {
 			subject: w.s.alertPrefix + ev.Sensor, id: eventID(&ev), data: data,
 		})})
 	}
-	for _, tk := range []*alert.Ticket{d.Opened, d.Closed} {
+	for _, tk := range []*alert.Ticket{d.Opened, d.Revised, d.Closed} {
 		if tk == nil {
 			continue
 		}
@@ -214,14 +214,17 @@ func eventID(ev *alert.Event) string {
 		strconv.FormatInt(ev.At.UnixNano(), 10)
 }
 
-// ticketRevisionID names one revision of a ticket (its opening or its
-// closing) for deduplication: Nats-Msg-Id on the bus, Idempotency-Key for
-// the webhook.
+// ticketRevisionID names one revision of a ticket (its opening, each
+// revision of its due date, its closing) for deduplication: Nats-Msg-Id
+// on the bus, Idempotency-Key for the webhook.
 func ticketRevisionID(tk *alert.Ticket) string {
-	if tk.Calibration != nil {
+	switch {
+	case tk.Calibration != nil:
 		return "tk|" + tk.ID + "|closed"
+	case tk.Revision == 0:
+		return "tk|" + tk.ID + "|opened"
 	}
-	return "tk|" + tk.ID + "|opened"
+	return "tk|" + tk.ID + "|r" + strconv.Itoa(tk.Revision)
 }
 
 // calibrate applies a calibration to the sensor's trackers (its own

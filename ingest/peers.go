@@ -331,15 +331,16 @@ func (w *worker) compare(g *peerGroup, k int64) {
 			for win := range m.sensor.Windows() {
 				if mask&(1<<uint(win)) != 0 {
 					sol := m.sensor.SolveJudged(win)
-					if sol.Parabola.SerialErr != nil && m.ref.st.sensor != nil {
-						// A deviation fit of one value a bucket has too few
-						// pairs of its own: take the estimate of the
-						// member's own readings, whose correlation includes
-						// the process swings the deviation cancels, so the
-						// correction errs on the wide side.
-						if own := m.ref.st.sensor.SolveJudged(m.ref.st.sensor.Windows() - 1); own.Parabola.SerialErr == nil {
-							sol = sol.WithSerial(own.Parabola.R1, own.Parabola.Pairs)
-						}
+					if sol.Parabola.SerialErr != nil && sol.Parabola.Pairs < rolling.MinPairs {
+						// A deviation fit holds one value a bucket, too few
+						// to estimate their own correlation. The member's
+						// own readings are no guide: their correlation is
+						// mostly the process swings the deviation cancels,
+						// and taking it left no effective reading to judge.
+						// The bucket means of a deviation are taken as
+						// independent (r1 = 0): a known limit, see the
+						// README's peer groups.
+						sol = sol.WithSerial(0, rolling.MinPairs)
 					}
 					m.closed = append(m.closed, peerClose{sol: sol})
 					c := &m.closed[len(m.closed)-1]

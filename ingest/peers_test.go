@@ -131,8 +131,8 @@ func groupRun(t *testing.T, c groupCase) groupResult {
 		if err := json.Unmarshal(m.Data, &tk); err != nil {
 			t.Fatalf("ticket %s: %v", m.Data, err)
 		}
-		if tk.Calibration == nil {
-			res.tickets[tk.Sensor]++
+		if tk.Calibration == nil && tk.Revision == 0 {
+			res.tickets[tk.Sensor]++ // openings; revisions of the due date come on the same subject
 		}
 	}
 	return res

@@ -328,6 +328,12 @@ func checkReplayMatchesServe(t *testing.T, config string, rs []flowReading, calI
 		if want, ok := revisions[rev]; !ok || rest != want {
 			t.Errorf("replay revision %s:\n got %s\nwant (serve, on the bus) %s", rev, rest, want)
 		}
+		if tk.Calibration == nil && tk.Revision > 0 {
+			if !at.Equal(tk.AsOf) {
+				t.Errorf("revision %d of %s at %v, want the time it was estimated %v", tk.Revision, tk.ID, at, tk.AsOf)
+			}
+			continue
+		}
 		if tk.Calibration == nil {
 			if !at.Equal(tk.Opened) || !raised[raise{tk.Sensor, at}] {
 				t.Errorf("opening of %s at %v, want its opened time %v, the time of a raise", tk.ID, at, tk.Opened)
@@ -372,12 +378,16 @@ func checkReplayMatchesServe(t *testing.T, config string, rs []flowReading, calI
 }
 
 // ticketRevisionKey is the Nats-Msg-Id serve publishes a revision under
-// (ingest's ticketRevisionID: the ticket id and whether it is closed).
+// (ingest's ticketRevisionID: the ticket id, and its closing, opening or
+// the number of a due-date revision).
 func ticketRevisionKey(tk alert.Ticket) string {
-	if tk.Calibration != nil {
+	switch {
+	case tk.Calibration != nil:
 		return "tk|" + tk.ID + "|closed"
+	case tk.Revision == 0:
+		return "tk|" + tk.ID + "|opened"
 	}
-	return "tk|" + tk.ID + "|opened"
+	return "tk|" + tk.ID + "|r" + strconv.Itoa(tk.Revision)
 }
 
 // TestReplay_ConfigFlags checks the flags that belong to one mode only.

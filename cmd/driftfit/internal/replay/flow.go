@@ -765,8 +765,11 @@ func (f *flow) collect(db *store.DB) error {
 	defer f.tkMu.Unlock()
 	for _, tk := range f.tickets {
 		at := tk.Opened
-		if tk.Calibration != nil {
+		switch {
+		case tk.Calibration != nil:
 			at = tk.Calibration.Time
+		case tk.Revision > 0:
+			at = tk.AsOf // a revision of the due date: when it was re-estimated
 		}
 		f.res.Tickets = append(f.res.Tickets, TicketRevision{At: at, Ticket: tk})
 	}
@@ -785,7 +788,7 @@ func (f *flow) missing(stored []alert.Ticket) []alert.Ticket {
 	for _, st := range stored {
 		found := false
 		for _, tk := range f.tickets {
-			if tk.ID == st.ID && (tk.Calibration != nil) == (st.Calibration != nil) {
+			if tk.ID == st.ID && tk.Revision == st.Revision && (tk.Calibration != nil) == (st.Calibration != nil) {
 				found = true
 				break
 			}
