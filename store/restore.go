@@ -274,36 +274,39 @@ func (sh *restoreShard) loadOne(id string, v []byte, pc *bolt.Cursor,
 
 // readRestart reads the restart time of sensor k; 0 when it has none.
 func readRestart(restarts *bolt.Bucket, k []byte) (int64, error) {
-	if restarts == nil { // files that never had one
-		return 0, nil
-	}
-	v, err := get(restarts, bucketRestarts, k)
-	switch {
-	case err != nil:
+	v, ok, err := read8(restarts, bucketRestarts, k, "restart time")
+	if !ok {
 		return 0, err
-	case v == nil:
-		return 0, nil
-	case len(v) != 8:
-		return 0, fmt.Errorf("%w: restart time of %d bytes", ErrCorrupt, len(v))
 	}
 	return readInt(v), nil
 }
 
 // readSeq reads the stream sequence of sensor k; 0 when it has none.
 func readSeq(seqs *bolt.Bucket, k []byte) (uint64, error) {
-	if seqs == nil { // files that never had one
-		return 0, nil
-	}
-	v, err := get(seqs, bucketSeqs, k)
-	switch {
-	case err != nil:
+	v, ok, err := read8(seqs, bucketSeqs, k, "stream sequence")
+	if !ok {
 		return 0, err
-	case v == nil:
-		return 0, nil
-	case len(v) != 8:
-		return 0, fmt.Errorf("%w: stream sequence of %d bytes", ErrCorrupt, len(v))
 	}
 	return binary.BigEndian.Uint64(v), nil
+}
+
+// read8 returns the 8-byte value of key k in bucket b (named name); ok
+// is false when b or the key is missing (files that never had one) or
+// on error.
+func read8(b *bolt.Bucket, name, k []byte, what string) (v []byte, ok bool, err error) {
+	if b == nil {
+		return nil, false, nil
+	}
+	v, err = get(b, name, k)
+	switch {
+	case err != nil:
+		return nil, false, err
+	case v == nil:
+		return nil, false, nil
+	case len(v) != 8:
+		return nil, false, fmt.Errorf("%w: %s of %d bytes", ErrCorrupt, what, len(v))
+	}
+	return v, true, nil
 }
 
 // setAside makes the fresh sensor that replaces one whose stored state

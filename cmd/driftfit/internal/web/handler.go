@@ -170,22 +170,37 @@ func (h *handler) fleetFilter(r *http.Request) (fleetFilter, error) {
 }
 
 func (h *handler) fleetAPI(w http.ResponseWriter, r *http.Request) {
-	asof, live, err := h.asOf(r)
-	if err != nil {
-		h.fail(w, r, http.StatusBadRequest, err.Error())
-		return
+	if q, ok := h.fleetOf(w, r); ok {
+		writeJSON(w, http.StatusOK, q.f)
 	}
-	flt, err := h.fleetFilter(r)
-	if err != nil {
+}
+
+// fleetQuery is a fleet request read and answered: as of when (live: now)
+// with which filter, and the fleet.
+type fleetQuery struct {
+	asof time.Time
+	live bool
+	flt  fleetFilter
+	f    *Fleet
+}
+
+// fleetOf reads the fleet a request asks for; on a bad request or a
+// failure it has answered already and ok is false.
+func (h *handler) fleetOf(w http.ResponseWriter, r *http.Request) (q fleetQuery, ok bool) {
+	var err error
+	if q.asof, q.live, err = h.asOf(r); err != nil {
 		h.fail(w, r, http.StatusBadRequest, err.Error())
-		return
+		return q, false
 	}
-	f, err := h.fleet(asof, live, flt)
-	if err != nil {
+	if q.flt, err = h.fleetFilter(r); err != nil {
+		h.fail(w, r, http.StatusBadRequest, err.Error())
+		return q, false
+	}
+	if q.f, err = h.fleet(q.asof, q.live, q.flt); err != nil {
 		h.internal(w, r, err)
-		return
+		return q, false
 	}
-	writeJSON(w, http.StatusOK, f)
+	return q, true
 }
 
 func (h *handler) sensorAPI(w http.ResponseWriter, r *http.Request) {

@@ -172,21 +172,11 @@ func (h *handler) fleetRowViews(f *Fleet) []fleetRowView {
 }
 
 func (h *handler) fleetPage(w http.ResponseWriter, r *http.Request) {
-	asof, live, err := h.asOf(r)
-	if err != nil {
-		h.fail(w, r, http.StatusBadRequest, err.Error())
+	q, ok := h.fleetOf(w, r)
+	if !ok {
 		return
 	}
-	flt, err := h.fleetFilter(r)
-	if err != nil {
-		h.fail(w, r, http.StatusBadRequest, err.Error())
-		return
-	}
-	f, err := h.fleet(asof, live, flt)
-	if err != nil {
-		h.internal(w, r, err)
-		return
-	}
+	asof, live, flt, f := q.asof, q.live, q.flt, q.f
 	refresh := 0
 	if live {
 		refresh = int(h.o.Refresh / time.Millisecond)
