@@ -351,14 +351,15 @@ var detectNoises = []noiseSpec{plantNoises[0], plantNoises[2], plantNoises[1], p
 // it (as opened or revised), beside the share the previous rule, the
 // fitted exit less the 7-day margin, would have met. A run ends when both have raised and the
 // exit has passed, or 30 days after the exit.
-// In the normal run: white hourly noise, 2 times the level, 40 runs,
-// which must meet the first two targets and have at most 2 due dates
-// after the exit (at a true rate of 5%, 2 or fewer of 40 has probability
-// 0.68: a bound the promise meets, while the previous "point exit less 7
-// days" failed it). With -sim every noise type and m of 1, 2 and 3, 100
+// In the normal run: white hourly noise, 2 and 3 times the level, 40
+// runs each, which must meet the first two targets and have at most 10%
+// (4 of 40) of due dates as opened after the exit (at a true rate of 5%,
+// more than 4 of 40 has probability 0.05, binomial), which the window's
+// bound alone failed at 3 times (39 of 40 late), as did the previous
+// "point exit less 7 days". With -sim every noise type and m of 1, 2 and 3, 100
 // runs each.
 func TestDetection_PlantNoise(t *testing.T) {
-	noises, mults, n := []noiseSpec{plantNoises[0]}, []float64{2}, 40
+	noises, mults, n := []noiseSpec{plantNoises[0]}, []float64{2, 3}, 40
 	if *simLong {
 		noises, mults, n = simNoises(detectNoises), []float64{1, 2, 3}, 100
 	} else if testing.Short() {
@@ -435,8 +436,8 @@ func TestDetection_PlantNoise(t *testing.T) {
 			if md > 1.5*mo {
 				t.Errorf("%s, %g × the limit: median delay %.1f d, over 1.5 × the oracle's %.1f d", ns.name, m, md, mo)
 			}
-			if before-dueOK > 2 {
-				t.Errorf("%s, %g × the limit: %d of %d due dates after the true exit, want ≤ 2", ns.name, m, before-dueOK, before)
+			if late, most := before-dueOK, int(math.Ceil(0.1*float64(before))); late > most {
+				t.Errorf("%s, %g × the limit: %d of %d due dates after the true exit, want ≤ %d", ns.name, m, late, before, most)
 			}
 		}
 	}

@@ -23,13 +23,18 @@ import (
 // rolling.Fit.MeanTimeToLimit with the serially corrected covariance:
 // Fieller's bound for a line, the inverted confidence band of the mean
 // for a parabola), minus the rule's TicketMargin, and never before Opened.
+// For a line the bound is the earlier of the window's and that of the
+// line over the window's newest half (rolling.Solution.Recent; DueBasis
+// "exit_lower_bound_recent"), since a drift that began inside the window
+// bends the whole window's line towards a later exit.
 // So the sensor's mean is still inside tolerance at Due, less the margin,
 // with 95% confidence. When no bound exists (the rate towards the edge is
 // not significant at the one-sided 95% level, or the bound lies beyond the
 // rule's horizon) no date can be bounded, and Due is the evaluation time
 // plus the lead-time warning level (else its critical level, else the
 // horizon). DueBasis says which: "already_out" (the fitted mean is beyond
-// the edge: due at once), "exit_lower_bound", "unbounded_lead_time" or
+// the edge: due at once), "exit_lower_bound", "exit_lower_bound_recent",
+// "unbounded_lead_time" or
 // "unbounded_horizon".
 //
 // # Revisions
@@ -108,6 +113,7 @@ type Ticket struct {
 const (
 	DueAlreadyOut       = "already_out"
 	DueExitLowerBound   = "exit_lower_bound"
+	DueRecentLowerBound = "exit_lower_bound_recent"
 	DueUnboundedLead    = "unbounded_lead_time"
 	DueUnboundedHorizon = "unbounded_horizon"
 )
@@ -167,7 +173,7 @@ func summarize(f *rolling.Fit, coverage float64) FitSummary {
 
 // openTicket builds the ticket for an alert of kind k at severity sev,
 // raised at now on a window whose trend fit is f.
-func (t *Tracker) openTicket(now time.Time, w rolling.WindowSpec, coverage float64, f *rolling.Fit, k Kind, sev Severity) Ticket {
+func (t *Tracker) openTicket(now time.Time, w rolling.WindowSpec, coverage float64, f, recent *rolling.Fit, k Kind, sev Severity) Ticket {
 	r := &t.rule
 	tk := Ticket{
 		ID: t.sensor + "@" + now.Format("20060102T150405Z"), Sensor: t.sensor, Class: r.Class,
@@ -175,13 +181,15 @@ func (t *Tracker) openTicket(now time.Time, w rolling.WindowSpec, coverage float
 		AsLeft: t.asLeft, Tolerance: r.Tolerance, Span: [2]float64{r.SpanLower, r.SpanUpper},
 		Caution: Caution,
 	}
-	t.estimate(&tk, now, coverage, f)
+	t.estimate(&tk, now, coverage, f, recent)
 	return tk
 }
 
 // estimate fills the estimates of tk (AsOf to AsFound) from trend fit f
-// at evaluation time now.
-func (t *Tracker) estimate(tk *Ticket, now time.Time, coverage float64, f *rolling.Fit) {
+// at evaluation time now; recent, when not nil, is the line over the
+// newest half of the same window, whose bound replaces the line's when
+// it comes sooner (see recentBound).
+func (t *Tracker) estimate(tk *Ticket, now time.Time, coverage float64, f, recent *rolling.Fit) {
 	r := &t.rule
 	tk.AsOf, tk.Evidence = now, summarize(f, coverage)
 	tk.Exit, tk.ExitLowerBound, tk.ExitCI, tk.EarliestExit = time.Time{}, time.Time{}, [2]time.Time{}, time.Time{}
@@ -202,12 +210,20 @@ func (t *Tracker) estimate(tk *Ticket, now time.Time, coverage float64, f *rolli
 	if ok && mc.LowerOK {
 		tk.ExitLowerBound = at(mc.LowerDays)
 	}
+	fromRecent := false
+	if ok && mc.Kind != rolling.CrossPast {
+		if d, okR := r.recentBound(recent, t.asLeft, upper); okR && (!mc.LowerOK || d < mc.LowerDays) {
+			tk.ExitLowerBound, fromRecent = at(d), true
+		}
+	}
 	if ok && mc.IntervalOK {
 		tk.ExitCI = [2]time.Time{at(mc.LowDays), at(mc.HighDays)}
 	}
 	switch {
 	case ok && mc.Kind == rolling.CrossPast:
 		tk.Due, tk.DueBasis = now, DueAlreadyOut
+	case fromRecent:
+		tk.Due, tk.DueBasis = tk.ExitLowerBound.Add(-r.TicketMargin), DueRecentLowerBound
 	case ok && mc.LowerOK:
 		tk.Due, tk.DueBasis = tk.ExitLowerBound.Add(-r.TicketMargin), DueExitLowerBound
 	default:
@@ -234,19 +250,19 @@ const laterMin = 7 * day
 // bounded reports whether the due date of tk rests on evidence: the mean
 // is out or its exit has a lower bound.
 func (tk *Ticket) bounded() bool {
-	return tk.DueBasis == DueAlreadyOut || tk.DueBasis == DueExitLowerBound
+	return tk.DueBasis == DueAlreadyOut || tk.DueBasis == DueExitLowerBound || tk.DueBasis == DueRecentLowerBound
 }
 
 // revise re-estimates the open ticket from trend fit f of its window,
 // judged at now, and returns the revision, or nil when there is none
 // (see Ticket, Revisions).
-func (t *Tracker) revise(now time.Time, coverage float64, f *rolling.Fit) *Ticket {
+func (t *Tracker) revise(now time.Time, coverage float64, f, recent *rolling.Fit) *Ticket {
 	old := &t.ticket
 	if !now.After(old.AsOf) {
 		return nil
 	}
 	next := *old
-	t.estimate(&next, now, coverage, f)
+	t.estimate(&next, now, coverage, f, recent)
 	left := old.Due.Sub(now)
 	sooner := old.Due.Sub(next.Due) > max(day, left/4)
 	later := next.Due.Sub(old.Due) > max(laterMin, left/4) && !old.Exit.IsZero() && next.ExitLowerBound.After(old.Exit)

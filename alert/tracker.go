@@ -202,14 +202,14 @@ func (t *Tracker) evaluate(now time.Time, sol *rolling.Solution, peers *[2]int) 
 		}
 		d.Events = append(d.Events, e)
 		if typ == Raised && r.opensTicket(k) && !t.hasTicket && t.hasAsLeft && r.usable(trend) {
-			t.ticket, t.hasTicket = t.openTicket(now, sol.Window, sol.Coverage(), trend, k, m.sev), true
+			t.ticket, t.hasTicket = t.openTicket(now, sol.Window, sol.Coverage(), trend, r.recentOf(sol, trend), k, m.sev), true
 			tk := t.ticket
 			d.Opened = &tk
 		}
 	}
 	if t.hasTicket && d.Opened == nil && t.ticket.Window == windowLabel(sol.Window) {
 		if judged {
-			d.Revised = t.revise(now, sol.Coverage(), trend)
+			d.Revised = t.revise(now, sol.Coverage(), trend, r.recentOf(sol, trend))
 		} else {
 			d.Revised = t.markOverdue(now) // no new estimate, but the date may have passed
 		}
@@ -284,7 +284,7 @@ func (t *Tracker) OpenTicket(now time.Time, sol *rolling.Solution, k Kind) (Deci
 	if m == nil || m.state != Firing || t.hasTicket || !t.hasAsLeft || !r.usable(trend) {
 		return d, nil
 	}
-	t.ticket, t.hasTicket = t.openTicket(now, sol.Window, sol.Coverage(), trend, k, m.sev), true
+	t.ticket, t.hasTicket = t.openTicket(now, sol.Window, sol.Coverage(), trend, r.recentOf(sol, trend), k, m.sev), true
 	tk := t.ticket
 	d.Opened = &tk
 	return d, nil

@@ -428,6 +428,32 @@ func TestSolve_MatchesBatchQR(t *testing.T) {
 						}
 					}
 				}
+				// The newest half of the window, against the batch fit
+				// of the readings of its panes only; SolveJudged's Recent
+				// is the same line.
+				half := (sp.Panes() + 1) / 2
+				var newest int64 = math.MinInt64
+				for _, o := range kept[w] {
+					newest = max(newest, batchFloorDiv(o.t, int64(sp.Pane)))
+				}
+				var recent []batchObs
+				for _, o := range kept[w] {
+					if batchFloorDiv(o.t, int64(sp.Pane)) > newest-int64(half) {
+						recent = append(recent, o)
+					}
+				}
+				rs := s.SolveRecent(w, half)
+				if rs.Panes != half || rs.Window.Span != time.Duration(half)*sp.Pane {
+					t.Errorf("window %v/%v: SolveRecent(%d) has %d panes, span %v", sp.Span, sp.Pane, half, rs.Panes, rs.Window.Span)
+				}
+				if ref, err := batchFit(recent, rolling.Line, int64(sp.Span)); err == nil {
+					worst = max(worst, compareBatch(t, fmt.Sprintf("window %v/%v, newest %d panes, line", sp.Span, sp.Pane, half), &rs.Line, ref, batchTol))
+				} else if rs.Line.OK() {
+					t.Errorf("window %v/%v: newest %d panes hold %d readings, yet the line is %v", sp.Span, sp.Pane, half, len(recent), rs.Line.Err)
+				}
+				if j := s.SolveJudged(w); j.Recent.Coef != rs.Line.Coef || j.Recent.N != rs.Line.N {
+					t.Errorf("window %v/%v: SolveJudged's Recent %v (n %d), want SolveRecent's line %v (n %d)", sp.Span, sp.Pane, j.Recent.Coef, j.Recent.N, rs.Line.Coef, rs.Line.N)
+				}
 			}
 		})
 	}

@@ -78,6 +78,12 @@ type Solution struct {
 	Line     Fit
 	Parabola Fit
 	Exp      Fit
+	// Recent is the Line over the newest half of the window's panes,
+	// serially corrected as the others; filled by SolveJudged only (else
+	// its zero value, which is not PosDef). A line over a window in which
+	// a drift began part-way is bent by the flat part; the recent half
+	// is less so.
+	Recent Fit
 }
 
 // Coverage returns the fraction of the window's panes that hold readings.
@@ -136,8 +142,19 @@ type normal struct {
 // noise σ, the residual SD and standard errors carry a relative error of
 // about 0.1·ε·(Δ/σ)², ε = 2⁻⁵²; below 1e-9 while Δ/σ < 10⁴. Coefficients
 // are not affected.
-func (s *Sensor) Solve(i int) Solution {
-	w := &s.wins[i]
+func (s *Sensor) Solve(i int) Solution { return s.solve(&s.wins[i]) }
+
+// SolveRecent is Solve over the newest panes panes of window i only
+// (clamped to 1 … the window's panes): a window of the same pane width
+// and a shorter span, as if configured so.
+func (s *Sensor) SolveRecent(i, panes int) Solution {
+	w := s.wins[i]
+	k := min(max(int64(panes), 1), w.panes)
+	w.panes, w.spec.Span = k, time.Duration(k)*w.spec.Pane
+	return s.solve(&w)
+}
+
+func (s *Sensor) solve(w *window) Solution {
 	rg := &s.rings[w.ring]
 	sol := Solution{Window: w.spec, Panes: int(w.panes)}
 	sol.Line.Model, sol.Parabola.Model, sol.Exp.Model = Line, Parabola, Exp

@@ -76,6 +76,9 @@ func (s *Solution) WithSerial(r1 float64, pairs int) Solution {
 	c.Line.SetSerial(r1, pairs)
 	c.Parabola.SetSerial(r1, pairs)
 	c.Exp.SetSerial(r1, pairs)
+	if c.Recent.Model != ModelUnknown {
+		c.Recent.SetSerial(r1, pairs)
+	}
 	return c
 }
 
@@ -87,7 +90,10 @@ func (s *Solution) WithSerial(r1 float64, pairs int) Solution {
 // window when it borrows.
 func (s *Sensor) SolveJudged(i int) Solution {
 	sol := s.Solve(i)
+	half := s.SolveRecent(i, int(s.wins[i].panes+1)/2)
+	sol.Recent = half.Line
 	if sol.Parabola.Pairs >= MinPairs {
+		sol.Recent.SetSerial(sol.Parabola.R1, sol.Parabola.Pairs)
 		return sol
 	}
 	best := -1
