@@ -186,6 +186,7 @@ func (w *worker) decided(ref *sensorRef, e *alertEntry, d alert.Decision) {
 			w.s.log.Error().Str("sensor", e.key).Err(err).Msg("ticket not encoded")
 			continue
 		}
+		w.s.tickets.set(tk)
 		if out.Tickets == nil {
 			out.Tickets = map[string][]byte{}
 		}

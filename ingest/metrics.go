@@ -32,11 +32,16 @@ type Metrics struct {
 	// slow consumers it cut off.
 	ServerLog           *prometheus.CounterVec
 	ServerSlowConsumers prometheus.Gauge
+
+	// tickets counts the running service's open and overdue tickets at
+	// each scrape (driftfit_tickets_open, driftfit_tickets_overdue).
+	tickets *ticketGauges
 }
 
 // NewMetrics returns the instruments, not yet registered.
 func NewMetrics() *Metrics {
 	return &Metrics{
+		tickets: newTicketGauges(),
 		SetAside: prometheus.NewCounter(prometheus.CounterOpts{
 			Name: "driftfit_sensors_set_aside_total", Help: "Sensors whose stored state failed its checks and was set aside.",
 		}),
@@ -98,7 +103,7 @@ func NewMetrics() *Metrics {
 // Register registers every instrument with r.
 func (m *Metrics) Register(r prometheus.Registerer) error {
 	for _, c := range []prometheus.Collector{m.Messages, m.Applied, m.Rejected, m.Sensors, m.CommitTime, m.CommitBytes, m.StreamLag, m.BusConnected, m.SlowConsumer, m.SetAside, m.Spikes, m.NotJudged,
-		m.StreamBytes, m.StreamLimitBytes, m.StreamRefetch, m.StreamLost, m.ServerLog, m.ServerSlowConsumers} {
+		m.StreamBytes, m.StreamLimitBytes, m.StreamRefetch, m.StreamLost, m.ServerLog, m.ServerSlowConsumers, m.tickets} {
 		if err := r.Register(c); err != nil {
 			return err
 		}

@@ -144,7 +144,8 @@ type Service struct {
 	// Alert side. savedAlerts holds the stored alert states, read-only
 	// once restored (workers make trackers from them on first use).
 	savedAlerts map[string][]byte
-	alertPrefix string // AlertSubjectPrefix + "."
+	tickets     *ticketIndex // open tickets, for the metrics
+	alertPrefix string       // AlertSubjectPrefix + "."
 	outbox      *outbox
 	urgent      bool          // dispatcher: commit as soon as the committer is free
 	wakeCommit  chan struct{} // workers: a decision waits to be committed
@@ -180,6 +181,7 @@ func New(o Options) (*Service, error) {
 		fatal:   make(chan error, 1),
 
 		savedAlerts: map[string][]byte{},
+		tickets:     newTicketIndex(),
 		alertPrefix: o.AlertSubjectPrefix + ".",
 		wakeCommit:  make(chan struct{}, 1),
 		freed:       make(chan struct{}, 1),
@@ -187,6 +189,9 @@ func New(o Options) (*Service, error) {
 		purges:      make(chan uint64, 1),
 	}
 	s.outbox = newOutbox(s)
+	if o.Metrics != nil && o.Metrics.tickets != nil {
+		o.Metrics.tickets.src.Store(&ticketSource{idx: s.tickets, now: o.Now})
+	}
 	s.budget = max(1, o.CommitMaxSensors/o.Workers)
 	s.badLog = s.log.Sample(&zerolog.BurstSampler{Burst: 10, Period: 10 * time.Second})
 	s.capLog = s.log.Sample(&zerolog.BurstSampler{Burst: 1, Period: time.Minute})
@@ -416,6 +421,14 @@ func (s *Service) restore() error {
 		return nil
 	}); err != nil {
 		return fmt.Errorf("ingest: restore alert states: %w", err)
+	}
+	if err := s.o.DB.Tickets(func(id string, data []byte) error {
+		if err := s.tickets.load(data); err != nil {
+			s.log.Warn().Str("ticket", id).Err(err).Msg("stored ticket unreadable; not counted in the metrics")
+		}
+		return nil
+	}); err != nil {
+		return fmt.Errorf("ingest: restore tickets: %w", err)
 	}
 	s.log.Info().Int("sensors", len(s.refs)).Int("dropped_panes", dropped).Uint64("position", pos).
 		Dur("took", time.Since(t0)).Msg("state restored")

@@ -47,14 +47,14 @@ func (l *listFlags) parse(args []string, kind report.Kind, stdout io.Writer) (qu
 	if len(pos) != 0 {
 		return nil, f, nil, usageError("unexpected arguments %q", pos)
 	}
-	out, err := report.New(*l.format, kind, stdout, report.Options{})
+	now := time.Now()
+	out, err := report.New(*l.format, kind, stdout, report.Options{Now: now})
 	if err != nil {
 		return nil, f, nil, usageError("--format %v", err)
 	}
 	if err := query.CheckPattern(*l.sensor); err != nil {
 		return nil, f, nil, err
 	}
-	now := time.Now()
 	f.Sensor, f.Open = *l.sensor, *l.open
 	if f.Since, err = query.ParseTime("since", *l.since, now); err != nil {
 		return nil, f, nil, err
@@ -90,7 +90,7 @@ func runAlerts(_ context.Context, args []string, _ io.Reader, stdout, _ io.Write
 }
 
 func runTickets(_ context.Context, args []string, _ io.Reader, stdout, _ io.Writer) error {
-	l := newListFlags("tickets", "Usage: driftfit tickets [flags]\n\nLists recalibration tickets by due date, open and closed (--open: open\nonly); --since/--until select by the time a ticket was opened. "+alert.Caution, report.Tickets)
+	l := newListFlags("tickets", "Usage: driftfit tickets [flags]\n\nLists recalibration tickets by due date, open and closed (--open: open\nonly); --since/--until select by the time a ticket was opened. An open\nticket whose due date has passed is listed as open, overdue (in JSON\n\"overdue\": true). "+alert.Caution, report.Tickets)
 	src, f, out, err := l.parse(args, report.Tickets, stdout)
 	if err != nil {
 		return err

@@ -13,13 +13,14 @@ import (
 // csvWriter writes RFC 4180 (CRLF line ends) with a header, every number
 // in its shortest round-trip form (strconv precision -1).
 type csvWriter struct {
+	o       Options
 	cw      *csv.Writer
 	row     []string
 	started bool
 }
 
-func newCSV(w io.Writer, _ Options) Writer {
-	c := &csvWriter{cw: csv.NewWriter(w)}
+func newCSV(w io.Writer, o Options) Writer {
+	c := &csvWriter{o: o, cw: csv.NewWriter(w)}
 	// RFC 4180 section 2, rule 1: records end with CRLF.
 	c.cw.UseCRLF = true
 	return c
@@ -87,13 +88,14 @@ func (c *csvWriter) Event(ev *alert.Event) error {
 }
 
 func (c *csvWriter) Ticket(tk *alert.Ticket) error {
+	tk = c.o.ticket(tk)
 	if err := c.header([]string{"id", "sensor", "class", "opened", "due", "reason", "severity", "window", "as_left", "tolerance",
-		"as_found_deviation", "as_found_low", "as_found_high", "unit", "status"}); err != nil {
+		"as_found_deviation", "as_found_low", "as_found_high", "unit", "status", "overdue"}); err != nil {
 		return err
 	}
 	return c.cw.Write([]string{tk.ID, tk.Sensor, tk.Class, tk.Opened.UTC().Format(time.RFC3339), tk.Due.UTC().Format(time.RFC3339),
 		tk.Reason.String(), tk.Severity.String(), tk.Window, g(tk.AsLeft), g(tk.Tolerance),
-		g(tk.AsFound.Deviation), g(tk.AsFound.Low), g(tk.AsFound.High), tk.Unit, TicketStatus(tk)})
+		g(tk.AsFound.Deviation), g(tk.AsFound.Low), g(tk.AsFound.High), tk.Unit, TicketStatus(tk), strconv.FormatBool(tk.Overdue)})
 }
 
 func (c *csvWriter) Close() error {

@@ -61,6 +61,22 @@ type Options struct {
 	// whose records run from from to to (both inclusive). Nil, or a nil
 	// result: the fits alone. An error fails the picture.
 	Annotate func(sensor string, from, to time.Time) (*Annotations, error)
+	// Now is when a listing is made: an open ticket whose due date has
+	// passed by then is written overdue, whatever its stored flag
+	// (alert.Ticket.Overdue, as of the ticket's last evaluation, which a
+	// sensor that stopped reporting no longer gets). Zero: the stored
+	// flag only.
+	Now time.Time
+}
+
+// ticket returns tk as of o.Now (see Now).
+func (o Options) ticket(tk *alert.Ticket) *alert.Ticket {
+	if tk.Calibration != nil || tk.Overdue || o.Now.IsZero() || !o.Now.After(tk.Due) {
+		return tk
+	}
+	c := *tk
+	c.Overdue = true
+	return &c
 }
 
 func (o Options) unit(sensor string) string {

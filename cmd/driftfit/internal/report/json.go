@@ -13,10 +13,11 @@ import (
 // tickets in the alert package's wire form.
 type jsonWriter struct {
 	w   io.Writer
+	o   Options
 	buf []byte
 }
 
-func newJSON(w io.Writer, _ Options) Writer { return &jsonWriter{w: w} }
+func newJSON(w io.Writer, o Options) Writer { return &jsonWriter{w: w, o: o} }
 
 func (j *jsonWriter) line(v any) error {
 	b, err := json.Marshal(v)
@@ -33,5 +34,5 @@ func (j *jsonWriter) Fit(sensor, window string, sol *rolling.Solution, m rolling
 }
 
 func (j *jsonWriter) Event(ev *alert.Event) error   { return j.line(ev) }
-func (j *jsonWriter) Ticket(tk *alert.Ticket) error { return j.line(tk) }
+func (j *jsonWriter) Ticket(tk *alert.Ticket) error { return j.line(j.o.ticket(tk)) }
 func (j *jsonWriter) Close() error                  { return nil }

@@ -113,3 +113,57 @@ func TestWriters_Events(t *testing.T) {
 		t.Errorf("json %q", out["json"])
 	}
 }
+
+// TestWriters_TicketOverdue lists three tickets at Now in every text
+// format: open and past due (stored flag unset: its sensor stopped
+// reporting before its window was judged again), open and not yet due,
+// and closed after its due date, which is never overdue.
+func TestWriters_TicketOverdue(t *testing.T) {
+	due := time.Date(2026, 11, 20, 0, 0, 0, 0, time.UTC)
+	now := due.Add(36 * time.Hour)
+	tks := []alert.Ticket{
+		{ID: "qm.pt-1@a", Sensor: "qm.pt-1", Due: due},
+		{ID: "qm.pt-2@a", Sensor: "qm.pt-2", Due: now.Add(time.Hour)},
+		{ID: "qm.pt-3@a", Sensor: "qm.pt-3", Due: due, Calibration: &alert.Calibration{Time: now}},
+	}
+	want := []bool{true, false, false}
+	for _, f := range report.Names(report.Tickets) {
+		var b bytes.Buffer
+		w, err := report.New(f, report.Tickets, &b, report.Options{Now: now})
+		if err != nil {
+			t.Fatal(err)
+		}
+		for i := range tks {
+			if err := w.Ticket(&tks[i]); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if err := w.Close(); err != nil {
+			t.Fatal(err)
+		}
+		lines := strings.Split(b.String(), "\n")
+		for i, tk := range tks {
+			var line string
+			for _, l := range lines {
+				if strings.Contains(l, tk.Sensor) {
+					line = l
+				}
+			}
+			var got bool
+			switch f {
+			case "table":
+				got = strings.Contains(line, "open, overdue")
+			case "csv":
+				got = strings.HasSuffix(strings.TrimSpace(line), ",true")
+			case "json":
+				got = strings.Contains(line, `"overdue":true`)
+			}
+			if got != want[i] {
+				t.Errorf("%s: %s listed %q, want overdue %v", f, tk.Sensor, line, want[i])
+			}
+		}
+	}
+	if tks[0].Overdue {
+		t.Error("the listing changed the caller's ticket")
+	}
+}

@@ -106,6 +106,7 @@ func (t *table) Event(ev *alert.Event) error {
 }
 
 func (t *table) Ticket(tk *alert.Ticket) error {
+	tk = t.o.ticket(tk)
 	t.header("DUE (UTC)\tSENSOR\tREASON\tSEVERITY\tWINDOW\tAS-FOUND DEVIATION [95%]\tTOLERANCE\tUNIT\tSTATUS")
 	t.caution = true
 	a := tk.AsFound
@@ -125,9 +126,13 @@ func (t *table) Close() error {
 	return nil
 }
 
-// TicketStatus is "open", or "closed" and the calibration's date.
+// TicketStatus is "open", "open, overdue" (alert.Ticket.Overdue), or
+// "closed" and the calibration's date.
 func TicketStatus(tk *alert.Ticket) string {
-	if tk.Calibration == nil {
+	switch {
+	case tk.Calibration == nil && tk.Overdue:
+		return "open, overdue"
+	case tk.Calibration == nil:
 		return "open"
 	}
 	return "closed " + tk.Calibration.Time.UTC().Format("2006-01-02")
