@@ -345,3 +345,61 @@ func TestStepDetector_NISTEWMAExample(t *testing.T) {
 		}
 	}
 }
+
+// TestStepDetector_NISTCUSUMExample: the tabular CUSUM example of the
+// NIST/SEMATECH e-Handbook of Statistical Methods, §6.3.2.3
+// (https://www.itl.nist.gov/div898/handbook/pmc/section3/pmc323.htm):
+// target 325, k = 0.3175, h = 4.1959, 20 observations. The data are
+// those of the handbook page as transcribed in two independent public
+// copies, which agree. The handbook's table first exceeds h at
+// observation 14 and shows S_hi = 19.04 at observation 20: its rows add
+// each increment x − 325 − k rounded to two decimals (3.0125 → 3.01 …),
+// which the test reproduces; the unrounded sum is 19.06.
+func TestStepDetector_NISTCUSUMExample(t *testing.T) {
+	const target, k, h = 325, 0.3175, 4.1959
+	x := []float64{324.93, 324.68, 324.73, 324.35, 325.35, 325.23, 324.13, 324.53, 325.23, 324.60,
+		324.63, 325.15, 328.33, 327.25, 327.83, 328.50, 326.68, 327.78, 326.88, 328.35}
+	at := func(i int) time.Time { return t0.Add(time.Duration(i) * time.Hour) }
+
+	// Without a decision interval in reach the sums run on as the table's.
+	d, err := alert.NewStepDetector(alert.StepSettings{K: k, H: 1e6})
+	if err != nil {
+		t.Fatal(err)
+	}
+	first, hi, rounded := 0, 0.0, 0.0
+	for i, v := range x {
+		r := d.Update(at(i), v-target, v-target)
+		hi = max(0, hi+v-target-k)
+		rounded = max(0, rounded+math.RoundToEven((v-target-k)*100)/100)
+		if math.Abs(r.Hi-hi) > 1e-9 {
+			t.Errorf("observation %d: S_hi = %.6f, want %.6f", i+1, r.Hi, hi)
+		}
+		if first == 0 && r.Hi > h {
+			first = i + 1
+		}
+	}
+	if first != 14 {
+		t.Errorf("S_hi first exceeds h = %g at observation %d, want 14 (NIST §6.3.2.3)", h, first)
+	}
+	if math.Abs(hi-19.06) > 1e-9 || math.Abs(rounded-19.04) > 1e-9 {
+		t.Errorf("S_hi at 20 = %.4f (rounded rows %.4f), want 19.06 (19.04 as the handbook prints it)", hi, rounded)
+	}
+
+	// With h = 4.1959 the detector signals at observation 14: an upward
+	// step that began at observation 13 (the sum was zero at 12), of
+	// size the mean error since, (3.33 + 2.25)/2 = 2.79.
+	d, err = alert.NewStepDetector(alert.StepSettings{K: k, H: h})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i, v := range x[:14] {
+		r := d.Update(at(i), v-target, v-target)
+		if r.Signal != (i == 13) {
+			t.Fatalf("observation %d: signal %v, want it at 14 only", i+1, r.Signal)
+		}
+		if r.Signal && (!r.Up || !r.Since.Equal(at(12)) || math.Abs(r.Size-2.79) > 1e-9 || r.Updates != 2) {
+			t.Errorf("signal: up %v since %v size %.4f over %d, want up since observation 13 (%v), size 2.79 over 2",
+				r.Up, r.Since, r.Size, r.Updates, at(12))
+		}
+	}
+}
