@@ -2,10 +2,12 @@ package alert_test
 
 import (
 	"flag"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"runtime"
 	"slices"
+	"strconv"
 	"strings"
 	"sync"
 	"testing"
@@ -18,8 +20,9 @@ import (
 )
 
 var (
-	simLong = flag.Bool("sim", false, "run the long simulations of plant noise: 1,000 sensor-years per noise type")
-	simOnly = flag.String("sim.noise", "", "with -sim, run only the noise types whose name contains this (seeds count from the first type selected)")
+	simLong       = flag.Bool("sim", false, "run the long simulations of plant noise: 1,000 sensor-years per noise type")
+	simOnly       = flag.String("sim.noise", "", "with -sim, run only the noise types whose name contains this (seeds count from the first type selected)")
+	simLongWindow = flag.String("sim.window", "", "add this window (span/pane, e.g. 120d/2d) to the simulated class's 1d/1h and 30d/1d")
 )
 
 // simNoises returns the noise types of noises that -sim.noise selects.
@@ -44,16 +47,34 @@ const (
 	years   = 365.2425 // days in the budget's year
 )
 
+// parseDays reads a whole number of days such as "120d".
+func parseDays(s string) (time.Duration, error) {
+	n, err := strconv.Atoi(strings.TrimSuffix(s, "d"))
+	if err != nil || !strings.HasSuffix(s, "d") || n <= 0 {
+		return 0, fmt.Errorf("%q is not a number of days", s)
+	}
+	return time.Duration(n) * day, nil
+}
+
 // ptRule is the pressure-transmitter class of configs/demo.yaml with the
 // default windows (1d/1h and 30d/1d) and the default budget (0.01 false
 // tickets and alerts per sensor-year): tolerance 0.25 % of the
 // 0..2500 kPa span (6.25 kPa), slope 0.2 and 0.5 % span a year
 // (5/365.2425 and 12.5/365.2425 kPa/d), lead time 60 and 14 days, line
 // trend, 30 readings, coverage 0.5, debounce 3, clear fraction 0.8,
-// cooldown 1 day.
+// cooldown 1 day; -sim.window adds a window.
 func ptRule() alert.Rule {
 	r := alert.DefaultRule()
 	r.Class, r.Unit = "pressure-transmitter", "kPa"
+	if *simLongWindow != "" {
+		span, pane, ok := strings.Cut(*simLongWindow, "/")
+		s, err1 := parseDays(span)
+		p, err2 := parseDays(pane)
+		if !ok || err1 != nil || err2 != nil {
+			panic("-sim.window " + *simLongWindow + ": want SPAN/PANE in days, e.g. 120d/2d")
+		}
+		r.Windows = append(slices.Clone(r.Windows), rolling.WindowSpec{Span: s, Pane: p})
+	}
 	r.SpanLower, r.SpanUpper = 0, 2500
 	r.Tolerance = 6.25
 	r.AsLeft, r.HasAsLeft = ptLevel, true
