@@ -225,12 +225,14 @@ func (c *Client) CheckHolds(path string) error {
 	return nil
 }
 
-// Calibrate sends a calibration of sensor to the service on
-// prefix.sensor and waits for its answer (at most Timeout).
-func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal ingest.CalibrationMsg) error {
+// Calibrate sends a calibration request on prefix.sensor (a
+// calibration to record, or a void or correction of one) and waits for
+// the service's answer (at most Timeout). It returns the record the
+// service stored, or nil when its answer carries none.
+func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal ingest.CalibrationMsg) (*ingest.CalibrationRecord, error) {
 	payload, err := json.Marshal(cal)
 	if err != nil {
-		return err
+		return nil, err
 	}
 	ctx, cancel := context.WithTimeout(ctx, Timeout)
 	defer cancel()
@@ -238,28 +240,59 @@ func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal inges
 	inbox := c.nc.NewRespInbox()
 	sub, err := c.nc.SubscribeSync(inbox)
 	if err != nil {
-		return err
+		return nil, err
 	}
 	defer sub.Unsubscribe()
 	if err := c.nc.PublishRequest(subject, inbox, payload); err != nil {
-		return err
+		return nil, err
 	}
 	if err := c.refused(subject); err != nil {
-		return err
+		return nil, err
 	}
 	msg, err := sub.NextMsgWithContext(ctx)
 	if err != nil {
-		return fmt.Errorf("%w at %s: %w", ErrNoAnswer, c.url, err)
+		return nil, fmt.Errorf("%w at %s: %w", ErrNoAnswer, c.url, err)
 	}
-	var ans struct {
-		OK    bool   `json:"ok"`
-		Error string `json:"error"`
-	}
+	var ans ingest.CalibrationReply
 	if err := json.Unmarshal(msg.Data, &ans); err != nil {
-		return fmt.Errorf("%w: %w", ErrMalformedReply, err)
+		return nil, fmt.Errorf("%w: %w", ErrMalformedReply, err)
 	}
 	if !ans.OK {
-		return &ServiceError{Subject: prefix + "." + sensor, Msg: ans.Error}
+		return nil, &ServiceError{Subject: prefix + "." + sensor, Msg: ans.Error}
 	}
-	return nil
+	return ans.Record, nil
+}
+
+// Calibrations calls fn with the stored calibration records of sensor
+// (every sensor when ""), as store.DB.Calibrations; a damaged record
+// comes with data nil.
+func (c *Client) Calibrations(sensor string, fn func(sensor string, n uint64, data []byte) error) error {
+	q, err := json.Marshal(Request{Sensor: sensor})
+	if err != nil {
+		return err
+	}
+	return c.request(CalibrationsSubject, q, func(b []byte) error {
+		for len(b) > 0 {
+			id, rest, err := readFrame(b)
+			if err != nil {
+				return err
+			}
+			n, k := binary.Uvarint(rest)
+			if k <= 0 || n == 0 {
+				return ErrMalformedReply
+			}
+			data, rest, err := readFrame(rest[k:])
+			if err != nil {
+				return err
+			}
+			if len(data) == 0 {
+				data = nil
+			}
+			if err := fn(string(id), n, data); err != nil {
+				return err
+			}
+			b = rest
+		}
+		return nil
+	})
 }

@@ -204,7 +204,8 @@ func calibrateAs(t *testing.T, url, user, password, id string, cal ingest.Calibr
 		return err
 	}
 	defer c.Close()
-	return c.Calibrate(t.Context(), "driftfit.calibrations", id, cal)
+	_, err = c.Calibrate(t.Context(), "driftfit.calibrations", id, cal)
+	return err
 }
 
 // startService runs a service in stream mode on nc with a real bbolt
