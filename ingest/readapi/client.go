@@ -58,6 +58,7 @@ func (c *Client) Close() error { c.nc.Close(); return nil }
 // until the last one.
 func (c *Client) request(subject string, data []byte, fn func([]byte) error) error {
 	inbox := c.nc.NewRespInbox()
+	before := c.nc.LastError()
 	sub, err := c.nc.SubscribeSync(inbox)
 	if err != nil {
 		return err
@@ -66,7 +67,7 @@ func (c *Client) request(subject string, data []byte, fn func([]byte) error) err
 	if err := c.nc.PublishRequest(subject, inbox, data); err != nil {
 		return err
 	}
-	if err := c.refused(subject); err != nil {
+	if err := c.refused(subject, before); err != nil {
 		return err
 	}
 	for {
@@ -95,11 +96,14 @@ func (c *Client) request(subject string, data []byte, fn func([]byte) error) err
 // the refusal if it refused to let this client publish on subject or
 // take the reply (the server answers a PING only after the error of
 // what came before it, and nats.go records that error on reading it).
-func (c *Client) refused(subject string) error {
+// before is the connection's last error from before the request:
+// nats.go keeps the last error until the next, so only a new one is
+// this request's.
+func (c *Client) refused(subject string, before error) error {
 	if err := c.nc.Flush(); err != nil {
 		return err
 	}
-	if err := c.nc.LastError(); errors.Is(err, nats.ErrPermissionViolation) {
+	if err := c.nc.LastError(); err != before && errors.Is(err, nats.ErrPermissionViolation) {
 		return fmt.Errorf("%w: a request on %s at %s: %w", ErrRefused, subject, c.url, err)
 	}
 	return nil
@@ -228,7 +232,9 @@ func (c *Client) CheckHolds(path string) error {
 // Calibrate sends a calibration request on prefix.sensor (a
 // calibration to record, or a void or correction of one) and waits for
 // the service's answer (at most Timeout). It returns the record the
-// service stored, or nil when its answer carries none.
+// service stored, or nil when its answer carries none. Requests on one
+// Client are told apart only when made one at a time: a refusal by the
+// bus's permissions is the connection's, not the request's.
 func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal ingest.CalibrationMsg) (*ingest.CalibrationRecord, error) {
 	payload, err := json.Marshal(cal)
 	if err != nil {
@@ -238,6 +244,7 @@ func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal inges
 	defer cancel()
 	subject := prefix + "." + sensor
 	inbox := c.nc.NewRespInbox()
+	before := c.nc.LastError()
 	sub, err := c.nc.SubscribeSync(inbox)
 	if err != nil {
 		return nil, err
@@ -246,7 +253,7 @@ func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal inges
 	if err := c.nc.PublishRequest(subject, inbox, payload); err != nil {
 		return nil, err
 	}
-	if err := c.refused(subject); err != nil {
+	if err := c.refused(subject, before); err != nil {
 		return nil, err
 	}
 	msg, err := sub.NextMsgWithContext(ctx)
