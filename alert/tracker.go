@@ -112,6 +112,9 @@ func (t *Tracker) Rule() Rule {
 // not known yet (no rule value and no usable fit so far).
 func (t *Tracker) AsLeft() (float64, bool) { return t.asLeft, t.hasAsLeft }
 
+// Calibrated returns the time of the last calibration; zero when none.
+func (t *Tracker) Calibrated() time.Time { return t.calibrated }
+
 // Ticket returns the open ticket, if any.
 func (t *Tracker) Ticket() (Ticket, bool) { return t.ticket, t.hasTicket }
 

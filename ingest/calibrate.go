@@ -37,7 +37,7 @@ type CalibrationMsg struct {
 	Force bool `json:"force,omitempty"`
 	// Void, when not 0, withdraws the sensor's calibration of that
 	// number (CalibrationRecord.Seq), which must be its latest in force;
-	// t, as_found, as_left and force must then be absent.
+	// t, as_found, as_left and force must then be absent (or zero).
 	Void uint64 `json:"void,omitempty"`
 	// Correct, when not 0, replaces the sensor's calibration of that
 	// number, which must be its latest in force, by AsFound, AsLeft and
@@ -131,16 +131,21 @@ func (s *Service) parseCalibration(id string, data []byte) (controlReq, error) {
 	case c.Void != 0 && c.Correct != 0:
 		return req, fmt.Errorf("void %d and correct %d: give one", c.Void, c.Correct)
 	case c.Void != 0:
-		for _, f := range []string{"t", "as_found", "as_left", "force"} {
-			if _, ok := given[f]; ok {
-				return req, fmt.Errorf("%s %s: not taken with void (a void names the calibration only)", f, given[f])
+		// Zero values count as absent: a client built on this type sends
+		// every field.
+		for _, f := range []struct {
+			name string
+			set  bool
+		}{{"t", c.T != ""}, {"as_found", c.AsFound != 0}, {"as_left", c.AsLeft != 0}, {"force", c.Force}} {
+			if f.set {
+				return req, fmt.Errorf("%s %s: not taken with void (a void names the calibration only)", f.name, given[f.name])
 			}
 		}
 		req.amend = &amendment{void: c.Void, reason: c.Reason, at: now}
 		return req, nil
 	case c.Correct != 0:
 		req.amend = &amendment{correct: c.Correct, reason: c.Reason, at: now}
-		if _, ok := given["force"]; ok {
+		if c.Force {
 			return req, fmt.Errorf("force %s: not taken with correct", given["force"])
 		}
 	case c.Reason != "":

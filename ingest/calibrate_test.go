@@ -3,6 +3,7 @@ package ingest_test
 import (
 	"encoding/binary"
 	"encoding/json"
+	"errors"
 	"path/filepath"
 	"reflect"
 	"strings"
@@ -358,5 +359,31 @@ func TestService_CorrectCalibration_Time(t *testing.T) {
 	r, err := h.svc.CorrectCalibration(t.Context(), id, 3, alert.Calibration{AsFound: 500.6, AsLeft: 500}, "as-found rounded")
 	if err != nil || r.Seq != 5 || r.Corrects != 3 || !r.Time.Equal(earlier) {
 		t.Errorf("CorrectCalibration(3) = %+v, %v; want number 5 at %v", r, err, earlier)
+	}
+
+	// Dropped with serve stopped, the sensor starts afresh: its records
+	// are kept, but none can be withdrawn into the fresh state.
+	h.stop()
+	db, err := store.Open(filepath.Join(dir, "state.db"), store.Options{NoSync: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.DropSensor(id); err != nil {
+		t.Fatal(err)
+	}
+	db.Close()
+	h = startAlertService(t, ns.ClientURL(), dir, ptRule(5, 1), "", nil)
+	if js, err = h.nc.JetStream(); err != nil {
+		t.Fatal(err)
+	}
+	publishJS(t, js, id, tc.Add(5*time.Hour), 500)
+	waitFor(t, "the dropped sensor's new reading applied", func() bool { return h.svc.Stats().Applied > 0 })
+	_, err = h.svc.VoidCalibration(t.Context(), id, 5, "")
+	var ref *ingest.CalibrationRefError
+	if !errors.As(err, &ref) || !errors.Is(err, ingest.ErrNotInForce) || !strings.Contains(err.Error(), "no longer holds it") {
+		t.Errorf("void after drop-sensor: %v, want ErrNotInForce: the state no longer holds it", err)
+	}
+	if got := storedCalibrations(t, h.db, id); len(got) != 5 {
+		t.Errorf("%d records after drop-sensor, want the 5 kept", len(got))
 	}
 }

@@ -184,6 +184,20 @@ func (l *calLog) inForce(id string, seq uint64) (int, error) {
 	return i, nil
 }
 
+// holds reports whether the sensor's state is still the one calibration
+// rec left (or a correction of it): its own tracker's calibration time,
+// or without one its readings cutoff. A sensor dropped since
+// (drop-sensor), or whose stored alert state was unreadable, no longer
+// holds it, and withdrawing it would put back a state from before that.
+func (w *worker) holds(ref *sensorRef, rec *storedCalibration) bool {
+	if rec.Undo.Own != nil {
+		if e := w.entry(ref, false); e != nil {
+			return e.tr.Calibrated().Equal(rec.Time)
+		}
+	}
+	return ref.st.since == rec.Undo.Set
+}
+
 // before returns the time of the latest record in force before index i;
 // zero when there is none.
 func (l *calLog) before(i int) time.Time {
@@ -247,6 +261,11 @@ func (w *worker) void(j *restartJob, done func(error)) {
 		return
 	}
 	rec := &l.recs[i]
+	if !w.holds(ref, rec) {
+		done(&CalibrationRefError{Sensor: ref.id, Seq: rec.Seq, Err: ErrNotInForce,
+			Problem: "the sensor's state no longer holds it (dropped or reset since): record a new calibration instead"})
+		return
+	}
 	var reopened []string
 	for k, p := range []*alert.Prior{rec.Undo.Own, rec.Undo.Peer} {
 		e := (*alertEntry)(nil)
@@ -305,6 +324,11 @@ func (w *worker) correct(j *restartJob, done func(error)) {
 		return
 	}
 	rec := &l.recs[i]
+	if !w.holds(ref, rec) {
+		done(&CalibrationRefError{Sensor: ref.id, Seq: rec.Seq, Err: ErrNotInForce,
+			Problem: "the sensor's state no longer holds it (dropped or reset since): record a new calibration instead"})
+		return
+	}
 	c := *j.cal
 	if c.Time.IsZero() {
 		c.Time = rec.Time
