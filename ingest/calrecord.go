@@ -210,22 +210,24 @@ func (l *calLog) before(i int) time.Time {
 }
 
 // putCalibrations queues records of ref's sensor for the commit that
-// stores its state.
-func (w *worker) putCalibrations(ref *sensorRef, recs ...*storedCalibration) error {
+// stores its state. Their values are finite numbers, times and strings,
+// and so always encode; a record that did not would be logged and left
+// out of the file (the change it records is made all the same).
+func (w *worker) putCalibrations(ref *sensorRef, recs ...*storedCalibration) {
 	out := store.AlertWrite{Sensor: ref.id, Calibrations: map[uint64][]byte{}}
 	for _, r := range recs {
 		data, err := json.Marshal(r)
 		if err != nil {
-			return fmt.Errorf("ingest: calibration %d of %s not encoded: %w", r.Seq, QuoteID(ref.id), err)
+			w.s.log.Error().Str("sensor", ref.id).Uint64("calibration", r.Seq).Err(err).Msg("calibration record not stored")
+			continue
 		}
 		out.Calibrations[r.Seq] = data
 	}
 	ref.st.outs = append(ref.st.outs, out)
-	return nil
 }
 
 // recordCalibration adds the record of a calibration just applied.
-func (w *worker) recordCalibration(ref *sensorRef, l *calLog, c alert.Calibration, at time.Time, undo calUndo, closed []string) (CalibrationRecord, error) {
+func (w *worker) recordCalibration(ref *sensorRef, l *calLog, c alert.Calibration, at time.Time, undo calUndo, closed []string) CalibrationRecord {
 	rec := storedCalibration{
 		CalibrationRecord: CalibrationRecord{
 			Sensor: ref.id, Seq: l.next(), Time: c.Time.UTC(), AsFound: c.AsFound, AsLeft: c.AsLeft,
@@ -233,11 +235,9 @@ func (w *worker) recordCalibration(ref *sensorRef, l *calLog, c alert.Calibratio
 		},
 		Undo: undo,
 	}
-	if err := w.putCalibrations(ref, &rec); err != nil {
-		return CalibrationRecord{}, err
-	}
+	w.putCalibrations(ref, &rec)
 	l.recs = append(l.recs, rec)
-	return rec.CalibrationRecord, nil
+	return rec.CalibrationRecord
 }
 
 // void withdraws calibration j.amend.void of the sensor: the trackers
@@ -290,10 +290,7 @@ func (w *worker) void(j *restartJob, done func(error)) {
 	}
 	changed := *rec
 	changed.Status, changed.Changed, changed.Reason, changed.Reopened = CalibrationVoided, a.at.UTC(), a.reason, reopened
-	if err := w.putCalibrations(ref, &changed); err != nil {
-		done(err)
-		return
-	}
+	w.putCalibrations(ref, &changed)
 	*rec = changed
 	if j.out != nil {
 		*j.out = changed.CalibrationRecord
@@ -393,10 +390,7 @@ func (w *worker) correct(j *restartJob, done func(error)) {
 		},
 		Undo: undo,
 	}
-	if err := w.putCalibrations(ref, &replaced, &next); err != nil {
-		done(err)
-		return
-	}
+	w.putCalibrations(ref, &replaced, &next)
 	*rec = replaced
 	l.recs = append(l.recs, next)
 	if j.out != nil {
