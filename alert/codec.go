@@ -4,16 +4,17 @@ import (
 	"encoding/binary"
 	"fmt"
 	"math"
+	"slices"
 	"time"
 
 	"driftfit/rolling"
 )
 
-// State encoding, version 2, little endian, fixed width so that every
+// State encoding, version 3, little endian, fixed width so that every
 // state has exactly one encoding (a decoded state re-encodes to the same
 // bytes):
 //
-//	"DFA" 0x02
+//	"DFA" 0x03
 //	sensor str; asLeft f64; hasAsLeft bool; calibrated time
 //	u32 machine count, each: span i64, pane i64, kind u8, state u8,
 //	  sev u8, streak u32, crit u32, since time, cleared time
@@ -26,17 +27,31 @@ import (
 // order except Caution and the fields added in version 2, FitSummary
 // slices as u8 count (2 or 3) + values, the calibration as a bool + its
 // three fields; then (version 2) Revision u32, AsOf time, Overdue bool,
-// ExitLowerBound time, ExitCI as two times, AsFound.Interval str.
+// ExitLowerBound time, ExitCI as two times, AsFound.Interval str; then
+// (version 3) u32 amendment count, each: action u8 (1 voided, 2
+// corrected), at time, the calibration's time, as-found f64 and as-left
+// f64, reason str.
 //
-// Version 1, the same without the version 2 fields, still decodes: its
-// ticket's estimates were made at Opened (AsOf), with the prediction
-// interval, and a later evaluation revises it.
-var stateMagic = [4]byte{'D', 'F', 'A', 2}
+// Versions 1 and 2, the same without the later fields, still decode: a
+// version 1 ticket's estimates were made at Opened (AsOf), with the
+// prediction interval, and a later evaluation revises it; a version 2
+// ticket has no amendments.
+var stateMagic = [4]byte{'D', 'F', 'A', 3}
+
+// amendCodes are the encoded Amendment actions, by code - 1.
+var amendCodes = [...]string{AmendVoided, AmendCorrected}
 
 // MarshalBinary encodes the tracker's state (not its rule, which comes
 // from configuration): the as-left value, the last calibration, every
 // alert's state machine and the open ticket.
 func (t *Tracker) MarshalBinary() ([]byte, error) {
+	if t.hasTicket {
+		for _, a := range t.ticket.Amendments {
+			if !slices.Contains(amendCodes[:], a.Action) {
+				return nil, fmt.Errorf("alert: sensor %s ticket %s: amendment action %q", t.sensor, t.ticket.ID, a.Action)
+			}
+		}
+	}
 	var e enc
 	e.b = append(e.b, stateMagic[:]...)
 	e.str(t.sensor)
@@ -72,7 +87,7 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 func (t *Tracker) UnmarshalBinary(data []byte) error {
 	d := dec{b: data}
 	if len(data) < len(stateMagic) || [3]byte(data[:3]) != [3]byte(stateMagic[:3]) || data[3] < 1 || data[3] > stateMagic[3] {
-		return fmt.Errorf("%w: sensor %s: not a version 1 or 2 state", ErrBadState, t.sensor)
+		return fmt.Errorf("%w: sensor %s: not a version 1, 2 or 3 state", ErrBadState, t.sensor)
 	}
 	d.version = data[3]
 	d.b = d.b[4:]
@@ -234,6 +249,21 @@ func (e *enc) ticket(k *Ticket) {
 	e.time(k.ExitCI[0])
 	e.time(k.ExitCI[1])
 	e.str(k.AsFound.Interval)
+	e.u32(uint32(len(k.Amendments)))
+	for _, a := range k.Amendments {
+		code := byte(0)
+		for i, name := range amendCodes {
+			if a.Action == name {
+				code = byte(i + 1)
+			}
+		}
+		e.b = append(e.b, code)
+		e.time(a.At)
+		e.time(a.Calibration.Time)
+		e.f64(a.Calibration.AsFound)
+		e.f64(a.Calibration.AsLeft)
+		e.str(a.Reason)
+	}
 }
 
 // dec reads the encoding with a sticky error: after the first problem
@@ -414,4 +444,31 @@ func (d *dec) ticket(k *Ticket) {
 	k.ExitCI[0] = d.time()
 	k.ExitCI[1] = d.time()
 	k.AsFound.Interval = d.str()
+	if d.version < 3 {
+		return
+	}
+	n = int(d.u32())
+	const amendSize = 1 + 9 + 9 + 8 + 8 + 4
+	if d.err == nil && uint64(n)*amendSize > uint64(len(d.b)) {
+		d.fail("amendment count %d exceeds the data", n)
+	}
+	if d.err != nil || n == 0 {
+		return
+	}
+	k.Amendments = make([]Amendment, n)
+	for i := 0; d.err == nil && i < n; i++ {
+		a := &k.Amendments[i]
+		code := d.u8()
+		if d.err == nil && (code == 0 || int(code) > len(amendCodes)) {
+			d.fail("amendment %d: action %d", i, code)
+			return
+		}
+		a.Action = amendCodes[max(code, 1)-1]
+		a.At = d.time()
+		a.Calibration = Calibration{Time: d.time(), AsFound: d.f64(), AsLeft: d.f64()}
+		a.Reason = d.str()
+		if d.err == nil && (a.At.IsZero() || a.Calibration.Time.IsZero()) {
+			d.fail("amendment %d without a time", i)
+		}
+	}
 }

@@ -163,8 +163,35 @@ func TestTracker_UnmarshalBinary_Version1(t *testing.T) {
 			tk.Revision, tk.AsOf, tk.Overdue, tk.AsFound.Interval, tk.Opened, alert.PredictionInterval)
 	}
 	out, _ := tr.MarshalBinary()
-	if out[3] != 2 {
-		t.Errorf("re-encoded as version %d, want 2", out[3])
+	if out[3] != 3 {
+		t.Errorf("re-encoded as version %d, want 3", out[3])
+	}
+}
+
+// TestTracker_UnmarshalBinary_Version2 decodes the scenario's state as
+// version 2 wrote it (testdata/state_v2.golden, before tickets had
+// amendments): it re-encodes as version 3 to exactly the scenario's
+// state now (state.golden), as the ticket has no amendments.
+func TestTracker_UnmarshalBinary_Version2(t *testing.T) {
+	v2, err := os.ReadFile(filepath.Join("testdata", "state_v2.golden"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	tr := mustTracker(t, "qm.u2.dp-7", scenarioRule())
+	if err := tr.UnmarshalBinary(v2); err != nil {
+		t.Fatal(err)
+	}
+	want, _, _ := scenario(t)
+	if !reflect.DeepEqual(tr, want) {
+		t.Errorf("version 2 state decodes to\n %+v\nwant the scenario's\n %+v", tr, want)
+	}
+	out, _ := tr.MarshalBinary()
+	golden, err := os.ReadFile(filepath.Join("testdata", "state.golden"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(out, golden) {
+		t.Errorf("version 2 state re-encoded differs from state.golden:\n got %x\nwant %x", out, golden)
 	}
 }
 
@@ -183,6 +210,16 @@ func FuzzTracker_UnmarshalBinary(f *testing.F) {
 		f.Fatal(err)
 	}
 	f.Add(v1)
+	v2, err := os.ReadFile(filepath.Join("testdata", "state_v2.golden"))
+	if err != nil {
+		f.Fatal(err)
+	}
+	f.Add(v2)
+	amended, err := os.ReadFile(filepath.Join("testdata", "state_amended.golden"))
+	if err != nil {
+		f.Fatal(err)
+	}
+	f.Add(amended)
 	empty, _ := mustTracker(f, "qm.u2.dp-7", scenarioRule()).MarshalBinary()
 	f.Add(empty)
 	f.Add([]byte("DFA\x01"))
@@ -206,8 +243,8 @@ func FuzzTracker_UnmarshalBinary(f *testing.F) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		// A version 1 state decodes and re-encodes as version 2.
-		if data[3] == 2 && !bytes.Equal(out, data) {
+		// Older versions decode and re-encode as version 3.
+		if data[3] == 3 && !bytes.Equal(out, data) {
 			t.Fatalf("re-encoding differs:\n in  %x\n out %x", data, out)
 		}
 		again := mustTracker(t, "qm.u2.dp-7", scenarioRule())

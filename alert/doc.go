@@ -166,7 +166,11 @@
 // Attribute). Calibrate closes it, ends firing alerts with Reset events,
 // forgets all alert state and takes the new as-left value; the caller
 // restarts the sensor's fits from the calibration time, and Evaluate
-// refuses older fits (ErrStale).
+// refuses older fits (ErrStale). Calibrate returns the Prior state it
+// replaced; with it the caller can withdraw a mistaken calibration
+// (Void: centre and calibration time back, the ticket it closed
+// reopened) or replace its values (Correct). Both leave an Amendment on
+// the ticket concerned.
 //
 // # Caveats
 //

@@ -57,6 +57,13 @@ import (
 // falls due before the exit (40 of 40), a median of 17.6 days before. Overdue says that Due had passed at AsOf (a ticket
 // due at once is not overdue as opened; its window's next evaluation
 // revises it as overdue).
+//
+// # Amendments
+//
+// A ticket closed by a calibration that is later voided reopens as it
+// stood when closed (Tracker.Void), its estimates as of AsOf; one closed
+// by a calibration later corrected stays closed, by the correction
+// (Tracker.Correct). Either counts up Revision and appends an Amendment.
 type Ticket struct {
 	ID       string    `json:"id"` // sensor id + "@" + Opened in compact UTC
 	Sensor   string    `json:"sensor"`
@@ -106,7 +113,11 @@ type Ticket struct {
 
 	// Calibration closed the ticket; nil while open.
 	Calibration *Calibration `json:"calibration,omitempty"`
-	Caution     string       `json:"caution"`
+	// Amendments lists, oldest first, the calibrations that closed the
+	// ticket and were voided since (each reopened it) or corrected (the
+	// correction is Calibration); each counted up Revision.
+	Amendments []Amendment `json:"amendments,omitempty"`
+	Caution    string      `json:"caution"`
 }
 
 // Due bases (Ticket.DueBasis).

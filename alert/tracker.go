@@ -3,6 +3,7 @@ package alert
 import (
 	"fmt"
 	"math"
+	"slices"
 	"time"
 
 	"driftfit/rolling"
@@ -61,6 +62,12 @@ type Decision struct {
 	// it: its due date moved materially or it fell overdue (see Ticket,
 	// Revisions). The caller publishes and stores it like an opening.
 	Revised *Ticket
+	// Reopened is the ticket a voided calibration reopened (Void).
+	Reopened *Ticket
+	// Prior is what Calibrate or Correct replaced: what Void or a later
+	// Correct of that calibration restores. The caller keeps it with its
+	// record of the calibration.
+	Prior *Prior
 	// Judgement says whether Evaluate judged the window, or why not;
 	// zero for Observe and Calibrate.
 	Judgement Judgement
@@ -104,6 +111,9 @@ func (t *Tracker) Rule() Rule {
 // AsLeft returns the centre of the tolerance band, and false while it is
 // not known yet (no rule value and no usable fit so far).
 func (t *Tracker) AsLeft() (float64, bool) { return t.asLeft, t.hasAsLeft }
+
+// Calibrated returns the time of the last calibration; zero when none.
+func (t *Tracker) Calibrated() time.Time { return t.calibrated }
 
 // Ticket returns the open ticket, if any.
 func (t *Tracker) Ticket() (Ticket, bool) { return t.ticket, t.hasTicket }
@@ -387,7 +397,8 @@ func (t *Tracker) event(typ EventType, now time.Time, w rolling.WindowSpec, m *m
 // Calibrate records a calibration of the sensor: it closes the open
 // ticket (returned in Decision.Closed), ends every firing alert with a
 // Reset event, forgets all alert state including cooldowns, and takes
-// c.AsLeft as the new centre of the tolerance band.
+// c.AsLeft as the new centre of the tolerance band. Decision.Prior holds
+// what Void needs to withdraw it.
 //
 // The caller must restart the sensor's fits from c.Time (new rolling
 // sensors); until then Evaluate refuses solutions with older readings
@@ -396,34 +407,168 @@ func (t *Tracker) event(typ EventType, now time.Time, w rolling.WindowSpec, m *m
 // calibration. The state is unchanged on error.
 func (t *Tracker) Calibrate(c Calibration) (Decision, error) {
 	var d Decision
-	if !timeOK(c.Time) {
-		return d, fmt.Errorf("%w: calibration time %v", ErrBadTime, c.Time)
+	c, err := t.checkCalibration(c, t.calibrated)
+	if err != nil {
+		return d, err
 	}
-	c.Time = utc(c.Time)
-	if !finite(c.AsFound) || !finite(c.AsLeft) {
-		return d, fmt.Errorf("%w: sensor %s as-found %v, as-left %v: must be finite", ErrBadCalibration, t.sensor, c.AsFound, c.AsLeft)
-	}
-	if !t.calibrated.IsZero() && c.Time.Before(t.calibrated) {
-		return d, fmt.Errorf("%w: sensor %s time %v before the previous calibration %v", ErrBadCalibration, t.sensor, c.Time, t.calibrated)
-	}
-	for i := range t.machines {
-		m := &t.machines[i]
-		if m.state == Firing {
-			d.Events = append(d.Events, Event{
-				Type: Reset, Sensor: t.sensor, Class: t.rule.Class, Window: windowLabel(m.window),
-				Kind: m.kind, Severity: m.sev, State: Inactive, At: c.Time,
-				Unit: reportUnit(m.kind, t.rule.Unit), Caution: Caution,
-			})
-		}
-	}
-	t.machines = nil
+	p := t.prior()
+	d.Events = t.reset(c.Time)
 	if t.hasTicket {
 		cc := c
 		t.ticket.Calibration = &cc
 		closed := t.ticket
 		d.Closed = &closed
+		p.Closed = &closed
 		t.ticket, t.hasTicket = Ticket{}, false
 	}
 	t.asLeft, t.hasAsLeft, t.calibrated = c.AsLeft, true, c.Time
+	d.Prior = &p
 	return d, nil
+}
+
+// Prior is the part of a tracker's state a calibration replaced and
+// nothing later recomputes: the centre of the tolerance band and the
+// calibration time before it, and the ticket it closed, as closed. Alert
+// states are not part of it: a calibration forgets them for good (the
+// fits they judged restart with it).
+type Prior struct {
+	AsLeft     float64   `json:"as_left"`
+	HasAsLeft  bool      `json:"has_as_left"`
+	Calibrated time.Time `json:"calibrated,omitzero"` // zero: none before
+	Closed     *Ticket   `json:"closed,omitempty"`
+}
+
+// Amendment actions (Amendment.Action).
+const (
+	AmendVoided    = "voided"
+	AmendCorrected = "corrected"
+)
+
+// Amendment records that the calibration which closed a ticket was
+// voided (which reopened the ticket) or corrected (Ticket.Calibration is
+// then the correction) at At, with the operator's reason if given.
+type Amendment struct {
+	Action      string      `json:"action"`
+	At          time.Time   `json:"at"`
+	Calibration Calibration `json:"calibration"` // as it stood before
+	Reason      string      `json:"reason,omitempty"`
+}
+
+// Void withdraws the sensor's last calibration, whose Calibrate (or
+// Correct) returned p, at time at: the centre of the band and the
+// calibration time go back to p's, and the ticket it closed (p.Closed)
+// reopens, as it stood when closed, with a new Revision and an
+// Amendment, unless another ticket has opened since (that one then
+// carries the request for the work). Decision.Reopened is the reopened
+// ticket. The alerts the calibration reset stay reset, and the fits it
+// restarted are not brought back: the evidence gathered since is judged
+// against the restored centre from the next evaluation on.
+//
+// The caller keeps the order: p must come from the calibration in force.
+// Errors: ErrBadTime for a bad at, ErrBadCalibration for a p holding a
+// non-finite centre. The state is unchanged on error.
+func (t *Tracker) Void(at time.Time, p Prior, reason string) (Decision, error) {
+	var d Decision
+	if !timeOK(at) {
+		return d, fmt.Errorf("%w: void time %v", ErrBadTime, at)
+	}
+	if !finite(p.AsLeft) {
+		return d, fmt.Errorf("%w: sensor %s prior as-left %v: must be finite", ErrBadCalibration, t.sensor, p.AsLeft)
+	}
+	if p.Closed != nil && p.Closed.Calibration != nil && !t.hasTicket {
+		tk := amend(p.Closed, AmendVoided, utc(at), reason)
+		tk.Calibration = nil
+		t.ticket, t.hasTicket = tk, true
+		d.Reopened = &tk
+	}
+	t.asLeft, t.hasAsLeft, t.calibrated = p.AsLeft, p.HasAsLeft, utc(p.Calibrated)
+	return d, nil
+}
+
+// Correct replaces the sensor's last calibration, old, whose Calibrate
+// (or Correct) returned p, by c, at time at: c.AsLeft becomes the centre
+// and c.Time the calibration time. The ticket old closed (p.Closed) is
+// closed by c instead, with a new Revision and an Amendment, and comes
+// back in Decision.Closed. When c.Time is after old.Time the caller must
+// restart the fits from c.Time again, and firing alerts end with Reset
+// events as in Calibrate (they judged readings from before the work);
+// otherwise alert states are kept. Decision.Prior is p with the amended
+// ticket: what withdrawing c needs.
+//
+// Errors: ErrBadTime for a bad at or c.Time, ErrBadCalibration for a
+// non-finite value or a c.Time before the calibration before old
+// (p.Calibrated). The state is unchanged on error.
+func (t *Tracker) Correct(at time.Time, old, c Calibration, p Prior, reason string) (Decision, error) {
+	var d Decision
+	if !timeOK(at) {
+		return d, fmt.Errorf("%w: correction time %v", ErrBadTime, at)
+	}
+	c, err := t.checkCalibration(c, utc(p.Calibrated))
+	if err != nil {
+		return d, err
+	}
+	if c.Time.After(utc(old.Time)) {
+		d.Events = t.reset(c.Time)
+	}
+	if p.Closed != nil && p.Closed.Calibration != nil {
+		tk := amend(p.Closed, AmendCorrected, utc(at), reason)
+		cc := c
+		tk.Calibration = &cc
+		d.Closed = &tk
+		p.Closed = &tk
+	}
+	t.asLeft, t.hasAsLeft, t.calibrated = c.AsLeft, true, c.Time
+	d.Prior = &p
+	return d, nil
+}
+
+// checkCalibration validates c against the calibration time before it
+// (zero: none) and returns it in UTC.
+func (t *Tracker) checkCalibration(c Calibration, before time.Time) (Calibration, error) {
+	if !timeOK(c.Time) {
+		return c, fmt.Errorf("%w: calibration time %v", ErrBadTime, c.Time)
+	}
+	c.Time = utc(c.Time)
+	if !finite(c.AsFound) || !finite(c.AsLeft) {
+		return c, fmt.Errorf("%w: sensor %s as-found %v, as-left %v: must be finite", ErrBadCalibration, t.sensor, c.AsFound, c.AsLeft)
+	}
+	if !before.IsZero() && c.Time.Before(before) {
+		return c, fmt.Errorf("%w: sensor %s time %v before the previous calibration %v", ErrBadCalibration, t.sensor, c.Time, before)
+	}
+	return c, nil
+}
+
+// prior returns the state a calibration replaces.
+func (t *Tracker) prior() Prior {
+	return Prior{AsLeft: t.asLeft, HasAsLeft: t.hasAsLeft, Calibrated: t.calibrated}
+}
+
+// reset ends every firing alert with a Reset event at at and forgets all
+// alert state.
+func (t *Tracker) reset(at time.Time) []Event {
+	var evs []Event
+	for i := range t.machines {
+		m := &t.machines[i]
+		if m.state == Firing {
+			evs = append(evs, Event{
+				Type: Reset, Sensor: t.sensor, Class: t.rule.Class, Window: windowLabel(m.window),
+				Kind: m.kind, Severity: m.sev, State: Inactive, At: at,
+				Unit: reportUnit(m.kind, t.rule.Unit), Caution: Caution,
+			})
+		}
+	}
+	t.machines = nil
+	return evs
+}
+
+// amend returns a copy of the closed ticket tk with an amendment of its
+// closing calibration and the next revision.
+func amend(tk *Ticket, action string, at time.Time, reason string) Ticket {
+	out := *tk
+	ev := &out.Evidence // shared with tk otherwise
+	ev.Coef, ev.SE, ev.CI = slices.Clone(ev.Coef), slices.Clone(ev.SE), slices.Clone(ev.CI)
+	out.Amendments = append(slices.Clone(tk.Amendments),
+		Amendment{Action: action, At: at, Calibration: *tk.Calibration, Reason: reason})
+	out.Revision++
+	return out
 }

@@ -177,7 +177,7 @@ func (w *worker) decided(ref *sensorRef, e *alertEntry, d alert.Decision) {
 			subject: w.s.alertPrefix + ev.Sensor, id: eventID(&ev), data: data,
 		})})
 	}
-	for _, tk := range []*alert.Ticket{d.Opened, d.Revised, d.Closed} {
+	for _, tk := range []*alert.Ticket{d.Opened, d.Revised, d.Closed, d.Reopened} {
 		if tk == nil {
 			continue
 		}
@@ -216,10 +216,14 @@ func eventID(ev *alert.Event) string {
 }
 
 // ticketRevisionID names one revision of a ticket (its opening, each
-// revision of its due date, its closing) for deduplication: Nats-Msg-Id
-// on the bus, Idempotency-Key for the webhook.
+// revision of its due date, its closing, a reopening or a closing
+// amended) for deduplication: Nats-Msg-Id on the bus, Idempotency-Key
+// for the webhook. Every amendment counts up the revision, so a closing
+// after one is told from the first by its revision.
 func ticketRevisionID(tk *alert.Ticket) string {
 	switch {
+	case tk.Calibration != nil && len(tk.Amendments) > 0:
+		return "tk|" + tk.ID + "|closed|r" + strconv.Itoa(tk.Revision)
 	case tk.Calibration != nil:
 		return "tk|" + tk.ID + "|closed"
 	case tk.Revision == 0:
@@ -230,8 +234,11 @@ func ticketRevisionID(tk *alert.Ticket) string {
 
 // calibrate applies a calibration to the sensor's trackers (its own
 // rule's and, for a peer-group member, its peer rule's), which closes its
-// open ticket. A sensor without a rule has nothing to apply.
-func (w *worker) calibrate(ref *sensorRef, c alert.Calibration) error {
+// open ticket, and returns the trackers' prior states and the ids of the
+// tickets closed. A sensor without a rule has nothing to apply.
+func (w *worker) calibrate(ref *sensorRef, c alert.Calibration) (calUndo, []string, error) {
+	var undo calUndo
+	var closed []string
 	for i, peer := range []bool{false, true} {
 		if peer && ref.st.member == nil {
 			if _, stored := w.s.savedAlerts[ref.id+peerKey]; !stored {
@@ -248,12 +255,20 @@ func (w *worker) calibrate(ref *sensorRef, c alert.Calibration) error {
 		}
 		d, err := e.tr.Calibrate(cc)
 		if err != nil {
-			return err
+			return undo, nil, err
+		}
+		if peer {
+			undo.Peer = d.Prior
+		} else {
+			undo.Own = d.Prior
+		}
+		if d.Closed != nil {
+			closed = append(closed, d.Closed.ID)
 		}
 		w.decided(ref, e, d)
 	}
 	w.calibrated(ref)
-	return nil
+	return undo, closed, nil
 }
 
 // encode stores the evaluation marks with the tracker's state, so that a

@@ -170,8 +170,9 @@ func TestService_TicketThroughOutbox(t *testing.T) {
 	// The reply comes once the calibration is committed: the ticket is
 	// closed in the file by then.
 	reply, err := h.nc.Request("driftfit.calibrations."+id, []byte(`{"as_found": 511.9, "as_left": 500.1}`), 10*time.Second)
-	if err != nil || string(reply.Data) != `{"ok":true}` {
-		t.Fatalf("calibration reply %v, %v", reply, err)
+	var ans ingest.CalibrationReply
+	if err != nil || json.Unmarshal(reply.Data, &ans) != nil || !ans.OK || ans.Record == nil || ans.Record.Seq != 1 || ans.Record.AsFound != 511.9 {
+		t.Fatalf("calibration reply %v, %v; want ok with record 1", reply, err)
 	}
 	var stored alert.Ticket
 	_ = h.db.Tickets(func(_ string, d []byte) error { return json.Unmarshal(d, &stored) })

@@ -152,7 +152,10 @@ func (w *worker) save(b *store.Batch, ref *sensorRef) error {
 		st.dropped = false
 		keep(b.DropPanes(ref.id))
 		keep(b.SetRestart(ref.id, st.since))
+	} else if st.cutMoved {
+		keep(b.SetRestart(ref.id, st.since))
 	}
+	st.cutMoved = false
 	keep(b.Sensor(ref.id, st.sensor))
 	keep(w.savePeer(b, ref))
 	if st.lastSeq != 0 && st.lastSeq != st.savedSeq {

@@ -33,6 +33,17 @@
 // to the webhook with an Idempotency-Key. Sent items are deleted by a
 // later commit. A calibration's reply is sent once its commit is done.
 //
+// # Calibration records
+//
+// Each calibration is stored as a CalibrationRecord, numbered per sensor,
+// with what it replaced (the readings cutoff, the trackers' alert.Prior),
+// in the same commit as the sensor's state. A void or correction names
+// the record, which must be the sensor's latest in force, and goes the
+// same ordered path (calrecord.go): a void gives the trackers back their
+// prior state and the cutoff its previous value, a correction records a
+// new number; the old record stays, marked. A worker reads a sensor's
+// records from the file on its first calibration request and keeps them.
+//
 // # Where to add things
 //
 //   - A payload shape: Decoder.Decode in payload.go (with a case in
@@ -68,5 +79,6 @@
 // Decoders are not safe for concurrent use; give each goroutine its own
 // CSVReader or Decoder. ParseTime and the Append functions are safe to
 // call from any goroutine. A Service is safe for concurrent use through
-// its methods (Stats, Restart, Calibrate); Run is called once.
+// its methods (Stats, Restart, Calibrate, VoidCalibration,
+// CorrectCalibration); Run is called once.
 package ingest

@@ -130,3 +130,17 @@ var ErrRole = errors.New("ingest: bad bus user")
 // ErrNoPassword is returned by Connect when a user's password variable
 // of the embedded server is empty or not set.
 var ErrNoPassword = errors.New("ingest: bus user without a password")
+
+// Errors of a void or correction of a calibration, inside a
+// *CalibrationRefError.
+var (
+	// ErrNoCalibration: the sensor has no calibration of that number
+	// (or the service holds no state of the sensor, or the record is
+	// damaged in the state file).
+	ErrNoCalibration = errors.New("ingest: no such calibration")
+
+	// ErrNotInForce: the calibration is not the sensor's latest in
+	// force: voided or corrected already, or another one was recorded
+	// after it.
+	ErrNotInForce = errors.New("ingest: calibration not the latest in force")
+)

@@ -83,6 +83,9 @@ type sensorState struct {
 	// stored panes of before the restart and store since.
 	since   int64
 	dropped bool
+	// cutMoved asks the next commit to store since alone (a voided or
+	// corrected calibration moved it without restarting the fits).
+	cutMoved bool
 
 	alerts alertState
 	member *peerMember // nil: not (yet) in a peer group

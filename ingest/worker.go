@@ -46,6 +46,8 @@ type worker struct {
 	saved uint64 // readings applied and snapshotted, ever; read at commit tokens
 
 	dq workerQuality // detectors' clock, judgements (detect.go)
+
+	cals map[string]*calLog // calibration records of the sensors asked about (calrecord.go)
 }
 
 type histEntry struct {
@@ -257,13 +259,26 @@ func specsOf(s *rolling.Sensor) []rolling.WindowSpec {
 
 // restartJob empties a sensor's windows, after applying a calibration
 // to its alert trackers when cal is set; see Service.Restart and
-// Service.Calibrate. done, if set, learns the outcome: an error at once,
-// or that of the commit storing it.
+// Service.Calibrate. With amend set it voids or corrects a calibration
+// instead (cal holding the correction). done, if set, learns the
+// outcome: an error at once, or that of the commit storing it; out, if
+// set, is given the calibration record before done is queued.
 type restartJob struct {
-	ref  *sensorRef
-	from int64
-	cal  *alert.Calibration
-	done func(error)
+	ref   *sensorRef
+	from  int64
+	cal   *alert.Calibration
+	amend *amendment
+	at    time.Time // when the request came (the record's time)
+	out   *CalibrationRecord
+	done  func(error)
+}
+
+// amendment names the calibration a void (void) or a correction
+// (correct) applies to, one of them non-zero.
+type amendment struct {
+	void, correct uint64
+	reason        string
+	at            time.Time
 }
 
 // errBeforeRestart is the cause of a reading refused because it is older
@@ -271,38 +286,72 @@ type restartJob struct {
 var errBeforeRestart = errors.New("ingest: reading older than the sensor's last calibration")
 
 func (w *worker) restart(j *restartJob) {
-	st := j.ref.st
 	done := j.done
 	if done == nil {
 		done = func(error) {}
 	}
-	specs := st.windows
-	if st.sensor != nil {
-		specs = specsOf(st.sensor)
+	switch {
+	case j.amend != nil && j.amend.void != 0:
+		w.void(j, done)
+		return
+	case j.amend != nil:
+		w.correct(j, done)
+		return
 	}
-	fresh, err := rolling.NewSensor(specs...)
+	fresh, err := w.freshSensor(j.ref)
 	if err != nil {
-		w.s.log.Warn().Str("sensor", j.ref.id).Err(err).Msg("fits not restarted: windows refused")
-		done(fmt.Errorf("sensor %s: windows: %w", j.ref.id, err))
+		done(err)
 		return
 	}
 	if j.cal != nil {
-		if err := w.calibrate(j.ref, *j.cal); err != nil {
+		l, err := w.calLog(j.ref)
+		if err != nil {
 			done(err)
 			return
 		}
-		w.s.log.Info().Str("sensor", j.ref.id).Float64("as_found", j.cal.AsFound).Float64("as_left", j.cal.AsLeft).
+		undo, closed, err := w.calibrate(j.ref, *j.cal)
+		if err != nil {
+			done(err)
+			return
+		}
+		undo.Cutoff, undo.Set = j.ref.st.since, j.from
+		rec := w.recordCalibration(j.ref, l, *j.cal, j.at, undo, closed)
+		if j.out != nil {
+			*j.out = rec
+		}
+		w.s.log.Info().Str("sensor", j.ref.id).Uint64("calibration", rec.Seq).Float64("as_found", j.cal.AsFound).Float64("as_left", j.cal.AsLeft).
 			Time("at", j.cal.Time).Bool("alert_rule", j.ref.st.alerts.entry[0] != nil).Msg("calibration recorded")
 	}
-	j.ref.st.acks = append(j.ref.st.acks, done)
-	j.ref.st.urgent = true
-	if st.sensor == nil {
-		w.s.sensorMade(j.ref)
+	w.settled(j.ref, done)
+	w.restartFits(j.ref, fresh, j.from)
+}
+
+// freshSensor returns empty windows of the sensor's specs.
+func (w *worker) freshSensor(ref *sensorRef) (*rolling.Sensor, error) {
+	specs := ref.st.windows
+	if ref.st.sensor != nil {
+		specs = specsOf(ref.st.sensor)
 	}
-	st.sensor, st.since, st.dropped = fresh, j.from, true
+	fresh, err := rolling.NewSensor(specs...)
+	if err != nil {
+		w.s.log.Warn().Str("sensor", ref.id).Err(err).Msg("fits not restarted: windows refused")
+		return nil, fmt.Errorf("sensor %s: windows: %w", ref.id, err)
+	}
+	return fresh, nil
+}
+
+// restartFits puts fresh in place of the sensor's windows and refuses
+// readings older than from (Unix ns) from now on; the next commit
+// deletes the stored panes and stores the cutoff.
+func (w *worker) restartFits(ref *sensorRef, fresh *rolling.Sensor, from int64) {
+	st := ref.st
+	if st.sensor == nil {
+		w.s.sensorMade(ref)
+	}
+	st.sensor, st.since, st.dropped = fresh, from, true
 	st.dedup = Dedup{} // the fresh sensor holds none of the readings seen
-	w.mark(j.ref)
-	w.s.log.Info().Str("sensor", j.ref.id).Time("from", time.Unix(0, j.from)).Msg("fits restarted")
+	w.mark(ref)
+	w.s.log.Info().Str("sensor", ref.id).Time("from", time.Unix(0, from)).Msg("fits restarted")
 }
 
 // closePanes records the fit of every window whose newest pane the next

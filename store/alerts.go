@@ -1,8 +1,11 @@
 package store
 
 import (
+	"bytes"
 	"encoding/binary"
 	"fmt"
+	"maps"
+	"slices"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -16,11 +19,14 @@ import (
 //	outbox   lane(u8) seq(u64) → a delivery still to make (opaque); keys
 //	         of 8 bytes (no lane), written by earlier versions, are read
 //	         as lane 0
+//	calibrations  id 0x00 number(u64) → one calibration record of the
+//	         sensor (opaque); made with its first key
 var (
-	bucketAlerts  = []byte("alerts")
-	bucketEvents  = []byte("events")
-	bucketTickets = []byte("tickets")
-	bucketOutbox  = []byte("outbox")
+	bucketAlerts       = []byte("alerts")
+	bucketEvents       = []byte("events")
+	bucketTickets      = []byte("tickets")
+	bucketOutbox       = []byte("outbox")
+	bucketCalibrations = []byte("calibrations")
 )
 
 // AlertWrite is what one sensor's alert evaluation changed. Nil fields
@@ -34,6 +40,9 @@ type AlertWrite struct {
 	// Outbox holds deliveries to make (e.g. bus publications, webhook
 	// posts); their Seq is assigned when they are stored.
 	Outbox []OutboxItem
+	// Calibrations maps a calibration record's number (from 1) to the
+	// record, which replaces any stored under that number of Sensor.
+	Calibrations map[uint64][]byte
 }
 
 // TimedValue is a value filed under a time.
@@ -111,6 +120,9 @@ func writeAlerts(tx *bolt.Tx, ws []AlertWrite, st *CommitStats) error {
 				return err
 			}
 		}
+		if err := putCalibrations(tx, w, st); err != nil {
+			return err
+		}
 		for _, it := range w.Outbox {
 			if it.Lane == 0 {
 				return fmt.Errorf("%w: outbox lane 0 is for items of earlier versions", ErrRecord)
@@ -126,6 +138,70 @@ func writeAlerts(tx *bolt.Tx, ws []AlertWrite, st *CommitStats) error {
 		}
 	}
 	return nil
+}
+
+// putCalibrations puts the calibration records of w, in number order.
+func putCalibrations(tx *bolt.Tx, w AlertWrite, st *CommitStats) error {
+	if len(w.Calibrations) == 0 {
+		return nil
+	}
+	bk, err := tx.CreateBucketIfNotExists(bucketCalibrations)
+	if err != nil {
+		return err
+	}
+	for _, n := range slices.Sorted(maps.Keys(w.Calibrations)) {
+		if n == 0 {
+			return fmt.Errorf("%w: calibration number 0 of %s", ErrRecord, w.Sensor)
+		}
+		if err := st.put(bk, binary.BigEndian.AppendUint64(appendIDPrefix(nil, w.Sensor), n), w.Calibrations[n]); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// Calibrations calls fn with the stored calibration records of sensor
+// (of every sensor when sensor is ""), by sensor id and then number. The
+// bytes are valid only during the call. A record that fails its checksum
+// is passed with data nil, so that a caller numbering records sees every
+// number taken, and is counted in a *SkippedError returned at the end;
+// an error from fn stops the walk and is returned as it is.
+func (db *DB) Calibrations(sensor string, fn func(sensor string, n uint64, data []byte) error) error {
+	var prefix []byte
+	if sensor != "" {
+		if err := checkID(sensor); err != nil {
+			return err
+		}
+		prefix = appendIDPrefix(nil, sensor)
+	}
+	skip := SkippedError{What: "calibration records"}
+	err := db.bolt.View(func(tx *bolt.Tx) error {
+		skip = SkippedError{What: "calibration records"}
+		bk := tx.Bucket(bucketCalibrations)
+		if bk == nil {
+			return nil
+		}
+		c := bk.Cursor()
+		for k, v := c.Seek(prefix); k != nil && bytes.HasPrefix(k, prefix); k, v = c.Next() {
+			n := len(k) - 9
+			if n < 1 || k[n] != sep || bytes.IndexByte(k[:n], sep) >= 0 {
+				return fmt.Errorf("%w: calibration key %x", ErrCorrupt, k)
+			}
+			data, err := unseal(bucketCalibrations, k, v)
+			if err != nil {
+				skip.add(err)
+				data = nil
+			}
+			if err := fn(string(k[:n]), binary.BigEndian.Uint64(k[n+1:]), data); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	return skip.err()
 }
 
 // outboxKey is lane(u8) seq(u64), or seq(u64) alone for lane 0.

@@ -71,7 +71,7 @@
 //	                 (made with its first key)
 //	seqs             id → uint64 stream sequence of the last message the
 //	                 sensor's stored state holds (made with its first key)
-//	alerts, events, tickets, outbox: see alerts.go
+//	alerts, events, tickets, outbox, calibrations: see alerts.go
 //	set-aside        id 0x00 bucket 0x00 key → bytes found there, of a
 //	                 sensor Restore could not trust (made with its first key)
 //

@@ -26,7 +26,8 @@ func (d Dropped) Any() bool {
 // its window specs, panes, restart time, stream sequence, alert state
 // and whatever of it was set aside. Its fit history is kept, as the record of what the
 // sensor did (history retention deletes it in time), and so are alert
-// events and tickets, which belong to the plant's record. Once dropped,
+// events, tickets and calibration records, which belong to the plant's
+// record. Once dropped,
 // a sensor that reports again starts with empty windows. Call it only
 // while no service holds the file: a running service would write the
 // sensor back from memory at its next commit.

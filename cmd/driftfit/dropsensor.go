@@ -18,8 +18,9 @@ const dropSensorHelp = `Usage: driftfit drop-sensor [--data DIR] SENSOR
 Deletes the stored state of one sensor from the state file: its window
 panes and specs, the time its fits last restarted, the stream sequence
 its state held, its alert state, and whatever of it was set aside as
-damaged. Its fit history, alert events and
-tickets are kept. If the sensor reports again, its windows start empty.
+damaged. Its fit history, alert events, tickets and calibration records
+are kept (a calibration from before the drop can no longer be voided or
+corrected). If the sensor reports again, its windows start empty.
 
 Stop driftfit serve first: the command refuses while a service holds the
 file, which would otherwise write the sensor back at its next commit.`

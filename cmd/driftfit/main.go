@@ -49,7 +49,8 @@ func init() {
 		{"check-config", "check a configuration file and explain what it sets", runCheckConfig},
 		{"alerts", "list alert events, or the alerts still firing", runAlerts},
 		{"tickets", "list recalibration tickets", runTickets},
-		{"calibrated", "record a sensor's calibration (as-found, as-left) with the running service", runCalibrated},
+		{"calibrated", "record a sensor's calibration (as-found, as-left) with the running service; void or correct one", runCalibrated},
+		{"calibrations", "list the recorded calibrations, voided and corrected ones marked", runCalibrations},
 		{"bench", "measure throughput, latency, memory and restart against the bare bus", runBench},
 		{"drop-sensor", "delete one sensor's stored state (not its history) while serve is stopped", runDropSensor},
 	}

@@ -139,8 +139,9 @@ func serveFlowRun(t *testing.T, cfgPath string, rs []flowReading, calID string, 
 			waitTaken(i)
 			body, _ := json.Marshal(ingest.CalibrationMsg{T: calAt.Format(time.RFC3339Nano), AsFound: asFound, AsLeft: 500})
 			reply, err := nc.Request("driftfit.calibrations."+calID, body, 30*time.Second)
-			if err != nil || string(reply.Data) != `{"ok":true}` {
-				t.Fatalf("calibration reply %v, %v", reply, err)
+			var ans ingest.CalibrationReply
+			if err != nil || json.Unmarshal(reply.Data, &ans) != nil || !ans.OK || ans.Record == nil {
+				t.Fatalf("calibration reply %v, %v; want ok with the record", reply, err)
 			}
 			calibrated = true
 		}

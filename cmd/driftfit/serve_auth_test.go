@@ -134,7 +134,7 @@ store:
 		t.Errorf("alerts through the service: exit %d, stderr:\n%s", code, stderr)
 	}
 	stdout2, stderr2, code := runCmd(t, "", "calibrated", "qm.u1.steam.pt-101", "--as-found", "1000.4", "--as-left", "1000", "--config", cfgPath, "--servers", url)
-	if code != 0 || !strings.Contains(stdout2, "calibration of qm.u1.steam.pt-101 recorded") {
+	if code != 0 || !strings.Contains(stdout2, "calibration 1 of qm.u1.steam.pt-101 recorded (as-found 1000.4, as-left 1000, at ") {
 		t.Errorf("calibrated as the technician: exit %d, stdout %q, stderr:\n%s", code, stdout2, stderr2)
 	}
 	_, stderr3, code := runCmd(t, "", "calibrated", "qm.u2.steam.pt-101", "--force", "--as-found", "1", "--as-left", "1", "--config", cfgPath, "--servers", url)

@@ -537,8 +537,9 @@ func TestServe_CalibrationDurableBeforeReply(t *testing.T) {
 	at := time.Unix(0, rs[len(rs)-1].UnixNano).Add(time.Minute).UTC().Truncate(time.Second)
 	body := fmt.Sprintf(`{"t": %q, "as_found": 502.5, "as_left": 500.0}`, at.Format(time.RFC3339))
 	reply, err := nc.Request("driftfit.calibrations.crash.s0000", []byte(body), 10*time.Second)
-	if err != nil || string(reply.Data) != `{"ok":true}` {
-		t.Fatalf("calibration reply %v, %v", reply, err)
+	var ans ingest.CalibrationReply
+	if err != nil || json.Unmarshal(reply.Data, &ans) != nil || !ans.OK || ans.Record == nil || ans.Record.Seq != 1 {
+		t.Fatalf("calibration reply %v, %v; want ok with record 1", reply, err)
 	}
 	if err := c.cmd.Process.Signal(syscall.SIGKILL); err != nil {
 		t.Fatal(err)

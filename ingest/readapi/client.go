@@ -58,6 +58,7 @@ func (c *Client) Close() error { c.nc.Close(); return nil }
 // until the last one.
 func (c *Client) request(subject string, data []byte, fn func([]byte) error) error {
 	inbox := c.nc.NewRespInbox()
+	before := c.nc.LastError()
 	sub, err := c.nc.SubscribeSync(inbox)
 	if err != nil {
 		return err
@@ -66,7 +67,7 @@ func (c *Client) request(subject string, data []byte, fn func([]byte) error) err
 	if err := c.nc.PublishRequest(subject, inbox, data); err != nil {
 		return err
 	}
-	if err := c.refused(subject); err != nil {
+	if err := c.refused(subject, before); err != nil {
 		return err
 	}
 	for {
@@ -95,11 +96,14 @@ func (c *Client) request(subject string, data []byte, fn func([]byte) error) err
 // the refusal if it refused to let this client publish on subject or
 // take the reply (the server answers a PING only after the error of
 // what came before it, and nats.go records that error on reading it).
-func (c *Client) refused(subject string) error {
+// before is the connection's last error from before the request:
+// nats.go keeps the last error until the next, so only a new one is
+// this request's.
+func (c *Client) refused(subject string, before error) error {
 	if err := c.nc.Flush(); err != nil {
 		return err
 	}
-	if err := c.nc.LastError(); errors.Is(err, nats.ErrPermissionViolation) {
+	if err := c.nc.LastError(); err != before && errors.Is(err, nats.ErrPermissionViolation) {
 		return fmt.Errorf("%w: a request on %s at %s: %w", ErrRefused, subject, c.url, err)
 	}
 	return nil
@@ -225,41 +229,77 @@ func (c *Client) CheckHolds(path string) error {
 	return nil
 }
 
-// Calibrate sends a calibration of sensor to the service on
-// prefix.sensor and waits for its answer (at most Timeout).
-func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal ingest.CalibrationMsg) error {
+// Calibrate sends a calibration request on prefix.sensor (a
+// calibration to record, or a void or correction of one) and waits for
+// the service's answer (at most Timeout). It returns the record the
+// service stored, or nil when its answer carries none. Requests on one
+// Client are told apart only when made one at a time: a refusal by the
+// bus's permissions is the connection's, not the request's.
+func (c *Client) Calibrate(ctx context.Context, prefix, sensor string, cal ingest.CalibrationMsg) (*ingest.CalibrationRecord, error) {
 	payload, err := json.Marshal(cal)
 	if err != nil {
-		return err
+		return nil, err
 	}
 	ctx, cancel := context.WithTimeout(ctx, Timeout)
 	defer cancel()
 	subject := prefix + "." + sensor
 	inbox := c.nc.NewRespInbox()
+	before := c.nc.LastError()
 	sub, err := c.nc.SubscribeSync(inbox)
 	if err != nil {
-		return err
+		return nil, err
 	}
 	defer sub.Unsubscribe()
 	if err := c.nc.PublishRequest(subject, inbox, payload); err != nil {
-		return err
+		return nil, err
 	}
-	if err := c.refused(subject); err != nil {
-		return err
+	if err := c.refused(subject, before); err != nil {
+		return nil, err
 	}
 	msg, err := sub.NextMsgWithContext(ctx)
 	if err != nil {
-		return fmt.Errorf("%w at %s: %w", ErrNoAnswer, c.url, err)
+		return nil, fmt.Errorf("%w at %s: %w", ErrNoAnswer, c.url, err)
 	}
-	var ans struct {
-		OK    bool   `json:"ok"`
-		Error string `json:"error"`
-	}
+	var ans ingest.CalibrationReply
 	if err := json.Unmarshal(msg.Data, &ans); err != nil {
-		return fmt.Errorf("%w: %w", ErrMalformedReply, err)
+		return nil, fmt.Errorf("%w: %w", ErrMalformedReply, err)
 	}
 	if !ans.OK {
-		return &ServiceError{Subject: prefix + "." + sensor, Msg: ans.Error}
+		return nil, &ServiceError{Subject: prefix + "." + sensor, Msg: ans.Error}
 	}
-	return nil
+	return ans.Record, nil
+}
+
+// Calibrations calls fn with the stored calibration records of sensor
+// (every sensor when ""), as store.DB.Calibrations; a damaged record
+// comes with data nil.
+func (c *Client) Calibrations(sensor string, fn func(sensor string, n uint64, data []byte) error) error {
+	q, err := json.Marshal(Request{Sensor: sensor})
+	if err != nil {
+		return err
+	}
+	return c.request(CalibrationsSubject, q, func(b []byte) error {
+		for len(b) > 0 {
+			id, rest, err := readFrame(b)
+			if err != nil {
+				return err
+			}
+			n, k := binary.Uvarint(rest)
+			if k <= 0 || n == 0 {
+				return ErrMalformedReply
+			}
+			data, rest, err := readFrame(rest[k:])
+			if err != nil {
+				return err
+			}
+			if len(data) == 0 {
+				data = nil
+			}
+			if err := fn(string(id), n, data); err != nil {
+				return err
+			}
+			b = rest
+		}
+		return nil
+	})
 }

@@ -151,6 +151,20 @@ func TestPermissions_DocumentedConfig(t *testing.T) {
 	if err := calibrateAs(t, url, "qm-tech-u1", testPasswords["QM_TECH_U1_PASSWORD"], "qm.u2.steam.pt-101", cal); !errors.Is(err, readapi.ErrRefused) {
 		t.Errorf("technician: client's calibration of another unit's sensor = %v, want ErrRefused", err)
 	}
+	// One client, refused once, is not refused what it may do next (the
+	// bus keeps the connection's last error).
+	tc, err := readapi.DialBus(ingest.BusOptions{Servers: []string{url}, User: "qm-tech-u1", PasswordEnv: "PW",
+		Getenv: func(string) string { return testPasswords["QM_TECH_U1_PASSWORD"] }}, "driftfit test")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer tc.Close()
+	if _, err := tc.Calibrate(t.Context(), "driftfit.calibrations", "qm.u2.steam.pt-101", cal); !errors.Is(err, readapi.ErrRefused) {
+		t.Errorf("technician: calibration of another unit's sensor = %v, want ErrRefused", err)
+	}
+	if _, err := tc.Calibrate(t.Context(), "driftfit.calibrations", "qm.u1.steam.pt-101", cal); err != nil {
+		t.Errorf("technician: own sensor after a refusal on the same connection: %v", err)
+	}
 	if err := calibrate(tech, "qm.u2.steam.pt-101"); err == nil {
 		t.Error("technician: calibration of another unit's sensor answered")
 	}
@@ -204,7 +218,8 @@ func calibrateAs(t *testing.T, url, user, password, id string, cal ingest.Calibr
 		return err
 	}
 	defer c.Close()
-	return c.Calibrate(t.Context(), "driftfit.calibrations", id, cal)
+	_, err = c.Calibrate(t.Context(), "driftfit.calibrations", id, cal)
+	return err
 }
 
 // startService runs a service in stream mode on nc with a real bbolt

@@ -19,24 +19,30 @@
 //   - events: per event its time (varint Unix ns) and its JSON as a frame
 //     (uvarint length, then the bytes);
 //   - tickets: per ticket its id as a frame, then its JSON as a frame;
+//   - calibrations (request: a JSON Request, Sensor "" for all): per
+//     record the sensor id as a frame, its number as a uvarint, then
+//     the record's JSON as a frame (empty when damaged in the file);
 //   - identity: a JSON Identity, in one message.
 //
 // Calibrations travel the other way, as a request on
-// <calibration prefix>.<sensor> with a JSON ingest.CalibrationMsg,
-// answered with {"ok":true} once stored, or {"error":"..."}; Client sends
-// them, ingest answers them.
+// <calibration prefix>.<sensor> with a JSON ingest.CalibrationMsg (a
+// calibration, or a void or correction of one), answered with a JSON
+// ingest.CalibrationReply once stored ({"ok":true,"record":{...}}), or
+// {"ok":false,"error":"..."}; Client sends them, ingest answers them.
 package readapi
 
 import "time"
 
 // Subjects of the read API, all under Prefix.
 const (
-	Prefix          = "driftfit.api"
-	HistorySubject  = Prefix + ".history"
-	SensorsSubject  = Prefix + ".sensors"
-	EventsSubject   = Prefix + ".events"
-	TicketsSubject  = Prefix + ".tickets"
-	IdentitySubject = Prefix + ".identity"
+	Prefix         = "driftfit.api"
+	HistorySubject = Prefix + ".history"
+	SensorsSubject = Prefix + ".sensors"
+	EventsSubject  = Prefix + ".events"
+	TicketsSubject = Prefix + ".tickets"
+	// CalibrationsSubject lists calibration records.
+	CalibrationsSubject = Prefix + ".calibrations"
+	IdentitySubject     = Prefix + ".identity"
 )
 
 // Reply headers.

@@ -87,9 +87,12 @@ func newFixture(t *testing.T) *fixture {
 		t.Fatal(err)
 	}
 	err = db.WriteAlerts([]store.AlertWrite{{
-		Sensor:  f.sensor,
-		Events:  []store.TimedValue{{At: t0, Data: []byte(`{"n":1}`)}, {At: t0.Add(time.Hour), Data: []byte(`{"n":2}`)}},
-		Tickets: map[string][]byte{"a@1": []byte(`{"id":"a@1"}`), "b@2": []byte(`{"id":"b@2"}`)},
+		Sensor:       f.sensor,
+		Events:       []store.TimedValue{{At: t0, Data: []byte(`{"n":1}`)}, {At: t0.Add(time.Hour), Data: []byte(`{"n":2}`)}},
+		Tickets:      map[string][]byte{"a@1": []byte(`{"id":"a@1"}`), "b@2": []byte(`{"id":"b@2"}`)},
+		Calibrations: map[uint64][]byte{1: []byte(`{"seq":1,"status":"voided"}`), 2: []byte(`{"seq":2}`)},
+	}, {
+		Sensor: "qm.u1.steam.pt-101a", Calibrations: map[uint64][]byte{1: []byte(`{"seq":1}`)},
 	}})
 	if err != nil {
 		t.Fatal(err)
@@ -119,6 +122,7 @@ type source interface {
 	HistorySensors(fn func(id string) error) error
 	Events(since, until time.Time, fn func(at time.Time, data []byte) error) error
 	Tickets(fn func(id string, data []byte) error) error
+	Calibrations(sensor string, fn func(sensor string, n uint64, data []byte) error) error
 }
 
 // dump renders every answer of src in one text, records in the store's
@@ -147,6 +151,14 @@ func dump(t *testing.T, src source, sensor string, since, until time.Time) (stri
 	}
 	if err := src.Tickets(func(id string, d []byte) error { fmt.Fprintf(&b, "ticket %s %s\n", id, d); return nil }); err != nil {
 		t.Fatal(err)
+	}
+	for _, id := range []string{"", sensor} {
+		if err := src.Calibrations(id, func(id string, k uint64, d []byte) error {
+			fmt.Fprintf(&b, "calibration %s %d %s\n", id, k, d)
+			return nil
+		}); err != nil {
+			t.Fatal(err)
+		}
 	}
 	return b.String(), n
 }
@@ -207,9 +219,9 @@ func TestClient_Calibrate(t *testing.T) {
 		if err := json.Unmarshal(m.Data, &got); err != nil {
 			t.Error(err)
 		}
-		ans := []byte(`{"ok":true}`)
+		ans := []byte(`{"ok":true,"record":{"sensor":"qm.x","seq":4}}`)
 		if strings.HasSuffix(m.Subject, ".bad") {
-			ans = []byte(`{"error":"no such sensor"}`)
+			ans = []byte(`{"ok":false,"error":"no such sensor"}`)
 		}
 		_ = m.Respond(ans)
 	})
@@ -221,10 +233,10 @@ func TestClient_Calibrate(t *testing.T) {
 		t.Fatal(err)
 	}
 	want := ingest.CalibrationMsg{T: "2026-03-01T00:00:00Z", AsFound: 1.25, AsLeft: -0.5}
-	if err := f.client.Calibrate(context.Background(), "cal", "qm.x", want); err != nil || got != want {
-		t.Errorf("Calibrate = %v, service got %+v; want nil and %+v", err, got, want)
+	if rec, err := f.client.Calibrate(context.Background(), "cal", "qm.x", want); err != nil || got != want || rec == nil || rec.Seq != 4 {
+		t.Errorf("Calibrate = %+v, %v, service got %+v; want record 4, nil and %+v", rec, err, got, want)
 	}
-	err = f.client.Calibrate(context.Background(), "cal", "bad", want)
+	_, err = f.client.Calibrate(context.Background(), "cal", "bad", want)
 	var se *readapi.ServiceError
 	if !errors.As(err, &se) || se.Msg != "no such sensor" {
 		t.Errorf("Calibrate refused = %v, want a *ServiceError with the service's message", err)

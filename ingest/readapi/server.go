@@ -15,7 +15,8 @@ import (
 	"driftfit/store"
 )
 
-// Serve answers identity, history, sensor-list, event and ticket requests from db
+// Serve answers identity, history, sensor-list, event, ticket and
+// calibration-record requests from db
 // on nc until the returned stop is called; stop unsubscribes. Handlers
 // run on nc's delivery goroutine, each inside one read transaction of db.
 // A request whose reply subject lies under the API's own subjects or
@@ -105,6 +106,19 @@ func Serve(nc *nats.Conn, db *store.DB, log zerolog.Logger, own ...string) (stop
 				return db.Events(since, until, func(at time.Time, data []byte) error {
 					return add(func(b []byte) ([]byte, error) {
 						return appendFrame(binary.AppendVarint(b, at.UnixNano()), data), nil
+					})
+				})
+			})
+		},
+		CalibrationsSubject: func(m *nats.Msg) {
+			q, ok := request(m)
+			if !ok {
+				return
+			}
+			reply(m, func(add func(func([]byte) ([]byte, error)) error) error {
+				return db.Calibrations(q.Sensor, func(id string, n uint64, data []byte) error {
+					return add(func(b []byte) ([]byte, error) {
+						return appendFrame(binary.AppendUvarint(appendFrame(b, []byte(id)), n), data), nil
 					})
 				})
 			})

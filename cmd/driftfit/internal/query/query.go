@@ -1,5 +1,5 @@
 // Package query selects what the reading commands (history, alerts,
-// tickets) show: it opens the state file, or asks the running service
+// tickets, calibrations) show: it opens the state file, or asks the running service
 // that holds it, parses their time and window arguments, and walks the
 // records, explaining an empty answer.
 package query
@@ -25,6 +25,7 @@ type Source interface {
 	HistorySensors(fn func(id string) error) error
 	Events(since, until time.Time, fn func(at time.Time, data []byte) error) error
 	Tickets(fn func(id string, data []byte) error) error
+	Calibrations(sensor string, fn func(sensor string, n uint64, data []byte) error) error
 	Path() string
 	Close() error
 }

@@ -59,7 +59,8 @@ const maxCalibrationValue = 64
 
 // ReadCalibrations reads a calibrations file: CSV (RFC 4180) with a
 // header naming the columns sensor, time, as_found and as_left in any
-// order (other columns are ignored), one calibration a row; time as the
+// order (other columns are ignored), one calibration a row; the sensor an
+// id ingest.CheckSensorID accepts, time as the
 // readings' (RFC 3339 or Unix seconds, ingest.ParseTime), the values
 // finite numbers in the sensor's unit. Good rows come back sorted by time
 // (file order among equal times); each bad row is a *CalibrationError in
@@ -135,8 +136,9 @@ func parseCalibration(line int, sensor, at, found, left string) (Calibration, er
 		}
 		return &CalibrationError{Line: line, Field: field, Value: value, Err: err}
 	}
-	if sensor == "" {
-		return Calibration{}, bad("sensor", sensor, errors.New("empty"))
+	var idErr *ingest.SensorIDError
+	if errors.As(ingest.CheckSensorID(sensor), &idErr) {
+		return Calibration{}, bad("sensor", sensor, fmt.Errorf("%w: %s", ingest.ErrSensorID, idErr.Problem))
 	}
 	ns, err := ingest.ParseTime([]byte(at))
 	if err != nil {

@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"driftfit/cmd/driftfit/internal/replay"
+	"driftfit/ingest"
 )
 
 func TestReadCalibrations(t *testing.T) {
@@ -47,7 +48,10 @@ func TestReadCalibrations(t *testing.T) {
 		{"not a number", "a,1772366400,one,2", `calibrations line 2: as_found "one": not a number`},
 		{"infinite", "a,1772366400,1,Inf", `calibrations line 2: as_left "Inf": not finite`},
 		{"NaN", "a,1772366400,NaN,1", `calibrations line 2: as_found "NaN": not finite`},
-		{"empty sensor", ",1772366400,1,2", `calibrations line 2: sensor "": empty`},
+		{"empty sensor", ",1772366400,1,2", `calibrations line 2: sensor "": ingest: invalid sensor id: empty`},
+		{"wildcard sensor", "qm.u1.*,1772366400,1,2", `calibrations line 2: sensor "qm.u1.*": ingest: invalid sensor id: wildcard '*' at byte 6`},
+		{"space in sensor", "qm.u1 pt-101,1772366400,1,2", `sensor "qm.u1 pt-101": ingest: invalid sensor id: character U+0020 at byte 5 is not printable`},
+		{"doubled dot", "qm..pt-101,1772366400,1,2", `sensor "qm..pt-101": ingest: invalid sensor id: empty token`},
 		{"too few fields", "a,1772366400,1", `calibrations line 2: 3 fields, want at least 4`},
 		{"bare quote", `a,17723"66400,1,2`, `calibrations line 2: bare " in non-quoted-field`},
 	}
@@ -86,7 +90,7 @@ func TestReadCalibrations(t *testing.T) {
 }
 
 // FuzzReadCalibrations: never a panic; every calibration kept has a
-// sensor and finite values and reads back bit for bit when written
+// valid sensor id and finite values and reads back bit for bit when written
 // again; every bad row names its line.
 func FuzzReadCalibrations(f *testing.F) {
 	f.Add("sensor,time,as_found,as_left\nqm.u1.steam.pt-101,2026-03-02T00:00:00Z,502.5,500\n")
@@ -106,7 +110,7 @@ func FuzzReadCalibrations(f *testing.F) {
 		var b strings.Builder
 		b.WriteString("sensor,time,as_found,as_left\n")
 		for _, c := range cals {
-			if c.Sensor == "" || math.IsInf(c.AsFound, 0) || math.IsNaN(c.AsFound) || math.IsInf(c.AsLeft, 0) || math.IsNaN(c.AsLeft) {
+			if ingest.CheckSensorID(c.Sensor) != nil || math.IsInf(c.AsFound, 0) || math.IsNaN(c.AsFound) || math.IsInf(c.AsLeft, 0) || math.IsNaN(c.AsLeft) {
 				t.Fatalf("kept a bad calibration %+v", c)
 			}
 			fmt.Fprintf(&b, "%s,%s,%s,%s\n", csvQuote(c.Sensor), unixSeconds(c.Time.UnixNano()),
