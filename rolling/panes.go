@@ -30,23 +30,23 @@ type PaneStats struct {
 	MeanTimePos time.Time
 }
 
-// AppendPanes appends to dst the panes of window i that hold readings,
-// oldest first, and returns the extended slice. They are the panes Solve
-// fits: the window's Span/Pane most recent, ending with the pane of the
-// newest reading.
+// AppendPanes appends to dst the panes of width w that the sensor holds
+// with readings, oldest first, and returns the extended slice: those of
+// its longest window of that width, which hold every shorter one's.
+// Window i's panes, those Solve fits, are the ones with
+// End > newest End − Span. A width no window has appends nothing.
 //
 // The pane sums hold values relative to the pane's first value and times
 // as positions after its earliest reading (see pane); here they are
 // turned back into means in the readings' own units and times, which
 // costs one rounding each, far below any reading's resolution.
-func (s *Sensor) AppendPanes(dst []PaneStats, i int) []PaneStats {
-	w := &s.wins[i]
-	rg := &s.rings[w.ring]
-	if !rg.start {
+func (s *Sensor) AppendPanes(dst []PaneStats, w time.Duration) []PaneStats {
+	rg := s.ringOf(w)
+	if rg == nil || !rg.start {
 		return dst
 	}
 	width := float64(rg.width)
-	for k := rg.newest - w.panes + 1; k <= rg.newest; k++ {
+	for k := rg.newest - int64(len(rg.panes)) + 1; k <= rg.newest; k++ {
 		j := rg.slot(k)
 		p := &rg.panes[j]
 		if p.n == 0 {

@@ -48,7 +48,7 @@ func paneRefs(rs []rolling.Reading, w time.Duration) map[int64]*paneRef {
 	return out
 }
 
-// TestSensor_AppendPanes checks each window's pane statistics against the
+// TestSensor_AppendPanes checks the statistics of the panes held against the
 // same statistics computed here from the readings fed: counts, the mean
 // value (naive summation, whose rounding error is at most n·ε·Σ|y|,
 // Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed., §4.2,
@@ -107,8 +107,12 @@ func TestSensor_AppendPanes(t *testing.T) {
 				}
 			}
 			for name, sensor := range map[string]*rolling.Sensor{"fed": s, "restored": copyState3(t, s, specs, keys)} {
-				for i, spec := range specs {
-					checkPanes(t, name, sensor, i, spec, fed)
+				// The hourly ring holds the 24 panes of the longer hourly
+				// window, the shorter one's among them.
+				checkPanes(t, name, sensor, time.Hour, 24, fed)
+				checkPanes(t, name, sensor, 24*time.Hour, 5, fed)
+				if got := sensor.AppendPanes(nil, time.Minute); len(got) != 0 {
+					t.Errorf("%s: %d panes of a width no window has", name, len(got))
 				}
 			}
 		})
@@ -134,30 +138,31 @@ func copyState3(t *testing.T, src *rolling.Sensor, specs []rolling.WindowSpec, k
 	return dst
 }
 
-func checkPanes(t *testing.T, name string, s *rolling.Sensor, i int, spec rolling.WindowSpec, fed []rolling.Reading) {
+// checkPanes checks the panes of width w, held panes of them.
+func checkPanes(t *testing.T, name string, s *rolling.Sensor, w time.Duration, held int, fed []rolling.Reading) {
 	t.Helper()
-	refs := paneRefs(fed, spec.Pane)
+	refs := paneRefs(fed, w)
 	var newest int64
 	for k := range refs {
 		newest = max(newest, k)
 	}
-	got := s.AppendPanes(nil, i)
+	got := s.AppendPanes(nil, w)
 	var want []int64
-	for k := newest - int64(spec.Panes()) + 1; k <= newest; k++ {
+	for k := newest - int64(held) + 1; k <= newest; k++ {
 		if refs[k] != nil {
 			want = append(want, k)
 		}
 	}
 	if len(got) != len(want) {
-		t.Fatalf("%s window %v: %d panes, want %d", name, spec, len(got), len(want))
+		t.Fatalf("%s width %v: %d panes, want %d", name, w, len(got), len(want))
 	}
 	const eps = 0x1p-52
 	for j, k := range want {
 		p, r := got[j], refs[k]
 		where := func() string {
-			return name + " window " + fmt.Sprint(spec) + " pane " + p.Start.UTC().Format(time.RFC3339)
+			return name + " width " + fmt.Sprint(w) + " pane " + p.Start.UTC().Format(time.RFC3339)
 		}
-		if !p.Start.Equal(time.Unix(0, r.start)) || !p.End.Equal(time.Unix(0, r.start+int64(spec.Pane))) ||
+		if !p.Start.Equal(time.Unix(0, r.start)) || !p.End.Equal(time.Unix(0, r.start+int64(w))) ||
 			p.First.UnixNano() != r.first || p.Last.UnixNano() != r.last || p.N != r.n || p.NPos != r.npos {
 			t.Fatalf("%s: start %v end %v first %v last %v n %d npos %d, want start %v first %v last %v n %d npos %d", where(),
 				p.Start, p.End, p.First, p.Last, p.N, p.NPos, time.Unix(0, r.start), time.Unix(0, r.first), time.Unix(0, r.last), r.n, r.npos)

@@ -38,8 +38,8 @@ func TestDB_LoadSensor(t *testing.T) {
 			if d := diffSolution(&a, &b); d != "" {
 				t.Errorf("%s window %v: %s", id, specs[i], d)
 			}
-			if pa, pb := live.AppendPanes(nil, i), s.AppendPanes(nil, i); !slices.Equal(pa, pb) || len(pa) == 0 {
-				t.Errorf("%s window %v: %d panes loaded, %d live, or they differ", id, specs[i], len(pb), len(pa))
+			if pa, pb := live.AppendPanes(nil, specs[i].Pane), s.AppendPanes(nil, specs[i].Pane); !slices.Equal(pa, pb) || len(pa) == 0 {
+				t.Errorf("%s width %v: %d panes loaded, %d live, or they differ", id, specs[i].Pane, len(pb), len(pa))
 			}
 		}
 	}

@@ -137,8 +137,8 @@ func openDB(t testing.TB) *store.DB {
 // fillDemo feeds the demo sensors' readings through rolling sensors,
 // stores a fit record at every pane close (as ingest does, just before
 // the reading that closes it), judges each with an alert.Tracker as the
-// service does at pane close, and stores the events and tickets. The
-// seed is fixed (1) and printed.
+// service does at pane close, and stores the events and tickets and, at
+// the end, each sensor's panes. The seed is fixed (1) and printed.
 func fillDemo(t testing.TB, db *store.DB) {
 	t.Helper()
 	t.Logf("demo seed 1")
@@ -225,6 +225,11 @@ func fillDemo(t testing.TB, db *store.DB) {
 			if err := s.Add(rolling.Reading{UnixNano: ns, Value: v}); err != nil {
 				t.Fatal(err)
 			}
+		}
+		// The panes of the windows as they stand at the end, as the
+		// service commits a sensor's state.
+		if err := b.Sensor(ds.id, s); err != nil {
+			t.Fatal(err)
 		}
 		if _, err := db.Commit(&b); err != nil {
 			t.Fatal(err)

@@ -37,25 +37,21 @@ type PaneView struct {
 	InFit bool `json:"in_fit"`
 }
 
-// panesOf returns the panes of window sol.Window that s, the sensor's
-// stored state, holds with readings at or before asof, oldest first,
-// and the residuals against f, the fit of sol shown. note says what of
-// the record's readings is not there and why; empty when all is.
+// panesOf returns the panes of the width of window sol.Window that s,
+// the sensor's stored state, holds with readings at or before asof,
+// from the first of the record sol's window on, oldest first, with the
+// residuals against f, the fit of sol shown. note says what of the
+// record's readings is not there and why; empty when all is.
 func (h *handler) panesOf(s *rolling.Sensor, sol *rolling.Solution, f *rolling.Fit, asof time.Time) (ps []PaneView, note string) {
 	ps = []PaneView{}
 	if s == nil {
 		return ps, "no readings are stored for this sensor"
 	}
-	i := -1
-	for j := range s.Windows() {
-		if s.Spec(j) == sol.Window {
-			i = j
-		}
-	}
-	if i < 0 {
-		return ps, "the stored state keeps no panes of this window (its windows changed)"
-	}
 	w := sol.Window
+	held := s.AppendPanes(nil, w.Pane)
+	if len(held) == 0 {
+		return ps, "the stored state keeps no panes of " + w.Pane.String()
+	}
 	// The record's window: its panes end with that of its newest reading.
 	var recFrom, recTo time.Time
 	if sol.N > 0 {
@@ -71,9 +67,9 @@ func (h *handler) panesOf(s *rolling.Sensor, sol *rolling.Solution, f *rolling.F
 	}
 	var inFitN int
 	var oldestIn time.Time
-	for _, p := range s.AppendPanes(nil, i) {
-		if p.Last.After(asof) {
-			continue // holds readings after the time asked for
+	for _, p := range held {
+		if p.Last.After(asof) || !p.End.After(recFrom) {
+			continue // readings after the time asked for, or before the record's window
 		}
 		v := PaneView{Start: p.Start, End: p.End, T: p.MeanTime, N: p.N, Mean: p.Mean}
 		v.InFit = sol.N > 0 && !p.Start.Before(recFrom) && p.End.Compare(recTo) <= 0 &&
