@@ -85,8 +85,9 @@ type WindowView struct {
 	PaneMeans     []PaneView `json:"pane_means"`
 	PaneMeansNote string     `json:"pane_means_note,omitempty"`
 
-	spec rolling.WindowSpec
-	sol  rolling.Solution
+	spec  rolling.WindowSpec
+	sol   rolling.Solution
+	model rolling.Model // of Fit
 }
 
 // HistoryRow is one fit record: the line fit's level and drift rate, and
@@ -267,7 +268,7 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 	for _, w := range sortedWindows(recs) {
 		sol := recs[w]
 		wv := WindowView{Window: alert.WindowName(w), Record: sol.Last, N: sol.N, Panes: sol.Panes, Filled: sol.Filled,
-			Coverage: sol.Coverage(), Fit: fitView(sol.Fit(jm)), Line: fitView(&sol.Line), spec: w, sol: sol}
+			Coverage: sol.Coverage(), Fit: fitView(sol.Fit(jm)), Line: fitView(&sol.Line), spec: w, sol: sol, model: jm}
 		if hasRule {
 			vd := verdicts[w]
 			wv.Judged, wv.Reason, wv.JudgedBy, wv.Judgement = vd.judged, vd.reason, vd.by, vd.j
