@@ -196,7 +196,7 @@ func (h *handler) fleetPage(w http.ResponseWriter, r *http.Request) {
 // windowText holds a window's summary texts for the template.
 type windowText struct {
 	WindowView
-	Colour, RecordText, ExitText, Level, Drift, Curv, Growth, Resid string
+	Colour, RecordText, ExitText, Level, Drift, Curv, Growth, Resid, JudgedByText string
 }
 
 type eventText struct {
@@ -224,6 +224,12 @@ func (h *handler) renderSensor(w http.ResponseWriter, r *http.Request, v *Sensor
 	var wins []windowText
 	for i, wv := range v.Windows {
 		t := windowText{WindowView: wv, Colour: windowColours[i%len(windowColours)], RecordText: h.fmtTime(wv.Record)}
+		switch wv.JudgedBy {
+		case JudgedByService:
+			t.JudgedByText = "the running service, at its latest pane close"
+		case JudgedByStoredFit:
+			t.JudgedByText = "this fit record, with the alert rules' gates"
+		}
 		f := wv.Fit
 		half := func(k int) float64 { return (f.CI[k][1] - f.CI[k][0]) / 2 }
 		if f.Status == "ok" || f.Status == "constant" {

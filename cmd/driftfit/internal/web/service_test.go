@@ -253,6 +253,19 @@ func TestSensor_JudgedAsTheServiceJudges(t *testing.T) {
 			}
 		}
 	}
+	// The fleet says the same of each sensor, from the same verdicts.
+	for _, judgements := range []func(func(id, window string, j alert.Judgement)){nil, svc.Judgements} {
+		srv := newServer(t, web.Options{DB: db, Rule: serviceRule, Judgements: judgements})
+		for _, row := range rows(t, getJSON[fleetJSON](t, srv, "/api/fleet")) {
+			judged := false
+			for _, w := range serviceWindows {
+				judged = judged || want[row.ID+" "+alert.WindowName(w)].OK()
+			}
+			if (row.State == "judged") != judged {
+				t.Errorf("fleet: %s %s (%s); the service judged a window: %v", row.ID, row.State, row.Reason, judged)
+			}
+		}
+	}
 	t.Logf("service judgements by reason: %v", reasons)
 	for _, r := range []alert.Reason{alert.Judged, alert.TooFewReadings, alert.SerialUnknown, alert.FewEffective} {
 		if reasons[r] == 0 {
