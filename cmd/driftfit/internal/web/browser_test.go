@@ -236,6 +236,22 @@ func TestBrowser_FleetToSensor(t *testing.T) {
 	}
 	t.Logf("fleet updated %s; first %s; level now %s, a week back %s", updated, firstID, level0, level1)
 
+	// The thermocouple is judged on a parabola: its curve through the
+	// pane means, and their residuals.
+	if err := chromedp.Do(ctx,
+		chromedp.Navigate(srv.URL+"/sensors/"+idTC),
+		chromedp.WaitVisible(css(`#panes-1`)),
+	); err != nil {
+		t.Fatalf("thermocouple page: %v", err)
+	}
+	for i := range demoWindows {
+		fig := fmt.Sprintf("#panes-%d", i)
+		if n, r := count(fig+` circle.pane-mean`), count(fig+` circle.resid-point`); n == 0 || r != n {
+			t.Errorf("thermocouple %s: %d pane means, %d residuals", fig, n, r)
+		}
+		elemShot(fig, fmt.Sprintf("thermocouple-panes-%d.png", i))
+	}
+
 	// Back on the fleet, a ticket stored meanwhile (due before every
 	// demo ticket, so the most urgent) reaches the table without a reload: the marker set in the
 	// page survives, and the flow meter's row moves to the top.

@@ -110,9 +110,9 @@ func (h *handler) paneChart(v *SensorView, i int, colour string) *svgPaneChart {
 		}
 	}
 	type sample struct {
-		t            time.Time
-		y, lo, hi    float64
-		ahead, after bool
+		t         time.Time
+		y, lo, hi float64
+		after     bool
 	}
 	var curve []sample
 	fitOK := f.OK() && !f.First.IsZero()

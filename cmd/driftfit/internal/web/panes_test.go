@@ -1,13 +1,18 @@
 package web_test
 
 import (
+	"bytes"
 	"encoding/csv"
+	"os"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"testing"
 	"time"
 
 	"driftfit/cmd/driftfit/internal/web"
+	"driftfit/rolling"
+	"driftfit/store"
 )
 
 // TestSensor_PaneMeansDemo checks the pane means of the demo sensors'
@@ -117,6 +122,74 @@ func TestSensor_CSVPanes(t *testing.T) {
 				r[col["status"]] != map[bool]string{true: "in_fit", false: "not_in_fit"}[p.InFit] {
 				t.Errorf("%s pane %d: CSV %v, JSON %+v", w.Window, i, r, p)
 			}
+		}
+	}
+}
+
+// TestSensor_DamagedPanes damages the stored panes of one sensor on
+// disk: its page still shows its fits and verdicts, says its readings
+// could not be read and why, and every other sensor's pane means are
+// untouched.
+func TestSensor_DamagedPanes(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "driftfit.db")
+	db, err := store.Open(path, store.Options{NoSync: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	fillDemo(t, db)
+	s, ok, err := db.LoadSensor(idGD)
+	if err != nil || !ok {
+		t.Fatalf("LoadSensor: %v, %v", ok, err)
+	}
+	// The newest daily pane's bytes, as the file holds them (a pane is
+	// stored as rolling.AppendPane writes it).
+	newest, _ := s.Newest(1)
+	pane := s.AppendPane(nil, rolling.PaneKey{Width: 24 * time.Hour, Index: newest.UnixNano() / int64(24*time.Hour)})
+	if err := db.Close(); err != nil {
+		t.Fatal(err)
+	}
+	raw, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	n := 0
+	for i := bytes.Index(raw, pane); i >= 0 && len(pane) > 0; {
+		raw[i+31] ^= 0x80 // the sign of y0, the pane's first value
+		n++
+		j := bytes.Index(raw[i+1:], pane)
+		if j < 0 {
+			break
+		}
+		i += 1 + j
+	}
+	if n == 0 {
+		t.Fatal("pane not found in the file")
+	}
+	if err := os.WriteFile(path, raw, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	db, err = store.Open(path, store.Options{NoSync: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { db.Close() })
+	srv := newServer(t, web.Options{DB: db, Rule: ruleFunc(demoRules()), Now: func() time.Time { return demoEnd }})
+	v := getJSON[sensorPanesJSON](t, srv, "/api/sensors/"+idGD)
+	if len(v.Windows) != len(demoWindows) || v.State != "judged" {
+		t.Fatalf("%s: %d windows, state %s; want its fits and verdicts as before", idGD, len(v.Windows), v.State)
+	}
+	for _, w := range v.Windows {
+		if len(w.Panes) != 0 || !strings.Contains(w.Note, "the stored readings could not be read") ||
+			!strings.Contains(w.Note, idGD) || !strings.Contains(w.Note, "checksum") {
+			t.Errorf("%s: %d pane means, note %q; want none, and the error naming the sensor", w.Window, len(w.Panes), w.Note)
+		}
+	}
+	if st, body := get(t, srv, "/sensors/"+idGD); st != 200 || !strings.Contains(body, "the stored readings could not be read") {
+		t.Errorf("page: %d, without the reason the panes are missing", st)
+	}
+	for _, id := range []string{idTC, idPT} {
+		if v := getJSON[sensorPanesJSON](t, srv, "/api/sensors/"+id); len(v.Windows[1].Panes) == 0 || strings.Contains(v.Windows[1].Note, "could not be read") {
+			t.Errorf("%s: pane means lost with another sensor's damage: %+v", id, v.Windows[1])
 		}
 	}
 }
