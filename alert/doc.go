@@ -12,7 +12,10 @@
 // judges a window's fits and returns Events (raised, escalated, cleared),
 // any ticket it opened and the window's Judgement (judged, or why not);
 // Tracker.Observe takes what a step or data-quality detector found;
-// Tracker.Calibrate closes the ticket and resets the sensor. Event and
+// Tracker.Calibrate closes the ticket and resets the sensor. Judge gives
+// the Judgement Evaluate would give a solution, from the serial estimate
+// SerialOf takes from the sensor's windows, with no state: readers of
+// stored fits use it to say what the service says. Event and
 // Ticket marshal to JSON with snake_case keys: the wire format. The
 // Tracker's state marshals to a canonical binary form for storage.
 //

@@ -143,3 +143,87 @@ func (r *Rule) judgement(sol *rolling.Solution, trend *rolling.Fit) Judgement {
 	}
 	return j
 }
+
+// trend returns the fit of sol the gates and the lead time judge: the
+// rule's trend model, or the line when that fit is not usable and the
+// line's is.
+func (r *Rule) trend(sol *rolling.Solution) *rolling.Fit {
+	trend := sol.Fit(r.TrendModel)
+	if !r.usable(trend) && r.usable(&sol.Line) {
+		trend = &sol.Line
+	}
+	return trend
+}
+
+// Serial is the serial-correlation estimate a tracker keeps for its
+// sensor (see Tracker.Evaluate): the lag-1 autocorrelation R1 of the
+// residuals of the Parabola fit of Window, over Pairs pairs of
+// consecutive readings (rolling.Fit.R1 and Pairs). The zero value is no
+// estimate.
+type Serial struct {
+	R1     float64
+	Pairs  int
+	Window rolling.WindowSpec
+}
+
+// SerialOf returns the estimate a tracker keeps once it has judged sols,
+// the newest solutions of one sensor's windows: that of the Parabola fit
+// with the most pairs among those whose correction could be estimated
+// (rolling.Fit.SerialErr nil); zero when none could. A tracker keeps its
+// estimate across calibrations and windows that lose their estimate, so
+// after those the two can differ.
+func SerialOf(sols ...*rolling.Solution) Serial {
+	var s Serial
+	for _, sol := range sols {
+		if p := &sol.Parabola; p.Pairs > s.Pairs && p.SerialErr == nil {
+			s = Serial{R1: p.R1, Pairs: p.Pairs, Window: sol.Window}
+		}
+	}
+	return s
+}
+
+// took returns the estimate after judging sol: sol's own when it has one
+// resting on at least as many pairs, or comes from the window s came
+// from; else s.
+func (s Serial) took(sol *rolling.Solution) Serial {
+	p := &sol.Parabola
+	if p.Pairs > 0 && p.SerialErr == nil && (p.Pairs >= s.Pairs || sol.Window == s.Window) {
+		return Serial{R1: p.R1, Pairs: p.Pairs, Window: sol.Window}
+	}
+	return s
+}
+
+// lend returns sol carrying the estimate s (rolling.Solution.WithSerial)
+// when s rests on more pairs than sol's own and sol's is unknown or
+// smaller; else sol. A solution with no serial information (Pairs 0) is
+// left alone (see seFor).
+func (s Serial) lend(sol *rolling.Solution) *rolling.Solution {
+	p := &sol.Parabola
+	if p.Pairs > 0 && s.Pairs > p.Pairs && (p.SerialErr != nil || s.R1 > p.R1) {
+		c := sol.WithSerial(s.R1, s.Pairs)
+		return &c
+	}
+	return sol
+}
+
+// Judge returns the judgement Tracker.Evaluate gives sol under rule r
+// when the tracker holds the serial estimate s (SerialOf makes it from
+// the sensor's other windows), without any alert state: it decides and
+// changes nothing. It is for readers that show what the rules make of a
+// stored fit, so that they say what the service says. The peer-group
+// gate of EvaluatePeers is not applied, nor the check against the last
+// calibration (ErrStale), which the caller knows of.
+//
+// Errors: one wrapping ErrBadRule (joining a *RuleError per field) for
+// an invalid r, ErrUnknownWindow for a window not in r.
+func Judge(r Rule, sol *rolling.Solution, s Serial) (Judgement, error) {
+	rr, err := r.resolve()
+	if err != nil {
+		return Judgement{}, fmt.Errorf("alert: judge window %s: %w", WindowName(sol.Window), err)
+	}
+	if rr.window(sol.Window) < 0 {
+		return Judgement{}, fmt.Errorf("%w: window %s", ErrUnknownWindow, WindowName(sol.Window))
+	}
+	sol = s.took(sol).lend(sol)
+	return rr.judgement(sol, rr.trend(sol)), nil
+}

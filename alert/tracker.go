@@ -178,10 +178,7 @@ func (t *Tracker) evaluate(now time.Time, sol *rolling.Solution, peers *[2]int) 
 			ErrStale, t.sensor, WindowName(sol.Window), utc(sol.First), t.calibrated)
 	}
 	sol = t.withSerial(sol)
-	trend := sol.Fit(r.TrendModel)
-	if !r.usable(trend) && r.usable(&sol.Line) {
-		trend = &sol.Line
-	}
+	trend := r.trend(sol)
 	d.Judgement = r.judgement(sol, trend)
 	if peers != nil && peers[0] < peers[1] && d.Judgement.OK() {
 		d.Judgement.Reason, d.Judgement.Live, d.Judgement.Need = PeersIncomplete, peers[0], peers[1]
@@ -244,18 +241,9 @@ func (t *Tracker) evaluate(now time.Time, sol *rolling.Solution, peers *[2]int) 
 // rolling.MinPairs pairs; this goes on from there. A solution that
 // carries no serial information (Pairs 0) is left alone.
 func (t *Tracker) withSerial(sol *rolling.Solution) *rolling.Solution {
-	p := &sol.Parabola
-	if p.Pairs <= 0 {
-		return sol
-	}
-	if p.SerialErr == nil && (uint32(p.Pairs) >= t.serialPairs || sol.Window == t.serialWin) {
-		t.serialR1, t.serialPairs, t.serialWin = p.R1, uint32(p.Pairs), sol.Window
-	}
-	if t.serialPairs > uint32(p.Pairs) && (p.SerialErr != nil || t.serialR1 > p.R1) {
-		c := sol.WithSerial(t.serialR1, int(t.serialPairs))
-		return &c
-	}
-	return sol
+	s := Serial{R1: t.serialR1, Pairs: int(t.serialPairs), Window: t.serialWin}.took(sol)
+	t.serialR1, t.serialPairs, t.serialWin = s.R1, uint32(s.Pairs), s.Window
+	return s.lend(sol)
 }
 
 // OpenTicket opens the ticket of the firing alert of kind k on sol's
@@ -281,10 +269,7 @@ func (t *Tracker) OpenTicket(now time.Time, sol *rolling.Solution, k Kind) (Deci
 			ErrStale, t.sensor, WindowName(sol.Window), utc(sol.First), t.calibrated)
 	}
 	sol = t.withSerial(sol)
-	trend := sol.Fit(r.TrendModel)
-	if !r.usable(trend) && r.usable(&sol.Line) {
-		trend = &sol.Line
-	}
+	trend := r.trend(sol)
 	var m *machine
 	for i := range t.machines {
 		if t.machines[i].window == sol.Window && t.machines[i].kind == k {

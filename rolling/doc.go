@@ -16,6 +16,8 @@
 // Each pane keeps the sufficient statistics of its readings (160 bytes), so
 // a window slides by dropping whole panes: no raw readings are kept, and no
 // error accumulates, since nothing is ever subtracted from a running sum.
+// Sensor.AppendPanes turns a window's panes back into counts, mean values
+// and mean times, for a picture of the readings behind a fit.
 //
 // # Models
 //

@@ -7,7 +7,9 @@
 //
 // Open returns a DB. A Batch collects one commit's writes (Batch.Sensor,
 // Batch.Record, Batch.SetPosition) and DB.Commit writes them in one
-// transaction. DB.Restore rebuilds the sensors at start, DB.Position
+// transaction. DB.Restore rebuilds the sensors at start, DB.LoadSensor
+// reads one sensor's stored windows for a reader beside the service
+// (the pages), DB.Position
 // says where to resume the stream, DB.History and DB.HistorySensors read
 // the fit history, DB.PruneHistory enforces its retention and
 // DB.ThinHistory thins the short windows' old history, both in small

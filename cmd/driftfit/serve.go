@@ -172,7 +172,7 @@ func runServe(ctx context.Context, args []string, stdin io.Reader, stdout, stder
 		}
 		mux := http.NewServeMux()
 		mux.Handle("/metrics", promhttp.HandlerFor(reg, promhttp.HandlerOpts{}))
-		mux.Handle("/", web.Handler(web.Options{DB: db, Token: token, Logger: log,
+		mux.Handle("/", web.Handler(web.Options{DB: db, Token: token, Logger: log, Judgements: svc.Judgements,
 			Rule: func(id string) (alert.Rule, bool) {
 				r, ok, err := ruleFor(cfg, id)
 				return r, ok && err == nil

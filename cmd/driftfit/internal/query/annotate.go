@@ -69,6 +69,8 @@ func Annotate(src Source, sensor string, rule *alert.Rule, models []rolling.Mode
 
 	gates := alert.DefaultRule()
 	gates.Windows = nil // any window: the file's windows are the rule's
+	// No gate reads the tolerance, but a rule without one is refused.
+	gates.Tolerance = 1
 	if rule != nil {
 		gates = *rule
 		an.Class = rule.Class
@@ -206,17 +208,30 @@ func asLefts(src Source, sensor string, rule *alert.Rule, gates *alert.Rule, an 
 }
 
 // firstJudgedLevel returns the level of the first fit of model m from
-// start (inclusive) to end (exclusive, zero: open) that passes the
-// rule's evidence gates; ok is false when none does. A rule without
-// windows takes every window.
+// start (inclusive) to end (exclusive, zero: open) that the rule judges
+// (alert.Judge, with the serial estimate of the sensor's windows as
+// they stood then, as the tracker judges it); ok is false when none is.
+// A rule without windows takes every window.
 func firstJudgedLevel(src Source, sensor string, r *alert.Rule, m rolling.Model, start, end time.Time) (v float64, at time.Time, ok bool, err error) {
+	latest := map[rolling.WindowSpec]*rolling.Solution{}
+	var sols []*rolling.Solution
 	err = src.History(sensor, rolling.WindowSpec{}, start, end, func(rec store.HistoryRecord) error {
 		g := *r
 		if len(g.Windows) == 0 {
 			g.Windows = []rolling.WindowSpec{rec.Solution.Window}
 		}
-		if judged, _ := chart.Judge(&g, &rec.Solution, m); judged {
-			v, at, ok = rec.Solution.Fit(m).Coef[0], rec.Solution.Last, true
+		sol := rec.Solution
+		latest[sol.Window] = &sol
+		sols = sols[:0]
+		for _, s := range latest {
+			sols = append(sols, s)
+		}
+		if j, err := alert.Judge(g, &sol, alert.SerialOf(sols...)); err == nil && j.OK() {
+			f := sol.Fit(m)
+			if !f.OK() {
+				f = &sol.Line // judged on the line, as the tracker falls back
+			}
+			v, at, ok = f.Coef[0], sol.Last, true
 			return errStop
 		}
 		return nil

@@ -165,15 +165,35 @@ func TestAnnotate_AsLeftOrder(t *testing.T) {
 	if err != nil || len(an.AsLeft) != 0 {
 		t.Errorf("bare file: as-left %+v, %v; want none (no fit passes 30 readings)", an.AsLeft, err)
 	}
-	// With a gate of 20 readings the first record that passes holds
-	// readings 0..19 (t0 .. t0 + 19 h, value k mod 5). Hours x: Σx = 190,
-	// Σy = 40, Σxy = 420, Σx² = 2470, n = 20, so Sxy = 420 − 190·40/20 =
-	// 40, Sxx = 2470 − 190²/20 = 665, slope 40/665 per hour, and the
-	// level at the newest reading 2 + (40/665)(19 − 9.5) = 18/7.
+	// A gate of 20 readings passes from the record of readings 0..19 on,
+	// but a day of hourly readings has at most 23 consecutive pairs, too
+	// few to estimate their serial correlation (rolling.MinPairs), so
+	// the service judges none of them, and no as-left is known either.
 	rule = alert.DefaultRule()
-	rule.MinReadings, rule.Windows, rule.Class = 20, nil, "press"
+	rule.MinReadings, rule.Windows, rule.Class, rule.Tolerance = 20, nil, "press", 1
 	an, err = query.Annotate(bare, "qm.a", &rule, nil, from, to)
+	if err != nil || len(an.AsLeft) != 0 {
+		t.Errorf("gate of 20: as-left %+v, %v; want none (serial correlation not known)", an.AsLeft, err)
+	}
+	// Records that carry no serial information (Pairs 0, as written by
+	// hand) are judged on their plain standard errors. The first that
+	// passes holds readings 0..19 (t0 .. t0 + 19 h, value k mod 5).
+	// Hours x: Σx = 190, Σy = 40, Σxy = 420, Σx² = 2470, n = 20, so
+	// Sxy = 420 − 190·40/20 = 40, Sxx = 2470 − 190²/20 = 665, slope
+	// 40/665 per hour, and the level at the newest reading
+	// 2 + (40/665)(19 − 9.5) = 18/7.
+	plainPath, _ := hourlyFileWith(t, func(sol *rolling.Solution) {
+		for _, m := range rolling.Models {
+			sol.Fit(m).SetSerial(0, 0)
+		}
+	})
+	plain, err := query.Open(plainPath, ingest.BusOptions{Servers: []string{"nats://127.0.0.1:1"}}, "query test")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer plain.Close()
+	an, err = query.Annotate(plain, "qm.a", &rule, nil, from, to)
 	if err != nil || len(an.AsLeft) != 1 || an.AsLeft[0].Source != "first judged fit 2026-01-01 19:00" || math.Abs(an.AsLeft[0].Value-18.0/7) > 1e-12 {
-		t.Errorf("gate of 20: as-left %+v, %v; want 18/7 from the first judged fit at 2026-01-01 19:00", an.AsLeft, err)
+		t.Errorf("gate of 20, no serial information: as-left %+v, %v; want 18/7 from the first judged fit at 2026-01-01 19:00", an.AsLeft, err)
 	}
 }

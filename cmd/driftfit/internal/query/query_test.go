@@ -22,6 +22,13 @@ import (
 // to reading k−1, at t0 + (k−1) h.
 func hourlyFile(t *testing.T) (path string, t0 time.Time) {
 	t.Helper()
+	return hourlyFileWith(t, nil)
+}
+
+// hourlyFileWith is hourlyFile with each solution changed by edit (nil:
+// none) before it is recorded.
+func hourlyFileWith(t *testing.T, edit func(*rolling.Solution)) (path string, t0 time.Time) {
+	t.Helper()
 	path = filepath.Join(t.TempDir(), "driftfit.db")
 	db, err := store.Open(path, store.Options{NoSync: true})
 	if err != nil {
@@ -37,6 +44,9 @@ func hourlyFile(t *testing.T) (path string, t0 time.Time) {
 		at := t0.Add(time.Duration(k) * time.Hour)
 		if s.Closes(at.UnixNano()) != 0 {
 			sol := s.Solve(0)
+			if edit != nil {
+				edit(&sol)
+			}
 			if err := b.Record("qm.a", &sol); err != nil {
 				t.Fatal(err)
 			}

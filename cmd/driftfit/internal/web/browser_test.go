@@ -3,10 +3,12 @@ package web_test
 import (
 	"context"
 	"encoding/json"
+	"fmt"
 	"net/http/httptest"
 	"os"
 	"os/exec"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -35,8 +37,10 @@ func artifactDir(t *testing.T) string {
 
 // TestBrowser_FleetToSensor loads the fleet of the demo store in headless
 // Chromium, opens the most urgent sensor, checks the chart holds a
-// fitted line, its band and an alert marker, then moves "as of" back a
-// week and checks the fit shown changed.
+// fitted line, its band and an alert marker, and each window's chart its
+// pane means, the fit through them and a panel of residuals, then moves
+// "as of" back a week and checks the fit shown changed and the panes
+// that are gone are not drawn.
 func TestBrowser_FleetToSensor(t *testing.T) {
 	if _, err := os.Stat(chromiumPath); err != nil {
 		if os.Getenv("CI") == "true" {
@@ -109,6 +113,18 @@ func TestBrowser_FleetToSensor(t *testing.T) {
 		}
 		t.Logf("screenshot %s", p)
 	}
+	elemShot := func(sel, name string) {
+		t.Helper()
+		png, err := chromedp.Run(ctx, chromedp.Screenshot(css(sel)))
+		if err != nil {
+			t.Fatalf("screenshot %s: %v", name, err)
+		}
+		p := filepath.Join(dir, name)
+		if err := os.WriteFile(p, png, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		t.Logf("screenshot %s", p)
+	}
 	attr := func(sel, name string) string {
 		t.Helper()
 		v, err := chromedp.Run(ctx, chromedp.AttributeValue(css(sel), name))
@@ -170,6 +186,20 @@ func TestBrowser_FleetToSensor(t *testing.T) {
 	}
 	shot("sensor-now.png", false)
 	chartShot("sensor-now-chart.png")
+	// The pane means of each window, the fit through them and the
+	// residuals beneath: as many points as the API lists panes.
+	api := getJSON[sensorPanesJSON](t, srv, "/api/sensors/"+idGD)
+	for i, w := range api.Windows {
+		fig := fmt.Sprintf(`figure.pane-chart#panes-%d[data-window="%s"]`, i, w.Window)
+		means, resids := count(fig+` circle.pane-mean`), count(fig+` circle.resid-point`)
+		if means != len(w.Panes) || means == 0 || count(fig+` g#panel-resid-`+strconv.Itoa(i)) != 1 || resids != means ||
+			count(fig+` path.fit-line`) != 1 || count(fig+` path.fit-band`) != 1 {
+			t.Errorf("%s: %d pane means (API %d), %d residual points, residual panel %d, fit line %d, band %d",
+				fig, means, len(w.Panes), resids, count(fig+` g#panel-resid-`+strconv.Itoa(i)), count(fig+` path.fit-line`), count(fig+` path.fit-band`))
+		}
+		elemShot(fig, fmt.Sprintf("sensor-now-panes-%d.png", i))
+	}
+	shot("sensor-now-full.png", true)
 
 	if err := chromedp.Do(ctx,
 		chromedp.Click(css(`#back7d`)),
@@ -181,6 +211,23 @@ func TestBrowser_FleetToSensor(t *testing.T) {
 	level1 := attr(`#chart path.fit-line[data-window="14d/1d"]`, "data-value")
 	stamp1 := text(`.asof-text`)
 	shot("sensor-asof-minus-7d.png", false)
+	// A week back the 1-day window's panes are gone: the page says so
+	// and draws none; the 14-day window keeps those of its panes that
+	// the current window still holds.
+	elemShot(`#panes-0`, "sensor-asof-minus-7d-panes-0.png")
+	elemShot(`#panes-1`, "sensor-asof-minus-7d-panes-1.png")
+	// SVG text has no innerText: read its textContent.
+	msg, err := chromedp.Run(ctx, chromedp.Evaluate[string](`(document.querySelector('#panes-0 text.pane-empty') || {}).textContent || ''`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if n := count(`#panes-0 circle.pane-mean`); n != 0 || !strings.Contains(msg, "readings are kept for the current window only") {
+		t.Errorf("1d/1h a week back: %d pane means, message %q; want none, and why", n, msg)
+	}
+	apiPast := getJSON[sensorPanesJSON](t, srv, "/api/sensors/"+idGD+"?asof="+demoEnd.Add(-7*24*time.Hour).Format(time.RFC3339))
+	if n, want := count(`#panes-1 circle.pane-mean`), len(apiPast.Windows[1].Panes); n != want || n == 0 || n >= len(api.Windows[1].Panes) {
+		t.Errorf("14d/1d a week back: %d pane means, the API %d, now %d; want the API's, fewer than now", n, want, len(api.Windows[1].Panes))
+	}
 	if level1 == "" || level1 == level0 {
 		t.Errorf("14d/1d fit level as of a week back = %q, now %q; want a different fit", level1, level0)
 	}
@@ -188,6 +235,22 @@ func TestBrowser_FleetToSensor(t *testing.T) {
 		t.Errorf("as-of text %q, want it to name 24 Nov 2026", stamp1)
 	}
 	t.Logf("fleet updated %s; first %s; level now %s, a week back %s", updated, firstID, level0, level1)
+
+	// The thermocouple is judged on a parabola: its curve through the
+	// pane means, and their residuals.
+	if err := chromedp.Do(ctx,
+		chromedp.Navigate(srv.URL+"/sensors/"+idTC),
+		chromedp.WaitVisible(css(`#panes-1`)),
+	); err != nil {
+		t.Fatalf("thermocouple page: %v", err)
+	}
+	for i := range demoWindows {
+		fig := fmt.Sprintf("#panes-%d", i)
+		if n, r := count(fig+` circle.pane-mean`), count(fig+` circle.resid-point`); n == 0 || r != n {
+			t.Errorf("thermocouple %s: %d pane means, %d residuals", fig, n, r)
+		}
+		elemShot(fig, fmt.Sprintf("thermocouple-panes-%d.png", i))
+	}
 
 	// Back on the fleet, a ticket stored meanwhile (due before every
 	// demo ticket, so the most urgent) reaches the table without a reload: the marker set in the

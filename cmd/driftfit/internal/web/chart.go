@@ -61,6 +61,7 @@ type svgPanel struct {
 	YTicks      []svgTick
 	ClipID      string
 	Left, Width float64
+	Right       float64 // Left + Width
 	Bottom      float64
 	UnitLabel   string
 	UnitLabelY  float64
@@ -166,7 +167,7 @@ func (h *handler) buildChart(v *SensorView) *svgChart {
 		unit = "value"
 	}
 	level := svgPanel{ID: "level", Title: "Level and fitted " + v.Model, Top: levelTop, Height: levelH, ClipID: "clip-level",
-		Left: marginL, Width: chartW - marginL - marginR, Bottom: levelTop + levelH, UnitLabel: unit, UnitLabelY: levelTop + levelH/2}
+		Left: marginL, Width: chartW - marginL - marginR, Right: chartW - marginR, Bottom: levelTop + levelH, UnitLabel: unit, UnitLabelY: levelTop + levelH/2}
 	for _, t := range niceTicks(lo, hi, 6) {
 		level.YTicks = append(level.YTicks, svgTick{Pos: ys.at(t), Label: fmtNum(t)})
 	}
@@ -182,7 +183,7 @@ func (h *handler) buildChart(v *SensorView) *svgChart {
 	dlo, dhi := chart.RobustRange(drifts, danchors)
 	ds := scale{dlo, dhi, driftTop + driftH, driftTop}
 	drift := svgPanel{ID: "drift", Title: "Drift rate of the line fit", Top: driftTop, Height: driftH, ClipID: "clip-drift",
-		Left: marginL, Width: chartW - marginL - marginR, Bottom: driftTop + driftH, UnitLabel: unit + "/day",
+		Left: marginL, Width: chartW - marginL - marginR, Right: chartW - marginR, Bottom: driftTop + driftH, UnitLabel: unit + "/day",
 		UnitLabelY: driftTop + driftH/2, ZeroY: ds.at(0), HasZero: true}
 	for _, t := range niceTicks(dlo, dhi, 4) {
 		drift.YTicks = append(drift.YTicks, svgTick{Pos: ds.at(t), Label: fmtNum(t)})

@@ -213,17 +213,8 @@ func (h *handler) asLeftAt(id string, r *alert.Rule, cals []CalibrationView, aso
 		}
 		return &c, nil
 	}
-	m := chart.TrendModel(r)
-	var got *AsLeft
-	err := h.o.DB.History(id, rolling.WindowSpec{}, from, time.Time{}, func(rec store.HistoryRecord) error {
-		sol := rec.Solution
-		if ok, _ := chart.Judge(r, &sol, m); ok {
-			got = &AsLeft{Value: sol.Fit(m).Coef[0], Source: "first judged fit", Since: sol.Last}
-			return errStop
-		}
-		return nil
-	})
-	if err != nil && !errors.Is(err, errStop) {
+	got, err := firstJudgedLevel(h.o.DB, id, r, from)
+	if err != nil {
 		return nil, err
 	}
 	if got == nil {
@@ -236,6 +227,40 @@ func (h *handler) asLeftAt(id string, r *alert.Rule, cals []CalibrationView, aso
 		return nil, nil
 	}
 	return got, nil
+}
+
+// firstJudgedLevel returns the level of the trend fit of the first fit
+// record of id from from on that the rule judges (alert.Judge, with the
+// serial estimate of the sensor's windows as they stood then), as the
+// tracker takes its as-left value; nil when none is judged.
+func firstJudgedLevel(db *store.DB, id string, r *alert.Rule, from time.Time) (*AsLeft, error) {
+	var got *AsLeft
+	latest := map[rolling.WindowSpec]*rolling.Solution{}
+	var sols []*rolling.Solution
+	err := db.History(id, rolling.WindowSpec{}, from, time.Time{}, func(rec store.HistoryRecord) error {
+		sol := rec.Solution
+		if sol.N > 0 && sol.First.Before(from) {
+			return nil // holds readings from before the calibration
+		}
+		latest[sol.Window] = &sol
+		sols = sols[:0]
+		for _, s := range latest {
+			sols = append(sols, s)
+		}
+		if j, err := alert.Judge(*r, &sol, alert.SerialOf(sols...)); err == nil && j.OK() {
+			f := sol.Fit(chart.TrendModel(r))
+			if !f.OK() {
+				f = &sol.Line // judged on the line, as the tracker falls back
+			}
+			got = &AsLeft{Value: f.Coef[0], Source: "first judged fit", Since: sol.Last}
+			return errStop
+		}
+		return nil
+	})
+	if errors.Is(err, errStop) {
+		err = nil
+	}
+	return got, err
 }
 
 // finite returns a pointer to v, or nil for NaN and infinities, which

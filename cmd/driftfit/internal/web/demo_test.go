@@ -137,12 +137,16 @@ func openDB(t testing.TB) *store.DB {
 // fillDemo feeds the demo sensors' readings through rolling sensors,
 // stores a fit record at every pane close (as ingest does, just before
 // the reading that closes it), judges each with an alert.Tracker as the
-// service does at pane close, and stores the events and tickets. The
-// seed is fixed (1) and printed.
-func fillDemo(t testing.TB, db *store.DB) {
+// service does at pane close, and stores the events and tickets and, at
+// the end, each sensor's panes. The seed is fixed (1) and printed.
+//
+// It returns the readings each sensor's stored state was fed: those
+// since its last restart.
+func fillDemo(t testing.TB, db *store.DB) map[string][]rolling.Reading {
 	t.Helper()
 	t.Logf("demo seed 1")
 	rng := rand.New(rand.NewPCG(1, 2))
+	fed := map[string][]rolling.Reading{}
 	var b store.Batch
 	for _, ds := range demoSensors() {
 		s, err := rolling.NewSensor(demoWindows...)
@@ -199,6 +203,7 @@ func fillDemo(t testing.TB, db *store.DB) {
 				if s, err = rolling.NewSensor(demoWindows...); err != nil {
 					t.Fatal(err)
 				}
+				fed[ds.id] = nil
 			}
 			ns := at.UnixNano()
 			closes := s.Closes(ns)
@@ -221,10 +226,16 @@ func fillDemo(t testing.TB, db *store.DB) {
 					keep(d)
 				}
 			}
-			v := ds.value(at.Sub(demoStart).Hours()/24, rng)
-			if err := s.Add(rolling.Reading{UnixNano: ns, Value: v}); err != nil {
+			r := rolling.Reading{UnixNano: ns, Value: ds.value(at.Sub(demoStart).Hours()/24, rng)}
+			if err := s.Add(r); err != nil {
 				t.Fatal(err)
 			}
+			fed[ds.id] = append(fed[ds.id], r)
+		}
+		// The panes of the windows as they stand at the end, as the
+		// service commits a sensor's state.
+		if err := b.Sensor(ds.id, s); err != nil {
+			t.Fatal(err)
 		}
 		if _, err := db.Commit(&b); err != nil {
 			t.Fatal(err)
@@ -235,4 +246,5 @@ func fillDemo(t testing.TB, db *store.DB) {
 			}
 		}
 	}
+	return fed
 }

@@ -26,9 +26,18 @@
 // for the exponential model it is taken on ln y and exponentiated.
 // Alerts are the alert events up to that time replayed per window and
 // kind; a ticket is open at T when opened at or before T and not closed
-// by a calibration at or before T. The evidence gates (min readings,
-// coverage, positive definite, condition number) are those the alert
-// package applies, restated here to say why a window is not judged.
+// by a calibration at or before T. Whether a window is judged, and why
+// not, is what the service says: its latest judgement (Options.Judgements)
+// for "now", else the stored record judged by the alert package
+// (alert.Judge) with the serial-correlation estimate of the sensor's
+// windows at that time (alert.SerialOf).
+//
+// The pane means are those of the sensor's stored state
+// (store.DB.LoadSensor, rolling.Sensor.AppendPanes): per pane the count
+// and mean of its readings, and the residual, the mean minus the fitted
+// model's mean over the same readings. Readings are kept for the current
+// window only, so as of an earlier time the panes before it are gone;
+// the page says so rather than draw them.
 //
 // # Concurrency
 //

@@ -108,7 +108,7 @@ func (h *handler) fleet(asof time.Time, live bool, flt fleetFilter) (*Fleet, err
 	}
 	if all == nil {
 		var err error
-		if all, err = h.fleetAll(asof); err != nil {
+		if all, err = h.fleetAll(asof, live); err != nil {
 			return nil, err
 		}
 		if live {
@@ -128,13 +128,18 @@ func (h *handler) fleet(asof time.Time, live bool, flt fleetFilter) (*Fleet, err
 	return &f, nil
 }
 
-// fleetAll ranks every sensor the store knows of. The result is shared
-// by requests: read only.
-func (h *handler) fleetAll(asof time.Time) (*Fleet, error) {
+// fleetAll ranks every sensor the store knows of; live says asof is
+// now, when the service's judgements are the verdicts. The result is
+// shared by requests: read only.
+func (h *handler) fleetAll(asof time.Time, live bool) (*Fleet, error) {
 	db := h.o.DB
 	log, err := readLog(db, "", asof)
 	if err != nil {
 		return nil, err
+	}
+	var svc map[string]map[string]alert.Judgement
+	if live {
+		svc = h.serviceJudgements(nil)
 	}
 	ids := map[string]bool{}
 	err = db.HistorySensors(func(id string) error { ids[id] = true; return nil })
@@ -150,7 +155,7 @@ func (h *handler) fleetAll(asof time.Time) (*Fleet, error) {
 	f := &Fleet{AsOf: asof, Unreadable: log.unreadable, Sensors: []FleetRow{}, Classes: []string{}}
 	classes := map[string]bool{}
 	for id := range ids {
-		row, err := h.fleetRow(id, asof, log)
+		row, err := h.fleetRow(id, asof, log, svc[id])
 		if err != nil {
 			return nil, err
 		}
@@ -196,7 +201,7 @@ func (h *handler) rule(id string) (alert.Rule, bool) {
 	return h.o.Rule(id)
 }
 
-func (h *handler) fleetRow(id string, asof time.Time, log *eventLog) (FleetRow, error) {
+func (h *handler) fleetRow(id string, asof time.Time, log *eventLog, svc map[string]alert.Judgement) (FleetRow, error) {
 	r, hasRule := h.rule(id)
 	row := FleetRow{ID: id, Href: sensorHref(id), Class: r.Class, Unit: r.Unit, Alerts: []OpenAlert{}}
 	var want []rolling.WindowSpec
@@ -225,11 +230,13 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog) (FleetRow, 
 		row.State, row.Reason = StateNoRule, "no rule"
 		return row, nil
 	}
-	asLeft, err := h.asLeftAt(id, &r, calibrationsAt(tks, log.events[id]), asof)
+	cals := calibrationsAt(tks, log.events[id])
+	asLeft, err := h.asLeftAt(id, &r, cals, asof)
 	if err != nil {
 		return row, err
 	}
-	jm, tm := chart.JudgedModel(&r), chart.TrendModel(&r)
+	tm := chart.TrendModel(&r)
+	verdicts := judgeWindows(&r, recs, svc, lastCalibration(cals, asof))
 	var reasons []string
 	var longest *rolling.Solution
 	for _, w := range r.Windows {
@@ -238,8 +245,8 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog) (FleetRow, 
 			reasons = append(reasons, alert.WindowName(w)+": no fit record yet")
 			continue
 		}
-		if ok, why := chart.Judge(&r, &sol, jm); !ok {
-			reasons = append(reasons, alert.WindowName(w)+": "+why)
+		if vd := verdicts[w]; !vd.judged {
+			reasons = append(reasons, alert.WindowName(w)+": "+vd.reason)
 			continue
 		}
 		if longest == nil || w.Span > longest.Window.Span {
@@ -254,7 +261,7 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog) (FleetRow, 
 			}
 		}
 		if asLeft != nil && r.Tolerance > 0 {
-			if ok, _ := chart.Judge(&r, &sol, tm); ok && trending(sol.Fit(tm)) {
+			if trending(sol.Fit(tm)) {
 				if e := exitOf(sol.Fit(tm), asLeft.Value, r.Tolerance, horizon(&r)); e != nil && (row.Exit == nil || e.At.Before(row.Exit.At)) {
 					row.Exit, row.ExitWindow = e, alert.WindowName(w)
 				}

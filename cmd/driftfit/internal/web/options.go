@@ -22,6 +22,14 @@ type Options struct {
 	// sensor has a rule. Called concurrently from request goroutines.
 	Rule func(id string) (r alert.Rule, ok bool)
 
+	// Judgements, when not nil, lists the running service's latest
+	// judgement of every sensor window (ingest.Service.Judgements): the
+	// pages show those for "as of now", so that they say what the service
+	// says. Without it, and for earlier times, the pages judge the stored
+	// fit records with the alert rules' gates (alert.Judge). Called
+	// concurrently from request goroutines.
+	Judgements func(fn func(id, window string, j alert.Judgement))
+
 	// Now is the clock: the time of "as of now" and of the page stamp.
 	// Nil means time.Now.
 	Now func() time.Time

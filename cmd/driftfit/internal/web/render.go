@@ -196,7 +196,7 @@ func (h *handler) fleetPage(w http.ResponseWriter, r *http.Request) {
 // windowText holds a window's summary texts for the template.
 type windowText struct {
 	WindowView
-	Colour, RecordText, ExitText, Level, Drift, Curv, Growth, Resid string
+	Colour, RecordText, ExitText, Level, Drift, Curv, Growth, Resid, JudgedByText string
 }
 
 type eventText struct {
@@ -224,6 +224,12 @@ func (h *handler) renderSensor(w http.ResponseWriter, r *http.Request, v *Sensor
 	var wins []windowText
 	for i, wv := range v.Windows {
 		t := windowText{WindowView: wv, Colour: windowColours[i%len(windowColours)], RecordText: h.fmtTime(wv.Record)}
+		switch wv.JudgedBy {
+		case JudgedByService:
+			t.JudgedByText = "the running service, at its latest pane close"
+		case JudgedByStoredFit:
+			t.JudgedByText = "this fit record, with the alert rules' gates"
+		}
 		f := wv.Fit
 		half := func(k int) float64 { return (f.CI[k][1] - f.CI[k][0]) / 2 }
 		if f.Status == "ok" || f.Status == "constant" {
@@ -298,6 +304,7 @@ func (h *handler) renderSensor(w http.ResponseWriter, r *http.Request, v *Sensor
 	h.render(w, http.StatusOK, "sensor.html", struct {
 		pageBase
 		V                   *SensorView
+		PaneCharts          []*svgPaneChart
 		Chart               *svgChart
 		Windows             []windowText
 		Events              []eventText
@@ -313,7 +320,7 @@ func (h *handler) renderSensor(w http.ResponseWriter, r *http.Request, v *Sensor
 		LimitsText          []string
 	}{
 		pageBase: pageBase{Title: v.ID, Stamp: h.fmtTime(h.o.Now())},
-		V:        v, Chart: chart, Windows: wins, Events: evs, Tickets: tks, History: hist,
+		V:        v, PaneCharts: h.paneCharts(v), Chart: chart, Windows: wins, Events: evs, Tickets: tks, History: hist,
 		HistoryMore: len(v.History) - len(hist),
 		AsOfValue:   v.AsOf.In(h.o.Location).Format("2006-01-02T15:04"),
 		AsOfText:    h.fmtTime(v.AsOf),
@@ -344,8 +351,10 @@ func limitsText(v *SensorView) []string {
 }
 
 // writeCSV writes what the sensor page shows as one RFC 4180 table: the
-// newest fit of each window ("fit"), every fit record of the chart's
-// range ("history"), the alert events ("event") and tickets ("ticket").
+// newest fit of each window ("fit"), its pane means ("pane": time is the
+// readings' mean time, status in_fit or not_in_fit, n the readings, and
+// the last six columns), every fit record of the chart's range
+// ("history"), the alert events ("event") and tickets ("ticket").
 func (h *handler) writeCSV(w http.ResponseWriter, v *SensorView) {
 	var buf bytes.Buffer
 	cw := csv.NewWriter(&buf)
@@ -362,30 +371,50 @@ func (h *handler) writeCSV(w http.ResponseWriter, v *SensorView) {
 		}
 		return ""
 	}
+	opt := func(p *float64) string {
+		if p == nil {
+			return ""
+		}
+		return f(*p)
+	}
+	none := make([]string, 6) // the pane columns of the other rows
 	_ = cw.Write([]string{"record", "sensor", "time", "window", "model", "status", "n", "coverage", "level", "level_se",
-		"drift_per_day", "drift_se", "c0", "c1", "c2", "resid_sd", "r2", "judged", "detail"})
+		"drift_per_day", "drift_se", "c0", "c1", "c2", "resid_sd", "r2", "judged", "detail",
+		"pane_start", "pane_end", "mean", "geo_mean", "fitted", "residual"})
 	for _, wv := range v.Windows {
-		_ = cw.Write([]string{"fit", v.ID, ts(wv.Record), wv.Window, wv.Fit.Model, wv.Fit.Status, strconv.Itoa(wv.N), f(wv.Coverage),
+		_ = cw.Write(append([]string{"fit", v.ID, ts(wv.Record), wv.Window, wv.Fit.Model, wv.Fit.Status, strconv.Itoa(wv.N), f(wv.Coverage),
 			coef(wv.Line.Coef, 0), coef(wv.Line.SE, 0), coef(wv.Line.Coef, 1), coef(wv.Line.SE, 1),
 			coef(wv.Fit.Coef, 0), coef(wv.Fit.Coef, 1), coef(wv.Fit.Coef, 2), f(wv.Fit.ResidSD), f(wv.Fit.R2),
-			strconv.FormatBool(wv.Judged), wv.Reason})
+			strconv.FormatBool(wv.Judged), wv.Reason}, none...))
+		for _, p := range wv.PaneMeans {
+			st := "in_fit"
+			if !p.InFit {
+				st = "not_in_fit"
+			}
+			_ = cw.Write([]string{"pane", v.ID, ts(p.T), wv.Window, wv.Fit.Model, st, strconv.Itoa(p.N), "", "", "", "", "",
+				"", "", "", "", "", "", "", ts(p.Start), ts(p.End), f(p.Mean), opt(p.GeoMean), opt(p.Fit), opt(p.Resid)})
+		}
+		if wv.PaneMeansNote != "" {
+			_ = cw.Write(append([]string{"pane_note", v.ID, ts(wv.Record), wv.Window, wv.Fit.Model, "", "", "", "", "", "", "",
+				"", "", "", "", "", "", wv.PaneMeansNote}, none...))
+		}
 	}
 	for _, r := range v.History {
-		_ = cw.Write([]string{"history", v.ID, ts(r.Time), r.Window, r.Model, r.Status, strconv.Itoa(r.N), f(r.Coverage),
+		_ = cw.Write(append([]string{"history", v.ID, ts(r.Time), r.Window, r.Model, r.Status, strconv.Itoa(r.N), f(r.Coverage),
 			f(r.Level), f(r.LevelSE), f(r.Drift), f(r.DriftSE), coef(r.Coef, 0), coef(r.Coef, 1), coef(r.Coef, 2),
-			f(r.ResidSD), f(r.R2), "", ""})
+			f(r.ResidSD), f(r.R2), "", ""}, none...))
 	}
 	for _, ev := range v.Events {
-		_ = cw.Write([]string{"event", v.ID, ts(ev.At), ev.Window, ev.Model, ev.Type.String(), strconv.Itoa(ev.N), "", "", "", "", "",
-			"", "", "", "", "", "", fmt.Sprintf("%s %s value %s limit %s %s", ev.Severity, ev.Kind, f(ev.Value), f(ev.Limit), ev.Unit)})
+		_ = cw.Write(append([]string{"event", v.ID, ts(ev.At), ev.Window, ev.Model, ev.Type.String(), strconv.Itoa(ev.N), "", "", "", "", "",
+			"", "", "", "", "", "", fmt.Sprintf("%s %s value %s limit %s %s", ev.Severity, ev.Kind, f(ev.Value), f(ev.Limit), ev.Unit)}, none...))
 	}
 	for _, tk := range v.Tickets {
 		st := "closed"
 		if tk.Open {
 			st = "open"
 		}
-		_ = cw.Write([]string{"ticket", v.ID, ts(tk.Opened), tk.Window, tk.Evidence.Model, st, "", "", "", "", "", "",
-			"", "", "", "", "", "", fmt.Sprintf("%s %s due %s", tk.Severity, tk.Reason, ts(tk.Due))})
+		_ = cw.Write(append([]string{"ticket", v.ID, ts(tk.Opened), tk.Window, tk.Evidence.Model, st, "", "", "", "", "", "",
+			"", "", "", "", "", "", fmt.Sprintf("%s %s due %s", tk.Severity, tk.Reason, ts(tk.Due))}, none...))
 	}
 	cw.Flush()
 	w.Header().Set("Content-Type", "text/csv; charset=utf-8")

@@ -62,6 +62,12 @@ type WindowView struct {
 	Coverage float64   `json:"coverage"`
 	Judged   bool      `json:"judged"`
 	Reason   string    `json:"reason,omitempty"`
+	// JudgedBy says where the verdict comes from: JudgedByService or
+	// JudgedByStoredFit; empty when no judgement was made (no rule, the
+	// window is not in it, or its fit is from before a calibration).
+	// Judgement holds the numbers behind it.
+	JudgedBy  string           `json:"judged_by,omitempty"`
+	Judgement *alert.Judgement `json:"judgement,omitempty"`
 	// Fit is the fit of the model the class judges; Line the line fit
 	// (level and drift rate) whatever the model.
 	Fit  FitView `json:"fit"`
@@ -72,8 +78,16 @@ type WindowView struct {
 	// chart (Ahead marks the first sample past the newest reading).
 	Curve []CurvePoint `json:"curve"`
 	Ahead int          `json:"ahead"`
+	// PaneMeans are the panes of the readings the stored state holds
+	// for the window, at or before the time asked for, with the
+	// residuals against Fit; PaneMeansNote says what of the record's
+	// readings is not among them, and why.
+	PaneMeans     []PaneView `json:"pane_means"`
+	PaneMeansNote string     `json:"pane_means_note,omitempty"`
 
-	spec rolling.WindowSpec
+	spec  rolling.WindowSpec
+	sol   rolling.Solution
+	model rolling.Model // of Fit
 }
 
 // HistoryRow is one fit record: the line fit's level and drift rate, and
@@ -236,24 +250,43 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 	}
 	v.To = newest.Add(newest.Sub(v.From) / 6)
 
+	var verdicts map[rolling.WindowSpec]verdict
+	if hasRule {
+		var svc map[string]alert.Judgement
+		if live {
+			svc = h.serviceJudgements(func(s string) bool { return s == id })[id]
+		}
+		verdicts = judgeWindows(&r, recs, svc, lastCalibration(v.Calibrations, asof))
+	}
+	// The readings behind the fits: the panes of the stored state.
+	stored, _, loadErr := db.LoadSensor(id)
+	if loadErr != nil {
+		h.o.Logger.Warn().Err(loadErr).Str("sensor", id).Msg("stored panes unreadable")
+	}
 	var reasons []string
 	judgedAny := false
 	for _, w := range sortedWindows(recs) {
 		sol := recs[w]
 		wv := WindowView{Window: alert.WindowName(w), Record: sol.Last, N: sol.N, Panes: sol.Panes, Filled: sol.Filled,
-			Coverage: sol.Coverage(), Fit: fitView(sol.Fit(jm)), Line: fitView(&sol.Line), spec: w}
+			Coverage: sol.Coverage(), Fit: fitView(sol.Fit(jm)), Line: fitView(&sol.Line), spec: w, sol: sol, model: jm}
 		if hasRule {
-			wv.Judged, wv.Reason = chart.Judge(&r, &sol, jm)
+			vd := verdicts[w]
+			wv.Judged, wv.Reason, wv.JudgedBy, wv.Judgement = vd.judged, vd.reason, vd.by, vd.j
 			if wv.Judged {
 				judgedAny = true
 			} else {
 				reasons = append(reasons, wv.Window+": "+wv.Reason)
 			}
-			if ok, _ := chart.Judge(&r, &sol, tm); ok && v.AsLeft != nil && r.Tolerance > 0 {
+			if wv.Judged && v.AsLeft != nil && r.Tolerance > 0 {
 				wv.Exit = exitOf(sol.Fit(tm), v.AsLeft.Value, r.Tolerance, horizon(&r))
 			}
 		} else {
 			wv.Reason = "no rule"
+		}
+		if loadErr != nil {
+			wv.PaneMeans, wv.PaneMeansNote = []PaneView{}, "the stored readings could not be read: "+loadErr.Error()
+		} else {
+			wv.PaneMeans, wv.PaneMeansNote = h.panesOf(stored, &sol, sol.Fit(jm), asof)
 		}
 		if f := sol.Fit(jm); f.OK() && !f.First.IsZero() {
 			// A window's trend says little beyond half its span ahead: a
