@@ -240,32 +240,40 @@ func (w *worker) recordCalibration(ref *sensorRef, l *calLog, c alert.Calibratio
 	return rec.CalibrationRecord
 }
 
+// amendable returns the sensor's log and the index in it of calibration
+// seq if that may be voided or corrected: the one in force, whose effect
+// the sensor's state still holds.
+func (w *worker) amendable(ref *sensorRef, seq uint64) (*calLog, int, error) {
+	if ref.st.sensor == nil {
+		return nil, 0, &CalibrationRefError{Sensor: ref.id, Seq: seq, Problem: "none recorded: the service holds no fits of the sensor", Err: ErrNoCalibration}
+	}
+	l, err := w.calLog(ref)
+	if err != nil {
+		return nil, 0, err
+	}
+	i, err := l.inForce(ref.id, seq)
+	if err != nil {
+		return nil, 0, err
+	}
+	if rec := &l.recs[i]; !w.holds(ref, rec) {
+		return nil, 0, &CalibrationRefError{Sensor: ref.id, Seq: rec.Seq, Err: ErrNotInForce,
+			Problem: "the sensor's state no longer holds it (dropped or reset since): record a new calibration instead"}
+	}
+	return l, i, nil
+}
+
 // void withdraws calibration j.amend.void of the sensor: the trackers
 // take back the state it replaced (the ticket it closed reopens), and the
 // readings cutoff goes back to the one before it, unless another restart
 // moved it since. The fits it restarted stay restarted.
 func (w *worker) void(j *restartJob, done func(error)) {
 	ref, st, a := j.ref, j.ref.st, j.amend
-	if st.sensor == nil {
-		done(&CalibrationRefError{Sensor: ref.id, Seq: a.void, Problem: "none recorded: the service holds no fits of the sensor", Err: ErrNoCalibration})
-		return
-	}
-	l, err := w.calLog(ref)
-	if err != nil {
-		done(err)
-		return
-	}
-	i, err := l.inForce(ref.id, a.void)
+	l, i, err := w.amendable(ref, a.void)
 	if err != nil {
 		done(err)
 		return
 	}
 	rec := &l.recs[i]
-	if !w.holds(ref, rec) {
-		done(&CalibrationRefError{Sensor: ref.id, Seq: rec.Seq, Err: ErrNotInForce,
-			Problem: "the sensor's state no longer holds it (dropped or reset since): record a new calibration instead"})
-		return
-	}
 	var reopened []string
 	for k, p := range []*alert.Prior{rec.Undo.Own, rec.Undo.Peer} {
 		e := (*alertEntry)(nil)
@@ -306,26 +314,12 @@ func (w *worker) void(j *restartJob, done func(error)) {
 // when it is earlier the readings cutoff moves back to it.
 func (w *worker) correct(j *restartJob, done func(error)) {
 	ref, st, a := j.ref, j.ref.st, j.amend
-	if st.sensor == nil {
-		done(&CalibrationRefError{Sensor: ref.id, Seq: a.correct, Problem: "none recorded: the service holds no fits of the sensor", Err: ErrNoCalibration})
-		return
-	}
-	l, err := w.calLog(ref)
-	if err != nil {
-		done(err)
-		return
-	}
-	i, err := l.inForce(ref.id, a.correct)
+	l, i, err := w.amendable(ref, a.correct)
 	if err != nil {
 		done(err)
 		return
 	}
 	rec := &l.recs[i]
-	if !w.holds(ref, rec) {
-		done(&CalibrationRefError{Sensor: ref.id, Seq: rec.Seq, Err: ErrNotInForce,
-			Problem: "the sensor's state no longer holds it (dropped or reset since): record a new calibration instead"})
-		return
-	}
 	c := *j.cal
 	if c.Time.IsZero() {
 		c.Time = rec.Time
