@@ -22,8 +22,12 @@
 // record at or before the time asked for. The band around the fitted
 // model is the 95% confidence band of the fitted mean,
 // ŷ(τ) ± t·√(xᵀ·Cov·x) with x = (1, τ, τ²) and t the fit's Student t
-// (Draper and Smith, Applied Regression Analysis, 3rd ed., section 5.3);
-// for the exponential model it is taken on ln y and exponentiated.
+// (Draper and Smith, Applied Regression Analysis, 3rd ed., section 5.3),
+// on the serially corrected covariance and effective degrees of freedom
+// the gates use (a short window borrowing the estimate of the sensor's
+// windows, as the service does), or the plain one where no correction
+// could be estimated; for the exponential model it is taken on ln y and
+// exponentiated.
 // Alerts are the alert events up to that time replayed per window and
 // kind; a ticket is open at T when opened at or before T and not closed
 // by a calibration at or before T. Whether a window is judged, and why

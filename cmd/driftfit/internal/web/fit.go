@@ -16,7 +16,10 @@ func days(d time.Duration) float64 { return d.Seconds() / 86400 }
 
 // band returns the fitted value of f at τ days from f.Last with its 95%
 // confidence band of the mean: ŷ(τ) ± t·√(xᵀ·Cov·x), x = (1, τ, τ²)
-// (Draper and Smith, Applied Regression Analysis, 3rd ed., section 5.3).
+// (Draper and Smith, Applied Regression Analysis, 3rd ed., section 5.3),
+// on the serially corrected covariance, Inflation²·Cov with t of the
+// effective degrees of freedom, when f carries the correction (as the
+// gates judge it; see withSerial), else the plain one.
 // For Exp the band is taken on ln y and exponentiated, so it is of y.
 func band(f *rolling.Fit, tau float64) (y, lo, hi float64) {
 	p := f.Model.Coefs()
@@ -28,7 +31,11 @@ func band(f *rolling.Fit, tau float64) (y, lo, hi float64) {
 			v += x[i] * f.Cov[i][j] * x[j]
 		}
 	}
-	h := f.TCrit * math.Sqrt(max(v, 0))
+	t := f.TCrit
+	if f.Pairs > 0 && f.SerialErr == nil {
+		t, v = f.TCritAdj, v*f.Inflation*f.Inflation
+	}
+	h := t * math.Sqrt(max(v, 0))
 	lo, hi = y-h, y+h
 	if f.Model == rolling.Exp {
 		return math.Exp(y), math.Exp(lo), math.Exp(hi)
@@ -96,4 +103,15 @@ func exitOf(f *rolling.Fit, asLeft, tol float64, h time.Duration) *Exit {
 		}
 	}
 	return best
+}
+
+// withSerial returns sol with the serial correction the service judges
+// it with (rolling.Sensor.SolveJudged): its own, or, when its readings
+// are too few to estimate one, s, the estimate of the sensor's windows
+// (alert.SerialOf).
+func withSerial(sol rolling.Solution, s alert.Serial) rolling.Solution {
+	if sol.Parabola.Pairs >= rolling.MinPairs || s.Pairs == 0 {
+		return sol
+	}
+	return sol.WithSerial(s.R1, s.Pairs)
 }
