@@ -51,7 +51,7 @@ type FleetRow struct {
 	// judged window (1: at the edge of the band).
 	ToleranceUsed *float64 `json:"tolerance_used,omitempty"`
 	// Significance is the largest |slope|/SE of the line fits of the
-	// judged windows; Drift is that slope, in Unit per day, and Window
+	// judged windows, on the serially corrected SE where the gates use it; Drift is that slope, in Unit per day, and Window
 	// its window.
 	Significance *float64 `json:"significance,omitempty"`
 	Drift        *float64 `json:"drift_per_day,omitempty"`
@@ -239,8 +239,17 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog, svc map[str
 	verdicts := judgeWindows(&r, recs, svc, lastCalibration(cals, asof))
 	var reasons []string
 	var longest *rolling.Solution
+	sols := make([]*rolling.Solution, 0, len(recs))
+	for w := range recs {
+		s := recs[w]
+		sols = append(sols, &s)
+	}
+	serial := alert.SerialOf(sols...)
 	for _, w := range r.Windows {
 		sol, ok := recs[w]
+		if ok {
+			sol = withSerial(sol, serial)
+		}
 		if !ok {
 			reasons = append(reasons, alert.WindowName(w)+": no fit record yet")
 			continue
@@ -254,8 +263,12 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog, svc map[str
 			longest = &s
 		}
 		line := &sol.Line
-		if line.OK() && line.SE[1] > 0 {
-			z := math.Abs(line.Coef[1]) / line.SE[1]
+		se := line.SE[1]
+		if line.Pairs > 0 && line.SerialErr == nil {
+			se = line.SEAdj[1] // as the gates judge it
+		}
+		if line.OK() && se > 0 {
+			z := math.Abs(line.Coef[1]) / se
 			if row.Significance == nil || z > *row.Significance {
 				row.Significance, row.Drift, row.Window = finite(z), finite(line.Coef[1]), alert.WindowName(w)
 			}
