@@ -117,7 +117,8 @@ func TestWriters_Events(t *testing.T) {
 // TestWriters_TicketOverdue lists three tickets at Now in every text
 // format: open and past due (stored flag unset: its sensor stopped
 // reporting before its window was judged again), open and not yet due,
-// and closed after its due date, which is never overdue.
+// closed after its due date, which is never overdue, and reopened by a
+// voided calibration.
 func TestWriters_TicketOverdue(t *testing.T) {
 	due := time.Date(2026, 11, 20, 0, 0, 0, 0, time.UTC)
 	now := due.Add(36 * time.Hour)
@@ -125,8 +126,9 @@ func TestWriters_TicketOverdue(t *testing.T) {
 		{ID: "qm.pt-1@a", Sensor: "qm.pt-1", Due: due},
 		{ID: "qm.pt-2@a", Sensor: "qm.pt-2", Due: now.Add(time.Hour)},
 		{ID: "qm.pt-3@a", Sensor: "qm.pt-3", Due: due, Calibration: &alert.Calibration{Time: now}},
+		{ID: "qm.pt-4@a", Sensor: "qm.pt-4", Due: now.Add(time.Hour), Amendments: []alert.Amendment{{Action: alert.AmendVoided, At: now}}},
 	}
-	want := []bool{true, false, false}
+	want := []bool{true, false, false, false}
 	for _, f := range report.Names(report.Tickets) {
 		var b bytes.Buffer
 		w, err := report.New(f, report.Tickets, &b, report.Options{Now: now})
@@ -165,5 +167,8 @@ func TestWriters_TicketOverdue(t *testing.T) {
 	}
 	if tks[0].Overdue {
 		t.Error("the listing changed the caller's ticket")
+	}
+	if got := report.TicketStatus(&tks[3]); got != "open, reopened" {
+		t.Errorf("a ticket a voided calibration reopened: status %q, want \"open, reopened\"", got)
 	}
 }

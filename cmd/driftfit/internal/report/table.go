@@ -126,14 +126,19 @@ func (t *table) Close() error {
 	return nil
 }
 
-// TicketStatus is "open", "open, overdue" (alert.Ticket.Overdue), or
-// "closed" and the calibration's date.
+// TicketStatus is "open", with ", reopened" when a voided calibration
+// reopened it (alert.Ticket.Amendments) and ", overdue" when it is
+// (alert.Ticket.Overdue), or "closed" and the calibration's date.
 func TicketStatus(tk *alert.Ticket) string {
-	switch {
-	case tk.Calibration == nil && tk.Overdue:
-		return "open, overdue"
-	case tk.Calibration == nil:
-		return "open"
+	if tk.Calibration == nil {
+		s := "open"
+		if n := len(tk.Amendments); n > 0 && tk.Amendments[n-1].Action == alert.AmendVoided {
+			s += ", reopened"
+		}
+		if tk.Overdue {
+			s += ", overdue"
+		}
+		return s
 	}
 	return "closed " + tk.Calibration.Time.UTC().Format("2006-01-02")
 }
