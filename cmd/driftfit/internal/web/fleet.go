@@ -230,7 +230,7 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog, svc map[str
 		row.State, row.Reason = StateNoRule, "no rule"
 		return row, nil
 	}
-	cals := calibrationsAt(tks, log.events[id])
+	cals := calibrationsAt(log.cals[id], tks, log.events[id], asof)
 	asLeft, err := h.asLeftAt(id, &r, cals, asof)
 	if err != nil {
 		return row, err
