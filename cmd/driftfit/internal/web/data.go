@@ -155,17 +155,36 @@ func openAlerts(evs []alert.Event) []OpenAlert {
 }
 
 // TicketView is a recalibration ticket as it stood at the time asked
-// for: the calibration that closed it then (an amendment after that time
-// is undone: a ticket reopened later by a void shows closed by the
-// calibration voided), none if that was after the time, and the ticket
-// is then open. Its estimates and revision are the stored ones.
+// for: closed by the calibration that closed it then, and open when
+// none had. An amendment after that time is undone (a ticket reopened
+// later by a void shows closed by the calibration voided); a
+// calibration done after the time, or, where the sensor's records tell,
+// recorded after it, is not shown. Its estimates and revision are the
+// stored ones.
 type TicketView struct {
 	alert.Ticket
 	Open bool `json:"open"`
 }
 
-// ticketsAt returns the tickets opened at or before asof, newest first.
-func ticketsAt(tks []alert.Ticket, asof time.Time) []TicketView {
+// ticketsAt returns the tickets opened at or before asof, newest first;
+// recs are the sensor's calibration records.
+func ticketsAt(tks []alert.Ticket, recs []query.Calibration, asof time.Time) []TicketView {
+	var earliest time.Time // of the records: before it, tickets alone tell
+	for _, r := range recs {
+		if !r.Damaged && (earliest.IsZero() || r.Time.Before(earliest)) {
+			earliest = r.Time
+		}
+	}
+	// recorded says whether a record of a calibration at ct that closed
+	// ticket id was stored at or before asof.
+	recorded := func(id string, ct time.Time) bool {
+		for _, r := range recs {
+			if !r.Damaged && r.Time.Equal(ct) && !r.Recorded.After(asof) && slices.Contains(r.Closed, id) {
+				return true
+			}
+		}
+		return false
+	}
 	var out []TicketView
 	for _, tk := range tks {
 		if tk.Opened.After(asof) {
@@ -178,7 +197,8 @@ func ticketsAt(tks []alert.Ticket, asof time.Time) []TicketView {
 				break
 			}
 		}
-		if tk.Calibration != nil && tk.Calibration.Time.After(asof) {
+		if c := tk.Calibration; c != nil && (c.Time.After(asof) ||
+			!earliest.IsZero() && !c.Time.Before(earliest) && !recorded(tk.ID, c.Time)) {
 			tk.Calibration = nil
 		}
 		out = append(out, TicketView{Ticket: tk, Open: tk.Calibration == nil})

@@ -198,7 +198,7 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 	if a := openAlerts(log.events[id]); a != nil {
 		v.Alerts = a
 	}
-	if tks := ticketsAt(log.tickets[id], asof); tks != nil {
+	if tks := ticketsAt(log.tickets[id], log.cals[id], asof); tks != nil {
 		v.Tickets = tks
 	}
 	if cals := calibrationsAt(log.cals[id], v.Tickets, v.Events, asof); cals != nil {
