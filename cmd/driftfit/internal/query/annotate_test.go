@@ -2,6 +2,7 @@ package query_test
 
 import (
 	"encoding/json"
+	"fmt"
 	"math"
 	"slices"
 	"strings"
@@ -11,6 +12,7 @@ import (
 	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/query"
 	"driftfit/ingest"
+	"driftfit/ingest/readapi"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -279,6 +281,21 @@ func TestAnnotate_CalibrationRecords(t *testing.T) {
 		t.Errorf("notes %q, want none", an.Notes)
 	}
 
+	// A service of a build that keeps no records does not answer for
+	// them: the tickets and events are read instead, and the legend says
+	// so. The voided calibration's reset event then reads as one.
+	an, err = query.Annotate(noRecords{src}, "qm.a", &rule, nil, day(0), day(40))
+	if err != nil {
+		t.Fatal(err)
+	}
+	got = got[:0]
+	for _, c := range an.Calibrations {
+		got = append(got, cal{day: int(c.Time.Sub(t0) / (24 * time.Hour)), seq: c.Seq})
+	}
+	if want := []cal{{day: 5}, {day: 20}, {day: 25}}; !slices.Equal(got, want) || len(an.Notes) != 1 || !strings.Contains(an.Notes[0], "tickets and alert events") {
+		t.Errorf("without records from the service: calibrations %+v, notes %q; want days 5, 20, 25 from tickets and events, and a note", got, an.Notes)
+	}
+
 	damaged, _ := reviewFileWith(t, evs, []alert.Ticket{old}, map[uint64][]byte{1: []byte("not a record")})
 	an, err = query.Annotate(damaged, "qm.a", &rule, nil, day(0), day(40))
 	if err != nil {
@@ -287,4 +304,12 @@ func TestAnnotate_CalibrationRecords(t *testing.T) {
 	if len(an.Calibrations) != 0 || len(an.Notes) != 1 || !strings.Contains(an.Notes[0], "1 calibration records") {
 		t.Errorf("every record damaged: calibrations %+v, notes %q; want none and a note of the damaged one", an.Calibrations, an.Notes)
 	}
+}
+
+// noRecords is a source that answers as a service of a build without
+// calibration records does: not at all.
+type noRecords struct{ query.Source }
+
+func (noRecords) Calibrations(string, func(string, uint64, []byte) error) error {
+	return fmt.Errorf("%w at nats://127.0.0.1:4222 on %s within 10s", readapi.ErrNoAnswer, readapi.CalibrationsSubject)
 }
