@@ -87,8 +87,8 @@ func Annotate(src Source, sensor string, rule *alert.Rule, models []rolling.Mode
 		return nil, err
 	}
 	if damaged > 0 {
-		// The service's walk passes them on as the file's does, then
-		// says why.
+		// The file and the service alike pass a damaged record on with
+		// its number; the walk's error then only says so.
 		an.Notes = append(an.Notes, fmt.Sprintf("%d calibration records of the sensor could not be read", damaged))
 	}
 	an.Calibrations = CalibrationsAt(recs, tks, evs, time.Time{})
