@@ -2,6 +2,7 @@ package query
 
 import (
 	"errors"
+	"fmt"
 	"math"
 	"slices"
 	"strings"
@@ -10,6 +11,7 @@ import (
 	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/chart"
 	"driftfit/cmd/driftfit/internal/report"
+	"driftfit/ingest/readapi"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -27,8 +29,10 @@ var errStop = errors.New("query: stop walk")
 // kinds of those alerts. models, when not empty, are the models to show
 // whatever the rule judges (history --model).
 //
-// Each as-left value holds from a calibration to the next: the
-// calibration's own as-left when a ticket recorded it; before the first
+// The calibrations are the sensor's records as they stand now
+// (CalibrationsAt); voided and corrected ones come marked. Each as-left
+// value holds from a calibration that stands to the next: the
+// calibration's own as-left when it is known; before the first
 // calibration the configured as_left; else the as-left of a ticket
 // opened in that time (the value the service judged against); else the
 // level of the first fit in that time that passes the rule's evidence
@@ -65,7 +69,29 @@ func Annotate(src Source, sensor string, rule *alert.Rule, models []rolling.Mode
 	}
 	slices.SortStableFunc(tks, func(a, b alert.Ticket) int { return a.Opened.Compare(b.Opened) })
 	an.Events, an.Tickets = evs, tks
-	an.Calibrations = chart.Calibrations(tks, evs)
+	recs, err := Records(src, sensor)
+	damaged := 0
+	for _, r := range recs {
+		if r.Damaged {
+			damaged++
+		}
+	}
+	var skipped *store.SkippedError
+	var refused *readapi.ServiceError
+	switch {
+	case errors.Is(err, readapi.ErrNoAnswer):
+		// A service of a build that keeps no records does not answer.
+		recs = nil
+		an.Notes = append(an.Notes, "no calibration records from the service: calibrations read from tickets and alert events, where a voided one looks like any other")
+	case err != nil && !errors.As(err, &skipped) && !(errors.As(err, &refused) && damaged > 0):
+		return nil, err
+	}
+	if damaged > 0 {
+		// The file and the service alike pass a damaged record on with
+		// its number; the walk's error then only says so.
+		an.Notes = append(an.Notes, fmt.Sprintf("%d calibration records of the sensor could not be read", damaged))
+	}
+	an.Calibrations = CalibrationsAt(recs, tks, evs, time.Time{})
 
 	gates := alert.DefaultRule()
 	gates.Windows = nil // any window: the file's windows are the rule's
@@ -163,7 +189,12 @@ func setLevel(warning, critical *float64, crit bool, v float64) {
 // asLefts returns the as-left values in force from from to to, one per
 // time between calibrations (see Annotate).
 func asLefts(src Source, sensor string, rule *alert.Rule, gates *alert.Rule, an *report.Annotations, from, to time.Time) ([]report.AsLeft, error) {
-	cals := an.Calibrations
+	var cals []chart.Calibration
+	for _, c := range an.Calibrations {
+		if c.Stands() {
+			cals = append(cals, c)
+		}
+	}
 	var out []report.AsLeft
 	for i := 0; i <= len(cals); i++ {
 		var start, end time.Time // zero: open

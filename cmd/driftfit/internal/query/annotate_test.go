@@ -2,13 +2,17 @@ package query_test
 
 import (
 	"encoding/json"
+	"fmt"
 	"math"
+	"slices"
+	"strings"
 	"testing"
 	"time"
 
 	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/query"
 	"driftfit/ingest"
+	"driftfit/ingest/readapi"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -17,12 +21,19 @@ import (
 // (see hourlyFile) and, for sensor qm.a, the given events and tickets.
 func reviewFile(t *testing.T, evs []alert.Event, tks []alert.Ticket) (query.Source, time.Time) {
 	t.Helper()
+	return reviewFileWith(t, evs, tks, nil)
+}
+
+// reviewFileWith is reviewFile with calibration records of qm.a, by
+// number, stored as given.
+func reviewFileWith(t *testing.T, evs []alert.Event, tks []alert.Ticket, cals map[uint64][]byte) (query.Source, time.Time) {
+	t.Helper()
 	path, t0 := hourlyFile(t)
 	db, err := store.Open(path, store.Options{NoSync: true})
 	if err != nil {
 		t.Fatal(err)
 	}
-	w := store.AlertWrite{Sensor: "qm.a", Tickets: map[string][]byte{}}
+	w := store.AlertWrite{Sensor: "qm.a", Tickets: map[string][]byte{}, Calibrations: cals}
 	for _, ev := range evs {
 		data, err := json.Marshal(ev)
 		if err != nil {
@@ -196,4 +207,109 @@ func TestAnnotate_AsLeftOrder(t *testing.T) {
 	if err != nil || len(an.AsLeft) != 1 || an.AsLeft[0].Source != "first judged fit 2026-01-01 19:00" || math.Abs(an.AsLeft[0].Value-18.0/7) > 1e-12 {
 		t.Errorf("gate of 20, no serial information: as-left %+v, %v; want 18/7 from the first judged fit at 2026-01-01 19:00", an.AsLeft, err)
 	}
+}
+
+// TestAnnotate_CalibrationRecords checks where a plot's calibrations
+// come from in a file holding both eras: a ticket closed by a
+// calibration from before records were kept (read back from the
+// ticket), then records: no. 1 voided (its reset event stays in the
+// file), no. 2 corrected by no. 3. The voided one is marked, bounds no
+// as-left and is not read back from its reset event; the correction
+// carries the corrected value. With every record damaged, nothing is
+// read back from tickets or events after all, and the legend says why.
+func TestAnnotate_CalibrationRecords(t *testing.T) {
+	t0 := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+	day := func(d int) time.Time { return t0.Add(time.Duration(d) * 24 * time.Hour) }
+	old := alert.Ticket{ID: "qm.a@1", Sensor: "qm.a", Class: "press", Opened: day(2), Due: day(9), Unit: "kPa", AsLeft: 2.5, Tolerance: 1.5,
+		Evidence: alert.FitSummary{Model: "line"}, Calibration: &alert.Calibration{Time: day(5), AsFound: 3.1, AsLeft: 2}}
+	reset := func(at time.Time) alert.Event {
+		return alert.Event{Type: alert.Reset, Sensor: "qm.a", Class: "press", Window: "1d/1h", Kind: alert.Slope, Severity: alert.Warning, At: at, Unit: "kPa/d"}
+	}
+	evs := []alert.Event{reset(day(5)), reset(day(20)), reset(day(25))}
+	rec := func(r ingest.CalibrationRecord) []byte {
+		r.Sensor = "qm.a"
+		data, err := json.Marshal(r)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return data
+	}
+	recs := map[uint64][]byte{
+		1: rec(ingest.CalibrationRecord{Seq: 1, Time: day(20), AsFound: 2.9, AsLeft: 2.2, Recorded: day(20), Status: ingest.CalibrationVoided,
+			Changed: day(22), Reason: "wrong tag"}),
+		2: rec(ingest.CalibrationRecord{Seq: 2, Time: day(25), AsFound: 3, AsLeft: 1.9, Recorded: day(25), Status: ingest.CalibrationCorrected,
+			Changed: day(26), Reason: "misread", CorrectedBy: 3}),
+		3: rec(ingest.CalibrationRecord{Seq: 3, Time: day(25), AsFound: 3, AsLeft: 1.8, Recorded: day(26), Status: ingest.CalibrationRecorded, Corrects: 2}),
+	}
+	src, _ := reviewFileWith(t, evs, []alert.Ticket{old}, recs)
+	rule := alert.DefaultRule()
+	rule.Class, rule.Tolerance, rule.AsLeft, rule.HasAsLeft = "press", 1, 3, true
+	rule.Windows = []rolling.WindowSpec{{Span: 24 * time.Hour, Pane: time.Hour}}
+	an, err := query.Annotate(src, "qm.a", &rule, nil, day(0), day(40))
+	if err != nil {
+		t.Fatal(err)
+	}
+	type cal struct {
+		day    int
+		seq    uint64
+		asLeft float64
+		state  string
+	}
+	var got []cal
+	for _, c := range an.Calibrations {
+		st := "stands"
+		switch {
+		case !c.Voided.IsZero():
+			st = "voided " + c.Reason
+		case !c.Corrected.IsZero():
+			st = "corrected " + c.Reason
+		}
+		got = append(got, cal{int(c.Time.Sub(t0) / (24 * time.Hour)), c.Seq, *c.AsLeft, st})
+	}
+	want := []cal{{5, 0, 2, "stands"}, {20, 1, 2.2, "voided wrong tag"}, {25, 2, 1.9, "corrected misread"}, {25, 3, 1.8, "stands"}}
+	if !slices.Equal(got, want) {
+		t.Errorf("calibrations %+v, want %+v", got, want)
+	}
+	// Configured until the old calibration, its as-left until the
+	// correction's time, then the correction's: the voided no. 1 at day
+	// 20 bounds nothing.
+	if len(an.AsLeft) != 3 || an.AsLeft[0].Value != 3 || an.AsLeft[1].Value != 2 || !an.AsLeft[1].Since.Equal(day(5)) ||
+		an.AsLeft[2].Value != 1.8 || !an.AsLeft[2].Since.Equal(day(25)) {
+		t.Errorf("as-left %+v, want 3, then 2 from day 5, then 1.8 from day 25", an.AsLeft)
+	}
+	if len(an.Notes) != 0 {
+		t.Errorf("notes %q, want none", an.Notes)
+	}
+
+	// A service of a build that keeps no records does not answer for
+	// them: the tickets and events are read instead, and the legend says
+	// so. The voided calibration's reset event then reads as one.
+	an, err = query.Annotate(noRecords{src}, "qm.a", &rule, nil, day(0), day(40))
+	if err != nil {
+		t.Fatal(err)
+	}
+	got = got[:0]
+	for _, c := range an.Calibrations {
+		got = append(got, cal{day: int(c.Time.Sub(t0) / (24 * time.Hour)), seq: c.Seq})
+	}
+	if want := []cal{{day: 5}, {day: 20}, {day: 25}}; !slices.Equal(got, want) || len(an.Notes) != 1 || !strings.Contains(an.Notes[0], "tickets and alert events") {
+		t.Errorf("without records from the service: calibrations %+v, notes %q; want days 5, 20, 25 from tickets and events, and a note", got, an.Notes)
+	}
+
+	damaged, _ := reviewFileWith(t, evs, []alert.Ticket{old}, map[uint64][]byte{1: []byte("not a record")})
+	an, err = query.Annotate(damaged, "qm.a", &rule, nil, day(0), day(40))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(an.Calibrations) != 0 || len(an.Notes) != 1 || !strings.Contains(an.Notes[0], "1 calibration records") {
+		t.Errorf("every record damaged: calibrations %+v, notes %q; want none and a note of the damaged one", an.Calibrations, an.Notes)
+	}
+}
+
+// noRecords is a source that answers as a service of a build without
+// calibration records does: not at all.
+type noRecords struct{ query.Source }
+
+func (noRecords) Calibrations(string, func(string, uint64, []byte) error) error {
+	return fmt.Errorf("%w at nats://127.0.0.1:4222 on %s within 10s", readapi.ErrNoAnswer, readapi.CalibrationsSubject)
 }

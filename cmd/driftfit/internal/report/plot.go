@@ -32,10 +32,15 @@ type Annotations struct {
 	Models []rolling.Model
 	// Events, Tickets and Calibrations of the sensor; the picture keeps
 	// those on its time axis. An event is drawn in the column of its
-	// window, or in every column when it has none.
+	// window, or in every column when it has none. A calibration that
+	// stands (chart.Calibration.Stands) is drawn with a rule across the
+	// panels; a voided one as a struck ring, named in the legend with
+	// when and why; a corrected one not at all (its correction is).
 	Events       []alert.Event
 	Tickets      []alert.Ticket
 	Calibrations []chart.Calibration
+	// Notes are said in the legend as they are.
+	Notes []string
 }
 
 // AsLeft is one centre of the tolerance band and where it comes from.

@@ -5,6 +5,7 @@ import (
 	"encoding/xml"
 	"io"
 	"math"
+	"slices"
 	"testing"
 	"time"
 
@@ -158,6 +159,52 @@ func TestBuildFigure_Annotations(t *testing.T) {
 	for _, p := range []panel{level, slope} {
 		if len(p.vlines) != 1 || p.vlines[0] != cal {
 			t.Errorf("panel %d calibration rules %v, want one at %v", p.kind, p.vlines, day(20))
+		}
+	}
+}
+
+// TestBuildFigure_VoidedCalibration adds to the review a calibration on
+// day 15 voided on day 17 and one on day 25 corrected by another at the
+// same time: the voided one is a struck ring without a rule, named in
+// the legend with its reason; the corrected one is not drawn, its
+// correction is, with a rule.
+func TestBuildFigure_VoidedCalibration(t *testing.T) {
+	sols := reviewSolutions(t)
+	an := reviewAnnotations(sols)
+	v, c, d := 100.4, 101.2, 101.3
+	an.Calibrations = append(an.Calibrations,
+		chart.Calibration{Time: day(15), AsFound: &v, AsLeft: &v, Seq: 1, Voided: day(17), Reason: "entered for the wrong tag"},
+		chart.Calibration{Time: day(25), AsFound: &c, AsLeft: &c, Seq: 3, Corrected: day(26), CorrectedBy: 4, Reason: "misread"},
+		chart.Calibration{Time: day(25), AsFound: &d, AsLeft: &d, Seq: 4, Corrects: 3})
+	fig := buildFigure("qm.t.pt-1", "kPa", reviewSeries(sols), an)
+	kinds := map[markKind][]float64{}
+	for _, m := range fig.cols[0].strip {
+		if m.y == calibrationRow {
+			kinds[m.kind] = append(kinds[m.kind], m.t)
+		}
+	}
+	cal, v15, c25 := unixSeconds(day(20)), unixSeconds(day(15)), unixSeconds(day(25))
+	if !slices.Equal(kinds[markCalibration], []float64{cal, c25}) || !slices.Equal(kinds[markVoided], []float64{v15}) {
+		t.Errorf("calibration row %v, want calibrations at days 20 and 25 and a voided one at day 15", kinds)
+	}
+	if rules := fig.cols[0].panels[0].vlines; !slices.Equal(rules, []float64{cal, c25}) {
+		t.Errorf("calibration rules %v, want days 20 and 25 only", rules)
+	}
+	const note = `calibration no. 1 of 2026-03-16 (as-left 100.4 kPa) voided 2026-03-18: "entered for the wrong tag"`
+	if !fig.legend.voided || !slices.Contains(fig.legend.notes, note) {
+		t.Errorf("legend voided %v, notes %q; want the note %q", fig.legend.voided, fig.legend.notes, note)
+	}
+	canvas, err := drawFigure(true, fig)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var b bytes.Buffer
+	if _, err := canvas.WriteTo(&b); err != nil {
+		t.Fatal(err)
+	}
+	for _, s := range []string{"voided calibration (each named in this legend)", "entered for the wrong tag"} {
+		if !bytes.Contains(b.Bytes(), []byte(s)) {
+			t.Errorf("SVG lacks the text %q", s)
 		}
 	}
 }

@@ -307,7 +307,7 @@ func stripPlot(fig *figure, col *column) (*plot.Plot, error) {
 // markStyle is the glyph of a marker: triangles up for raised alerts and
 // down for ended ones, orange for warning and vermillion for critical;
 // tickets blue (diamond opened, hollow square due, filled square
-// closed); calibrations a bluish-green ring.
+// closed); calibrations a bluish-green ring, struck through when voided.
 func markStyle(m mark) draw.GlyphStyle {
 	sev := warnCol
 	if m.critical {
@@ -326,6 +326,8 @@ func markStyle(m mark) draw.GlyphStyle {
 		return draw.GlyphStyle{Color: ticketCol, Radius: r, Shape: draw.SquareGlyph{}}
 	case markTicketClosed:
 		return draw.GlyphStyle{Color: ticketCol, Radius: r, Shape: draw.BoxGlyph{}}
+	case markVoided:
+		return draw.GlyphStyle{Color: calCol, Radius: r, Shape: struckRing{}}
 	}
 	return draw.GlyphStyle{Color: calCol, Radius: r, Shape: draw.RingGlyph{}}
 }
@@ -337,6 +339,17 @@ func markScatter(m mark) (*plotter.Scatter, error) {
 	}
 	s.GlyphStyle = markStyle(m)
 	return s, nil
+}
+
+// struckRing is a ring with a stroke through it, lower left to upper
+// right: a calibration that was voided.
+type struckRing struct{}
+
+// DrawGlyph implements draw.GlyphDrawer.
+func (struckRing) DrawGlyph(c *draw.Canvas, sty draw.GlyphStyle, pt vg.Point) {
+	draw.RingGlyph{}.DrawGlyph(c, sty, pt)
+	r := sty.Radius * 1.4
+	c.StrokeLine2(draw.LineStyle{Color: sty.Color, Width: vg.Points(1)}, pt.X-r, pt.Y-r, pt.X+r, pt.Y+r)
 }
 
 // upTriangle is a filled triangle pointing up (draw.TriangleGlyph is
@@ -481,6 +494,9 @@ func legendEntries(fig *figure) []legendEntry {
 	}
 	if lg.calibration {
 		es = append(es, legendEntry{"calibration", []plot.Thumbnailer{line(calCol, vg.Points(1.2), dashCal), glyph(mark{kind: markCalibration})}})
+	}
+	if lg.voided {
+		es = append(es, legendEntry{"voided calibration (each named in this legend)", []plot.Thumbnailer{glyph(mark{kind: markVoided})}})
 	}
 	for _, n := range lg.notes {
 		es = append(es, legendEntry{n, nil})

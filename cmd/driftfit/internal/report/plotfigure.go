@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"strconv"
 	"time"
 
 	"driftfit/alert"
@@ -79,6 +80,7 @@ const (
 	markTicketDue
 	markTicketClosed
 	markCalibration
+	markVoided // a voided calibration
 )
 
 // Rows of the marker strip, bottom up.
@@ -105,6 +107,7 @@ type legendSet struct {
 	raised, ended         bool
 	opened, due, closed   bool
 	calibration, offScale bool
+	voided                bool
 	notes                 []string
 }
 
@@ -189,12 +192,21 @@ func buildFigure(sensor, unit string, series []plotSeries, an *Annotations) *fig
 		fig.legend.bandText = fmt.Sprintf("tolerance band: as-left ± %s %s", plotNum(an.Tolerance), u)
 	}
 
-	var cals []float64
+	var cals, voided []float64
 	for _, c := range an.Calibrations {
-		if t := unixSeconds(c.Time); in(t) {
+		t := unixSeconds(c.Time)
+		if !in(t) {
+			continue
+		}
+		switch {
+		case c.Stands():
 			cals = append(cals, t)
+		case !c.Voided.IsZero():
+			voided = append(voided, t)
+			fig.legend.notes = append(fig.legend.notes, voidedNote(&c, u))
 		}
 	}
+	fig.legend.notes = append(fig.legend.notes, an.Notes...)
 
 	lim := an.Limits
 	var limitTexts []string
@@ -296,7 +308,7 @@ func buildFigure(sensor, unit string, series []plotSeries, an *Annotations) *fig
 			p.marks = alertMarks(evs, k)
 			col.panels = append(col.panels, p)
 		}
-		col.strip = stripMarks(evs, an.Tickets, cals, fig.from, fig.to, last)
+		col.strip = stripMarks(evs, an.Tickets, cals, voided, fig.from, fig.to, last)
 		for _, m := range col.strip {
 			switch m.kind {
 			case markRaised:
@@ -311,6 +323,8 @@ func buildFigure(sensor, unit string, series []plotSeries, an *Annotations) *fig
 				fig.legend.closed = true
 			case markCalibration:
 				fig.legend.calibration = true
+			case markVoided:
+				fig.legend.voided = true
 			}
 		}
 		fig.cols = append(fig.cols, col)
@@ -459,8 +473,34 @@ func alertMarks(evs []alert.Event, k panelKind) []mark {
 	return out
 }
 
-// stripMarks places every event, ticket and calibration on the strip.
-func stripMarks(evs []alert.Event, tks []alert.Ticket, cals []float64, from, to, last float64) []mark {
+// maxReasonRunes is the most of a void's reason the legend shows.
+const maxReasonRunes = 60
+
+// voidedNote names a voided calibration in the legend: its number,
+// date and as-left, when it was voided and why.
+func voidedNote(c *chart.Calibration, unit string) string {
+	note := "calibration"
+	if c.Seq > 0 {
+		note += fmt.Sprintf(" no. %d", c.Seq)
+	}
+	note += " of " + c.Time.UTC().Format(time.DateOnly)
+	if c.AsLeft != nil {
+		note += fmt.Sprintf(" (as-left %s %s)", plotNum(*c.AsLeft), unit)
+	}
+	note += " voided " + c.Voided.UTC().Format(time.DateOnly)
+	if c.Reason != "" {
+		r := []rune(c.Reason)
+		if len(r) > maxReasonRunes {
+			r = append(r[:maxReasonRunes-1], '…')
+		}
+		note += ": " + strconv.Quote(string(r))
+	}
+	return note
+}
+
+// stripMarks places every event, ticket and calibration (cals those
+// that stand, voided the voided ones) on the strip.
+func stripMarks(evs []alert.Event, tks []alert.Ticket, cals, voided []float64, from, to, last float64) []mark {
 	var out []mark
 	for _, ev := range evs {
 		m := mark{kind: markRaised, critical: ev.Severity == alert.Critical, t: unixSeconds(ev.At), y: alertRow}
@@ -485,6 +525,9 @@ func stripMarks(evs []alert.Event, tks []alert.Ticket, cals []float64, from, to,
 	}
 	for _, t := range cals {
 		out = append(out, mark{kind: markCalibration, t: t, y: calibrationRow})
+	}
+	for _, t := range voided {
+		out = append(out, mark{kind: markVoided, t: t, y: calibrationRow})
 	}
 	return out
 }

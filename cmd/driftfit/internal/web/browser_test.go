@@ -17,6 +17,7 @@ import (
 
 	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/web"
+	"driftfit/ingest"
 	"driftfit/store"
 )
 
@@ -251,6 +252,42 @@ func TestBrowser_FleetToSensor(t *testing.T) {
 		}
 		elemShot(fig, fmt.Sprintf("thermocouple-panes-%d.png", i))
 	}
+
+	// A temperature sensor given two calibration records: no. 1 voided,
+	// drawn as a struck ring without a rule and titled with why; no. 2
+	// standing, a filled circle with its rule.
+	cals := map[uint64][]byte{}
+	for _, r := range []ingest.CalibrationRecord{
+		{Seq: 1, Time: demoEnd.Add(-6 * 24 * time.Hour), AsFound: 181, AsLeft: 180.5, Recorded: demoEnd.Add(-6 * 24 * time.Hour),
+			Status: ingest.CalibrationVoided, Changed: demoEnd.Add(-5 * 24 * time.Hour), Reason: "entered for the wrong tag"},
+		{Seq: 2, Time: demoEnd.Add(-3 * 24 * time.Hour), AsFound: 180.4, AsLeft: 180, Recorded: demoEnd.Add(-3 * 24 * time.Hour),
+			Status: ingest.CalibrationRecorded},
+	} {
+		r.Sensor = idTT
+		data, err := json.Marshal(r)
+		if err != nil {
+			t.Fatal(err)
+		}
+		cals[r.Seq] = data
+	}
+	if err := db.WriteAlerts([]store.AlertWrite{{Sensor: idTT, Calibrations: cals}}); err != nil {
+		t.Fatal(err)
+	}
+	if err := chromedp.Do(ctx,
+		chromedp.Navigate(srv.URL+"/sensors/"+idTT),
+		chromedp.WaitVisible(css(`#chart`)),
+	); err != nil {
+		t.Fatalf("temperature page: %v", err)
+	}
+	title, err := chromedp.Run(ctx, chromedp.Evaluate[string](`(document.querySelector('#chart .marker-cal-voided title') || {}).textContent || ''`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if v, c, r := count(`#chart .marker-cal-voided`), count(`#chart circle.marker-cal`), count(`#chart line.cal-rule`); v != 1 || c != 1 || r != 1 ||
+		!strings.Contains(title, "voided") || !strings.Contains(title, "entered for the wrong tag") {
+		t.Errorf("temperature chart: %d voided markers (title %q), %d calibration markers, %d rules; want one each, the voided one saying why", v, title, c, r)
+	}
+	elemShot(`#chart`, "sensor-voided-calibration-chart.png")
 
 	// Back on the fleet, a ticket stored meanwhile (due before every
 	// demo ticket, so the most urgent) reaches the table without a reload: the marker set in the

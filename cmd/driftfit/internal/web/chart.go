@@ -323,14 +323,34 @@ func (h *handler) buildChart(v *SensorView) *svgChart {
 				Title: fmt.Sprintf("ticket %s due %s", tk.ID, h.fmtTime(tk.Due))})
 		}
 	}
+	// A calibration that stands is a filled circle with a rule across
+	// the panels; a voided one a struck ring without a rule; a corrected
+	// one is not drawn, its correction is.
 	for _, cal := range v.Calibrations {
-		if in(cal.Time) {
-			title := "calibration " + h.fmtTime(cal.Time)
-			if cal.AsLeft != nil {
-				title += fmt.Sprintf(": as-found %s, as-left %s %s", fmtNum(*cal.AsFound), fmtNum(*cal.AsLeft), v.Unit)
-			}
-			c.Markers = append(c.Markers, svgMarker{Class: "marker-cal", Colour: colourCal, Shape: "circle", X: x(cal.Time), Y: markerTop + 32, Line: true, Title: title})
+		if !in(cal.Time) || !cal.Corrected.IsZero() {
+			continue
 		}
+		title := "calibration"
+		if cal.Seq > 0 {
+			title += fmt.Sprintf(" no. %d", cal.Seq)
+		}
+		title += " " + h.fmtTime(cal.Time)
+		if cal.AsLeft != nil {
+			title += fmt.Sprintf(": as-found %s, as-left %s %s", fmtNum(*cal.AsFound), fmtNum(*cal.AsLeft), v.Unit)
+		}
+		if cal.Corrects > 0 {
+			title += fmt.Sprintf("; corrects no. %d", cal.Corrects)
+		}
+		m := svgMarker{Class: "marker-cal", Colour: colourCal, Shape: "circle", X: x(cal.Time), Y: markerTop + 32, Line: true}
+		if !cal.Voided.IsZero() {
+			title += " — voided " + h.fmtTime(cal.Voided)
+			if cal.Reason != "" {
+				title += ": " + cal.Reason
+			}
+			m.Class, m.Shape, m.Line = "marker-cal-voided", "struck", false
+		}
+		m.Title = title
+		c.Markers = append(c.Markers, m)
 	}
 	c.AsOfX = x(v.AsOf)
 	if !in(v.AsOf) {
@@ -339,7 +359,8 @@ func (h *handler) buildChart(v *SensorView) *svgChart {
 	return c
 }
 
-// shapePoints returns polygon points of a marker centred at (x, y).
+// shapePoints returns polygon points of a marker centred at (x, y); for
+// "struck", the path data of the stroke through its ring.
 func shapePoints(shape string, x, y float64) string {
 	const r = 6
 	switch shape {
@@ -347,6 +368,8 @@ func shapePoints(shape string, x, y float64) string {
 		return fmt.Sprintf("%s,%s %s,%s %s,%s", num(x-r), num(y-r), num(x+r), num(y-r), num(x), num(y+r))
 	case "diamond":
 		return fmt.Sprintf("%s,%s %s,%s %s,%s %s,%s", num(x), num(y-r), num(x+r), num(y), num(x), num(y+r), num(x-r), num(y))
+	case "struck": // the stroke through a ring, as path data
+		return fmt.Sprintf("M%s %s L%s %s", num(x-r-1), num(y+r+1), num(x+r+1), num(y-r-1))
 	case "square":
 		return fmt.Sprintf("%s,%s %s,%s %s,%s %s,%s", num(x-r+1), num(y-r+1), num(x+r-1), num(y-r+1), num(x+r-1), num(y+r-1), num(x-r+1), num(y+r-1))
 	}

@@ -11,6 +11,7 @@ import (
 
 	"driftfit/alert"
 	"driftfit/cmd/driftfit/internal/chart"
+	"driftfit/cmd/driftfit/internal/query"
 	"driftfit/rolling"
 	"driftfit/store"
 )
@@ -54,19 +55,31 @@ func latestRecords(db *store.DB, id string, asof time.Time, want []rolling.Windo
 	return found, nil
 }
 
-// eventLog holds the alert events and tickets read from the store, by
-// sensor.
+// eventLog holds the alert events, tickets and calibration records read
+// from the store, by sensor.
 type eventLog struct {
 	events     map[string][]alert.Event
 	tickets    map[string][]alert.Ticket
+	cals       map[string][]query.Calibration
 	unreadable int // stored values that did not decode
 }
 
-// readLog reads events up to asof (all sensors, or one when id is not
-// empty) and every ticket.
+// readLog reads events up to asof, every ticket and every calibration
+// record (of all sensors, or of one when id is not empty).
 func readLog(db *store.DB, id string, asof time.Time) (*eventLog, error) {
-	l := &eventLog{events: map[string][]alert.Event{}, tickets: map[string][]alert.Ticket{}}
-	err := db.Events(time.Time{}, after1(asof), func(_ time.Time, data []byte) error {
+	l := &eventLog{events: map[string][]alert.Event{}, tickets: map[string][]alert.Ticket{}, cals: map[string][]query.Calibration{}}
+	recs, err := query.Records(db, id)
+	var skipped *store.SkippedError
+	if err != nil && !errors.As(err, &skipped) {
+		return nil, err
+	}
+	for _, r := range recs {
+		if r.Damaged {
+			l.unreadable++
+		}
+		l.cals[r.Sensor] = append(l.cals[r.Sensor], r)
+	}
+	err = db.Events(time.Time{}, after1(asof), func(_ time.Time, data []byte) error {
 		var ev alert.Event
 		if err := json.Unmarshal(data, &ev); err != nil {
 			l.unreadable++
@@ -142,21 +155,50 @@ func openAlerts(evs []alert.Event) []OpenAlert {
 }
 
 // TicketView is a recalibration ticket as it stood at the time asked
-// for: a calibration after that time is not shown, and the ticket is
-// then open.
+// for: closed by the calibration that closed it then, and open when
+// none had. An amendment after that time is undone (a ticket reopened
+// later by a void shows closed by the calibration voided); a
+// calibration done after the time, or, where the sensor's records tell,
+// recorded after it, is not shown. Its estimates and revision are the
+// stored ones.
 type TicketView struct {
 	alert.Ticket
 	Open bool `json:"open"`
 }
 
-// ticketsAt returns the tickets opened at or before asof, newest first.
-func ticketsAt(tks []alert.Ticket, asof time.Time) []TicketView {
+// ticketsAt returns the tickets opened at or before asof, newest first;
+// recs are the sensor's calibration records.
+func ticketsAt(tks []alert.Ticket, recs []query.Calibration, asof time.Time) []TicketView {
+	var earliest time.Time // of the records: before it, tickets alone tell
+	for _, r := range recs {
+		if !r.Damaged && (earliest.IsZero() || r.Time.Before(earliest)) {
+			earliest = r.Time
+		}
+	}
+	// recorded says whether a record of a calibration at ct that closed
+	// ticket id was stored at or before asof.
+	recorded := func(id string, ct time.Time) bool {
+		for _, r := range recs {
+			if !r.Damaged && r.Time.Equal(ct) && !r.Recorded.After(asof) && slices.Contains(r.Closed, id) {
+				return true
+			}
+		}
+		return false
+	}
 	var out []TicketView
 	for _, tk := range tks {
 		if tk.Opened.After(asof) {
 			continue
 		}
-		if tk.Calibration != nil && tk.Calibration.Time.After(asof) {
+		for i, a := range tk.Amendments {
+			if a.At.After(asof) {
+				c := a.Calibration // as it stood before the amendment
+				tk.Calibration, tk.Amendments = &c, tk.Amendments[:i:i]
+				break
+			}
+		}
+		if c := tk.Calibration; c != nil && (c.Time.After(asof) ||
+			!earliest.IsZero() && !c.Time.Before(earliest) && !recorded(tk.ID, c.Time)) {
 			tk.Calibration = nil
 		}
 		out = append(out, TicketView{Ticket: tk, Open: tk.Calibration == nil})
@@ -168,14 +210,15 @@ func ticketsAt(tks []alert.Ticket, asof time.Time) []TicketView {
 // CalibrationView is a recorded calibration (see chart.Calibration).
 type CalibrationView = chart.Calibration
 
-// calibrationsAt returns the calibrations of the tickets as they stood
-// at the time asked for, and of the reset events, in time order.
-func calibrationsAt(tks []TicketView, evs []alert.Event) []CalibrationView {
+// calibrationsAt returns the calibrations of a sensor as they stood at
+// asof, in time order (query.CalibrationsAt): from its records, else
+// from its tickets as they stood then (tks) and its events up to then.
+func calibrationsAt(recs []query.Calibration, tks []TicketView, evs []alert.Event, asof time.Time) []CalibrationView {
 	plain := make([]alert.Ticket, len(tks))
 	for i := range tks {
 		plain[i] = tks[i].Ticket
 	}
-	return chart.Calibrations(plain, evs)
+	return query.CalibrationsAt(recs, plain, evs, asof)
 }
 
 // AsLeft is the centre of the tolerance band and where it comes from.
@@ -188,11 +231,15 @@ type AsLeft struct {
 }
 
 // asLeftAt finds the as-left value at asof as the alert rules take it:
-// the last calibration's, else the configured one, else the level of the
-// first trend fit since the last calibration that passes the gates.
+// the last standing calibration's, else the configured one, else the
+// level of the first trend fit since the last standing calibration that
+// passes the gates.
 func (h *handler) asLeftAt(id string, r *alert.Rule, cals []CalibrationView, asof time.Time) (*AsLeft, error) {
 	var from time.Time
 	for i := len(cals) - 1; i >= 0; i-- {
+		if !cals[i].Stands() {
+			continue
+		}
 		if cals[i].AsLeft != nil {
 			return &AsLeft{Value: *cals[i].AsLeft, Source: "calibration", Since: cals[i].Time}, nil
 		}

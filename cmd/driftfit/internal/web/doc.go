@@ -29,9 +29,16 @@
 // could be estimated; for the exponential model it is taken on ln y and
 // exponentiated.
 // Alerts are the alert events up to that time replayed per window and
-// kind; a ticket is open at T when opened at or before T and not closed
-// by a calibration at or before T. Whether a window is judged, and why
-// not, is what the service says: its latest judgement (Options.Judgements)
+// kind. Calibrations are the sensor's calibration records as they stood
+// at T (query.CalibrationsAt): recorded at or before T, and voided or
+// corrected only if that was at or before T; a voided one is drawn
+// struck, a corrected one not (its correction is), and neither centres
+// the tolerance band. A sensor without records (a state file of an
+// older build) has them read back from its tickets and events. A ticket
+// is open at T when opened at or before T and not closed then: by a
+// calibration done and, where records tell, recorded at or before T,
+// and not withdrawn by a void at or before T. Whether a window is
+// judged, and why not, is what the service says: its latest judgement (Options.Judgements)
 // for "now", else the stored record judged by the alert package
 // (alert.Judge) with the serial-correlation estimate of the sensor's
 // windows at that time (alert.SerialOf).

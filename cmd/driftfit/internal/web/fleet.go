@@ -220,7 +220,7 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog, svc map[str
 	if a := openAlerts(log.events[id]); a != nil {
 		row.Alerts = a
 	}
-	tks := ticketsAt(log.tickets[id], asof)
+	tks := ticketsAt(log.tickets[id], log.cals[id], asof)
 	for _, tk := range tks {
 		if tk.Open && (row.Ticket == nil || tk.Due.Before(row.Ticket.Due)) {
 			row.Ticket = &TicketBrief{ID: tk.ID, Due: tk.Due, Reason: tk.Reason.String(), Severity: tk.Severity.String()}
@@ -230,7 +230,7 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog, svc map[str
 		row.State, row.Reason = StateNoRule, "no rule"
 		return row, nil
 	}
-	cals := calibrationsAt(tks, log.events[id])
+	cals := calibrationsAt(log.cals[id], tks, log.events[id], asof)
 	asLeft, err := h.asLeftAt(id, &r, cals, asof)
 	if err != nil {
 		return row, err

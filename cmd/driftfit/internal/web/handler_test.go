@@ -342,6 +342,7 @@ type sensorJSON struct {
 	History      []web.HistoryRow      `json:"history"`
 	From         time.Time             `json:"from"`
 	AsLeft       *web.AsLeft           `json:"as_left"`
+	Band         *[2]float64           `json:"tolerance_band"`
 }
 
 // newestRecord reads the newest stored record of a window at or before

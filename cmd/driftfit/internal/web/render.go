@@ -353,8 +353,11 @@ func limitsText(v *SensorView) []string {
 // writeCSV writes what the sensor page shows as one RFC 4180 table: the
 // newest fit of each window ("fit"), its pane means ("pane": time is the
 // readings' mean time, status in_fit or not_in_fit, n the readings, and
-// the last six columns), every fit record of the chart's range
-// ("history"), the alert events ("event") and tickets ("ticket").
+// the six pane columns), every fit record of the chart's range
+// ("history"), the alert events ("event"), tickets ("ticket") and
+// calibrations ("calibration": status in_force, voided or corrected as
+// it stood then, the last two columns, and the record's number and
+// changes in detail).
 func (h *handler) writeCSV(w http.ResponseWriter, v *SensorView) {
 	var buf bytes.Buffer
 	cw := csv.NewWriter(&buf)
@@ -377,10 +380,10 @@ func (h *handler) writeCSV(w http.ResponseWriter, v *SensorView) {
 		}
 		return f(*p)
 	}
-	none := make([]string, 6) // the pane columns of the other rows
+	none := make([]string, 8) // the pane and calibration columns of the other rows
 	_ = cw.Write([]string{"record", "sensor", "time", "window", "model", "status", "n", "coverage", "level", "level_se",
 		"drift_per_day", "drift_se", "c0", "c1", "c2", "resid_sd", "r2", "judged", "detail",
-		"pane_start", "pane_end", "mean", "geo_mean", "fitted", "residual"})
+		"pane_start", "pane_end", "mean", "geo_mean", "fitted", "residual", "as_found", "as_left"})
 	for _, wv := range v.Windows {
 		_ = cw.Write(append([]string{"fit", v.ID, ts(wv.Record), wv.Window, wv.Fit.Model, wv.Fit.Status, strconv.Itoa(wv.N), f(wv.Coverage),
 			coef(wv.Line.Coef, 0), coef(wv.Line.SE, 0), coef(wv.Line.Coef, 1), coef(wv.Line.SE, 1),
@@ -392,7 +395,7 @@ func (h *handler) writeCSV(w http.ResponseWriter, v *SensorView) {
 				st = "not_in_fit"
 			}
 			_ = cw.Write([]string{"pane", v.ID, ts(p.T), wv.Window, wv.Fit.Model, st, strconv.Itoa(p.N), "", "", "", "", "",
-				"", "", "", "", "", "", "", ts(p.Start), ts(p.End), f(p.Mean), opt(p.GeoMean), opt(p.Fit), opt(p.Resid)})
+				"", "", "", "", "", "", "", ts(p.Start), ts(p.End), f(p.Mean), opt(p.GeoMean), opt(p.Fit), opt(p.Resid), "", ""})
 		}
 		if wv.PaneMeansNote != "" {
 			_ = cw.Write(append([]string{"pane_note", v.ID, ts(wv.Record), wv.Window, wv.Fit.Model, "", "", "", "", "", "", "",
@@ -416,10 +419,57 @@ func (h *handler) writeCSV(w http.ResponseWriter, v *SensorView) {
 		_ = cw.Write(append([]string{"ticket", v.ID, ts(tk.Opened), tk.Window, tk.Evidence.Model, st, "", "", "", "", "", "",
 			"", "", "", "", "", "", fmt.Sprintf("%s %s due %s", tk.Severity, tk.Reason, ts(tk.Due))}, none...))
 	}
+	for _, c := range v.Calibrations {
+		_ = cw.Write(append(append([]string{"calibration", v.ID, ts(c.Time), "", "", calibrationStatus(&c), "", "", "", "", "", "",
+			"", "", "", "", "", "", calibrationDetail(&c, ts)}, none[:6]...), opt(c.AsFound), opt(c.AsLeft)))
+	}
 	cw.Flush()
 	w.Header().Set("Content-Type", "text/csv; charset=utf-8")
 	w.Header().Set("Content-Disposition", `attachment; filename="`+csvName(v)+`"`)
 	_, _ = w.Write(buf.Bytes())
+}
+
+// calibrationStatus is a calibration's state as the page shows it:
+// in_force, voided or corrected.
+func calibrationStatus(c *CalibrationView) string {
+	switch {
+	case !c.Voided.IsZero():
+		return "voided"
+	case !c.Corrected.IsZero():
+		return "corrected"
+	}
+	return "in_force"
+}
+
+// calibrationDetail says what the record tells of a calibration besides
+// its values: number, when recorded, what it corrects, the ticket it
+// closed, and when and why it was voided or corrected; for one read
+// back from tickets and events, that it has no record.
+func calibrationDetail(c *CalibrationView, ts func(time.Time) string) string {
+	if c.Seq == 0 {
+		d := "no record (from tickets and events)"
+		if c.Ticket != "" {
+			d += "; closed ticket " + c.Ticket
+		}
+		return d
+	}
+	d := fmt.Sprintf("no. %d recorded %s", c.Seq, ts(c.Recorded))
+	if c.Corrects > 0 {
+		d += fmt.Sprintf("; corrects no. %d", c.Corrects)
+	}
+	if c.Ticket != "" {
+		d += "; closed ticket " + c.Ticket
+	}
+	switch {
+	case !c.Voided.IsZero():
+		d += "; voided " + ts(c.Voided)
+	case !c.Corrected.IsZero():
+		d += fmt.Sprintf("; corrected %s by no. %d", ts(c.Corrected), c.CorrectedBy)
+	}
+	if c.Reason != "" {
+		d += ": " + c.Reason
+	}
+	return d
 }
 
 // csvName is a file name safe in a header: the id's letters, digits,

@@ -182,7 +182,7 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 		return nil, err
 	}
 	v.Unreadable = log.unreadable
-	if len(recs) == 0 && len(log.events[id]) == 0 && len(log.tickets[id]) == 0 {
+	if len(recs) == 0 && len(log.events[id]) == 0 && len(log.tickets[id]) == 0 && len(log.cals[id]) == 0 {
 		known := false
 		_ = db.History(id, rolling.WindowSpec{}, time.Time{}, time.Time{}, func(store.HistoryRecord) error {
 			known = true
@@ -198,10 +198,10 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 	if a := openAlerts(log.events[id]); a != nil {
 		v.Alerts = a
 	}
-	if tks := ticketsAt(log.tickets[id], asof); tks != nil {
+	if tks := ticketsAt(log.tickets[id], log.cals[id], asof); tks != nil {
 		v.Tickets = tks
 	}
-	if cals := calibrationsAt(v.Tickets, v.Events); cals != nil {
+	if cals := calibrationsAt(log.cals[id], v.Tickets, v.Events, asof); cals != nil {
 		v.Calibrations = cals
 	}
 	if hasRule {

@@ -82,6 +82,27 @@ func servicePlant(end time.Time) map[string][]rolling.Reading {
 // stopped service, whose judgements stay readable.
 func runService(t *testing.T, readings map[string][]rolling.Reading) (*store.DB, *ingest.Service) {
 	t.Helper()
+	ls := startService(t, nil)
+	ls.feed(readings)
+	ls.stop()
+	return ls.db, ls.svc
+}
+
+// liveService is a real service running on an embedded NATS server with
+// JetStream over a bbolt file in a temp dir.
+type liveService struct {
+	t     *testing.T
+	db    *store.DB
+	svc   *ingest.Service
+	js    nats.JetStreamContext
+	total int // readings fed
+	stop  func()
+}
+
+// startService starts a service with the given clock (nil: the wall
+// clock); it is stopped at the end of the test, or by stop.
+func startService(t *testing.T, now func() time.Time) *liveService {
+	t.Helper()
 	dir := t.TempDir()
 	ns, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true,
 		JetStream: true, StoreDir: filepath.Join(dir, "nats")})
@@ -106,6 +127,7 @@ func runService(t *testing.T, readings map[string][]rolling.Reading) (*store.DB,
 		},
 		Rule:           serviceRule,
 		CommitInterval: 20 * time.Millisecond,
+		Now:            now,
 	})
 	if err != nil {
 		t.Fatal(err)
@@ -129,24 +151,29 @@ func runService(t *testing.T, readings map[string][]rolling.Reading) (*store.DB,
 		t.Fatal(err)
 	}
 	waitUntil(t, "the stream", func() bool { _, err := js.StreamInfo("DRIFTFIT"); return err == nil })
-	total := 0
+	return &liveService{t: t, db: db, svc: svc, js: js, stop: stop}
+}
+
+// feed publishes readings and returns once the service has applied and
+// committed every reading fed so far, none refused.
+func (ls *liveService) feed(readings map[string][]rolling.Reading) {
+	t := ls.t
+	t.Helper()
 	for id, rs := range readings {
 		for i := 0; i < len(rs); i += 400 {
-			if _, err := js.Publish("driftfit.in."+id, ingest.AppendBatch(nil, id, rs[i:min(i+400, len(rs))])); err != nil {
+			if _, err := ls.js.Publish("driftfit.in."+id, ingest.AppendBatch(nil, id, rs[i:min(i+400, len(rs))])); err != nil {
 				t.Fatal(err)
 			}
 		}
-		total += len(rs)
+		ls.total += len(rs)
 	}
 	waitUntil(t, "every reading committed", func() bool {
-		n, err := db.Applied()
-		return err == nil && n == uint64(total)
+		n, err := ls.db.Applied()
+		return err == nil && n == uint64(ls.total)
 	})
-	stop()
-	if st := svc.Stats(); st.Rejected != 0 || st.Applied != uint64(total) {
-		t.Fatalf("service applied %d of %d readings, rejected %d", st.Applied, total, st.Rejected)
+	if st := ls.svc.Stats(); st.Rejected != 0 || st.Applied != uint64(ls.total) {
+		t.Fatalf("service applied %d of %d readings, rejected %d", st.Applied, ls.total, st.Rejected)
 	}
-	return db, svc
 }
 
 // waitUntil polls cond until it holds or 60 s pass.

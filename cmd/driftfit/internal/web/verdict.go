@@ -123,11 +123,11 @@ func reasonText(j alert.Judgement) string {
 }
 
 // lastCalibration returns the time of the newest of cals (in time
-// order) at or before asof; zero for none.
+// order) that stands at or before asof; zero for none.
 func lastCalibration(cals []CalibrationView, asof time.Time) time.Time {
 	var t time.Time
 	for _, c := range cals {
-		if !c.Time.After(asof) {
+		if c.Stands() && !c.Time.After(asof) {
 			t = c.Time
 		}
 	}
