@@ -153,7 +153,7 @@ func runCalibrated(ctx context.Context, args []string, _ io.Reader, stdout, _ io
 	fs := newFlags("calibrated", calibratedHelp)
 	asFound := fs.String("as-found", "", "the reading before adjustment, against the standard (engineering unit)")
 	asLeft := fs.String("as-left", "", "the reading after adjustment (engineering unit)")
-	at := fs.String("at", "", "when the calibration was done: RFC 3339 or Unix seconds (default: now; with --correct, the time recorded)")
+	at := fs.String("at", "", "when the calibration was done: RFC 3339, a date (midnight UTC) or Unix seconds (default: now; with --correct, the time recorded)")
 	void := fs.String("void", "", "withdraw calibration `N` of SENSOR (its latest in force)")
 	correct := fs.String("correct", "", "replace calibration `N` of SENSOR (its latest in force) by --as-found, --as-left and --at")
 	reason := fs.String("reason", "", "why, with --void or --correct: stored with the record (at most 500 bytes)")
@@ -295,10 +295,16 @@ func calibratedArgs(pos []string, set map[string]bool, msg *ingest.CalibrationMs
 		*f.dst = x
 	}
 	if v.at != "" {
-		if _, err := ingest.ParseTime([]byte(v.at)); err != nil {
-			return usageError("--at %q: %v", v.at, err)
-		}
 		msg.T = v.at
+		if _, err := ingest.ParseTime([]byte(v.at)); err != nil {
+			// A date alone is midnight UTC; a date too far ahead is then
+			// refused by the service like any other time.
+			d, derr := time.Parse(time.DateOnly, v.at)
+			if derr != nil {
+				return usageError("--at %q: %v (or give a date such as 2026-11-30)", v.at, err)
+			}
+			msg.T = d.Format(time.RFC3339)
+		}
 	}
 	return nil
 }

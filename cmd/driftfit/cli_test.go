@@ -44,6 +44,8 @@ func TestRun_ExitCodes(t *testing.T) {
 		{[]string{"calibrated", "s", "--as-found", "1", "--as-left", "0", "--reason", "typo"}, 2, `--reason "typo": goes with --void or --correct only`},
 		{[]string{"calibrated", "s", "--from", "cal.csv"}, 2, "--from takes no SENSOR"},
 		{[]string{"calibrated", "--from", "cal.csv", "--at", "1"}, 2, "--at does not go with --from"},
+		{[]string{"calibrated", "s", "--as-found", "1", "--as-left", "0", "--at", "2026-13-01"}, 2, `--at "2026-13-01"`},
+		{[]string{"calibrated", "s", "--as-found", "1", "--as-left", "0", "--at", "2026-11-30", "--servers", "nats://127.0.0.1:1"}, 1, "connect to the service"},
 		{[]string{"calibrated", "--from", "cal.csv", "--parallel", "0"}, 2, "--parallel 0: want 1 to 64"},
 		{[]string{"calibrated", "--from", filepath.Join(missing, "cal.csv"), "--servers", "nats://127.0.0.1:1"}, 1, "no such file"},
 		{[]string{"calibrations", "--db", missing}, 1, "no database file"},
