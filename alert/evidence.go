@@ -337,48 +337,58 @@ func (r *Rule) meanExit(f *rolling.Fit, asLeft float64) (mc rolling.MeanCross, u
 	return mu, true, true
 }
 
-// recentOf returns the line over the newest half of sol's window
-// (rolling.Solution.Recent) for a line trend to check its due date
-// against (recentBound), or nil when the trend is not a line or the half
-// is not usable.
-func (r *Rule) recentOf(sol *rolling.Solution, trend *rolling.Fit) *rolling.Fit {
-	if trend.Model != rolling.Line || sol.Recent.Model != rolling.Line || !r.usable(&sol.Recent) {
-		return nil
+// recentOf returns the lines over the newest half and quarter of sol's
+// window (rolling.Solution.Recent) for a line trend to check its due
+// date against (recentBound); nil where the trend is not a line or the
+// part is not usable.
+func (r *Rule) recentOf(sol *rolling.Solution, trend *rolling.Fit) [2]*rolling.Fit {
+	var out [2]*rolling.Fit
+	for k := range sol.Recent {
+		if f := &sol.Recent[k]; trend.Model == rolling.Line && f.Model == rolling.Line && r.usable(f) {
+			out[k] = f
+		}
 	}
-	return &sol.Recent
+	return out
 }
 
-// recentBound returns the one-sided 95% lower confidence bound, in days
-// from the last reading, of the time the mean of h, the line over the
-// newest half of the window, reaches the edge the window's line heads
-// for (upper or lower of asLeft ± Tolerance), with h's serially
-// corrected covariance when it carries one; false when there is none
-// (h nil, its rate towards the edge not significant, or no bound within
-// the horizon). The due date takes the earlier of this and the whole
-// window's bound. A line fitted over a window in which a drift began
-// part-way (flat, then a ramp) underestimates the rate and the level at
-// its end, so its exit bound comes late: in TestDetection_PlantNoise
-// (drift of three times the slope warning level from day 40, white
-// hourly noise) the window's bound less the margin fell after the true
-// exit for 97 of 100 tickets as opened, the earlier of the two for 3.
-// Testing first whether the half runs faster (the difference of the
-// rates against √(Var b_half − Var b_window), Hausman 1978) kept 63 late:
-// a month of readings cannot tell a bend that soon. The cost is an
-// earlier date where the drift is a straight line; the measured slack is
-// in DEVELOPERS.md.
-func (r *Rule) recentBound(h *rolling.Fit, asLeft float64, upper bool) (float64, bool) {
-	if h == nil {
-		return 0, false
-	}
+// recentBound returns the earliest one-sided 95% lower confidence bound,
+// in days from the last reading, of the time the mean of a line over the
+// newest part of the window (hs: half and quarter) reaches the edge the
+// window's line heads for (upper or lower of asLeft ± Tolerance), each
+// with its serially corrected covariance when it carries one; false when
+// none gives one (nil, its rate towards the edge not significant, or no
+// bound within the horizon). The due date takes the earlier of this and
+// the whole window's bound. A line fitted over a window in which a drift
+// began part-way (flat, then a ramp) underestimates the rate and the
+// level at its end, so its exit bound comes late: in
+// TestDetection_PlantNoise (drift of three times the slope warning level
+// from day 40, white hourly noise) the window's bound less the margin fell
+// after the true exit for 97 of 100 tickets as opened, the earlier of it
+// and the newest half's for 3. Testing first whether the half runs faster
+// (the difference of the rates against √(Var b_half − Var b_window),
+// Hausman 1978) kept 63 late: a month of readings cannot tell a bend that
+// soon. The quarter serves long windows, whose newest half may still hold
+// the flat part (a 180-day window: 83 of 100 late with the half alone, at
+// three times the level in AR(1) 0.9 hourly noise); over a short part
+// the rate is seldom significant unless the drift is fast, so it rarely
+// moves a slow drift's date. The cost is an earlier date where the drift
+// is a straight line; the measured slack is in DEVELOPERS.md.
+func (r *Rule) recentBound(hs [2]*rolling.Fit, asLeft float64, upper bool) (float64, bool) {
 	limit := asLeft - r.Tolerance
 	if upper {
 		limit = asLeft + r.Tolerance
 	}
-	mc, err := h.MeanTimeToLimit(limit, upper, h.Pairs > 0, r.Horizon)
-	if err != nil || !mc.LowerOK {
-		return 0, false
+	best, ok := 0.0, false
+	for _, h := range hs {
+		if h == nil {
+			continue
+		}
+		mc, err := h.MeanTimeToLimit(limit, upper, h.Pairs > 0, r.Horizon)
+		if err == nil && mc.LowerOK && (!ok || mc.LowerDays < best) {
+			best, ok = mc.LowerDays, true
+		}
 	}
-	return mc.LowerDays, true
+	return best, ok
 }
 
 // sooner reports whether crossing a comes strictly before b.

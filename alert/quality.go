@@ -434,7 +434,7 @@ func (t *Tracker) Observe(now time.Time, f Finding) (Decision, error) {
 	d.Events = append(d.Events, e)
 	if typ == Raised && r.opensTicket(k) && !t.hasTicket && t.hasAsLeft && f.Fit != nil && r.usable(f.Fit) &&
 		(f.Fit.Model == rolling.Line || f.Fit.Model == rolling.Parabola) {
-		t.ticket, t.hasTicket = t.openTicket(now, f.Window, f.Coverage, f.Fit, nil, k, m.sev), true
+		t.ticket, t.hasTicket = t.openTicket(now, f.Window, f.Coverage, f.Fit, [2]*rolling.Fit{}, k, m.sev), true
 		tk := t.ticket
 		d.Opened = &tk
 	}

@@ -23,10 +23,11 @@ import (
 // rolling.Fit.MeanTimeToLimit with the serially corrected covariance:
 // Fieller's bound for a line, the inverted confidence band of the mean
 // for a parabola), minus the rule's TicketMargin, and never before Opened.
-// For a line the bound is the earlier of the window's and that of the
-// line over the window's newest half (rolling.Solution.Recent; DueBasis
-// "exit_lower_bound_recent"), since a drift that began inside the window
-// bends the whole window's line towards a later exit.
+// For a line the bound is the earliest of the window's and those of the
+// lines over the window's newest half and newest quarter
+// (rolling.Solution.Recent; DueBasis "exit_lower_bound_recent"), since a
+// drift that began inside the window bends the whole window's line
+// towards a later exit.
 // So the sensor's mean is still inside tolerance at Due, less the margin,
 // with 95% confidence. When no bound exists (the rate towards the edge is
 // not significant at the one-sided 95% level, or the bound lies beyond the
@@ -184,7 +185,7 @@ func summarize(f *rolling.Fit, coverage float64) FitSummary {
 
 // openTicket builds the ticket for an alert of kind k at severity sev,
 // raised at now on a window whose trend fit is f.
-func (t *Tracker) openTicket(now time.Time, w rolling.WindowSpec, coverage float64, f, recent *rolling.Fit, k Kind, sev Severity) Ticket {
+func (t *Tracker) openTicket(now time.Time, w rolling.WindowSpec, coverage float64, f *rolling.Fit, recent [2]*rolling.Fit, k Kind, sev Severity) Ticket {
 	r := &t.rule
 	tk := Ticket{
 		ID: t.sensor + "@" + now.Format("20060102T150405Z"), Sensor: t.sensor, Class: r.Class,
@@ -197,10 +198,10 @@ func (t *Tracker) openTicket(now time.Time, w rolling.WindowSpec, coverage float
 }
 
 // estimate fills the estimates of tk (AsOf to AsFound) from trend fit f
-// at evaluation time now; recent, when not nil, is the line over the
-// newest half of the same window, whose bound replaces the line's when
-// it comes sooner (see recentBound).
-func (t *Tracker) estimate(tk *Ticket, now time.Time, coverage float64, f, recent *rolling.Fit) {
+// at evaluation time now; recent are the lines over the newest half and
+// quarter of the same window (nil: none), whose bound replaces the line's
+// when it comes sooner (see recentBound).
+func (t *Tracker) estimate(tk *Ticket, now time.Time, coverage float64, f *rolling.Fit, recent [2]*rolling.Fit) {
 	r := &t.rule
 	tk.AsOf, tk.Evidence = now, summarize(f, coverage)
 	tk.Exit, tk.ExitLowerBound, tk.ExitCI, tk.EarliestExit = time.Time{}, time.Time{}, [2]time.Time{}, time.Time{}
@@ -267,7 +268,7 @@ func (tk *Ticket) bounded() bool {
 // revise re-estimates the open ticket from trend fit f of its window,
 // judged at now, and returns the revision, or nil when there is none
 // (see Ticket, Revisions).
-func (t *Tracker) revise(now time.Time, coverage float64, f, recent *rolling.Fit) *Ticket {
+func (t *Tracker) revise(now time.Time, coverage float64, f *rolling.Fit, recent [2]*rolling.Fit) *Ticket {
 	old := &t.ticket
 	if !now.After(old.AsOf) {
 		return nil

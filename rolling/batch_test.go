@@ -430,7 +430,7 @@ func TestSolve_MatchesBatchQR(t *testing.T) {
 				}
 				// The newest half of the window, against the batch fit
 				// of the readings of its panes only; SolveJudged's Recent
-				// is the same line.
+				// holds the same line, and the newest quarter's.
 				half := (sp.Panes() + 1) / 2
 				var newest int64 = math.MinInt64
 				for _, o := range kept[w] {
@@ -451,8 +451,12 @@ func TestSolve_MatchesBatchQR(t *testing.T) {
 				} else if rs.Line.OK() {
 					t.Errorf("window %v/%v: newest %d panes hold %d readings, yet the line is %v", sp.Span, sp.Pane, half, len(recent), rs.Line.Err)
 				}
-				if j := s.SolveJudged(w); j.Recent.Coef != rs.Line.Coef || j.Recent.N != rs.Line.N {
-					t.Errorf("window %v/%v: SolveJudged's Recent %v (n %d), want SolveRecent's line %v (n %d)", sp.Span, sp.Pane, j.Recent.Coef, j.Recent.N, rs.Line.Coef, rs.Line.N)
+				j := s.SolveJudged(w)
+				if q := s.SolveRecent(w, (sp.Panes()+3)/4); j.Recent[1].Coef != q.Line.Coef || j.Recent[1].N != q.Line.N {
+					t.Errorf("window %v/%v: SolveJudged's Recent[1] %v (n %d), want the newest quarter's line %v (n %d)", sp.Span, sp.Pane, j.Recent[1].Coef, j.Recent[1].N, q.Line.Coef, q.Line.N)
+				}
+				if j.Recent[0].Coef != rs.Line.Coef || j.Recent[0].N != rs.Line.N {
+					t.Errorf("window %v/%v: SolveJudged's Recent[0] %v (n %d), want SolveRecent's line %v (n %d)", sp.Span, sp.Pane, j.Recent[0].Coef, j.Recent[0].N, rs.Line.Coef, rs.Line.N)
 				}
 			}
 		})

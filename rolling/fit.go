@@ -78,12 +78,12 @@ type Solution struct {
 	Line     Fit
 	Parabola Fit
 	Exp      Fit
-	// Recent is the Line over the newest half of the window's panes,
-	// serially corrected as the others; filled by SolveJudged only (else
-	// its zero value, which is not PosDef). A line over a window in which
-	// a drift began part-way is bent by the flat part; the recent half
-	// is less so.
-	Recent Fit
+	// Recent are the Lines over the newest half and the newest quarter
+	// of the window's panes, serially corrected as the others; filled by
+	// SolveJudged only (else zero values, which are not PosDef). A line
+	// over a window in which a drift began part-way is bent by the flat
+	// part; the newest part of the window less so.
+	Recent [2]Fit
 }
 
 // Coverage returns the fraction of the window's panes that hold readings.

@@ -76,8 +76,10 @@ func (s *Solution) WithSerial(r1 float64, pairs int) Solution {
 	c.Line.SetSerial(r1, pairs)
 	c.Parabola.SetSerial(r1, pairs)
 	c.Exp.SetSerial(r1, pairs)
-	if c.Recent.Model != ModelUnknown {
-		c.Recent.SetSerial(r1, pairs)
+	for k := range c.Recent {
+		if c.Recent[k].Model != ModelUnknown {
+			c.Recent[k].SetSerial(r1, pairs)
+		}
 	}
 	return c
 }
@@ -90,10 +92,14 @@ func (s *Solution) WithSerial(r1 float64, pairs int) Solution {
 // window when it borrows.
 func (s *Sensor) SolveJudged(i int) Solution {
 	sol := s.Solve(i)
-	half := s.SolveRecent(i, int(s.wins[i].panes+1)/2)
-	sol.Recent = half.Line
+	for k, div := range [2]int64{2, 4} {
+		part := s.SolveRecent(i, int((s.wins[i].panes+div-1)/div))
+		sol.Recent[k] = part.Line
+	}
 	if sol.Parabola.Pairs >= MinPairs {
-		sol.Recent.SetSerial(sol.Parabola.R1, sol.Parabola.Pairs)
+		for k := range sol.Recent {
+			sol.Recent[k].SetSerial(sol.Parabola.R1, sol.Parabola.Pairs)
+		}
 		return sol
 	}
 	best := -1
