@@ -212,7 +212,9 @@ func (s *Service) reply(m *nats.Msg, err error, rec *CalibrationRecord) {
 	}
 	ans, merr := json.Marshal(CalibrationReply{OK: true, Record: rec})
 	if err != nil || merr != nil {
-		ans, _ = json.Marshal(CalibrationReply{Error: cmp.Or(err, merr).Error()})
+		// The reader of a reply is a person or another program, not this
+		// package: its name adds nothing to the reason.
+		ans, _ = json.Marshal(CalibrationReply{Error: strings.TrimPrefix(cmp.Or(err, merr).Error(), "ingest: ")})
 	}
 	if perr := s.o.Conn.Publish(m.Reply, ans); perr != nil {
 		s.badLog.Warn().Err(perr).Str("subject", m.Reply).Msg("reply not sent")

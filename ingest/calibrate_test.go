@@ -18,10 +18,19 @@ import (
 )
 
 // calibrationRequest sends body as a calibration of id and returns the
-// service's reply.
+// service's reply. A service just (re)started may not subscribe yet
+// (the stream it waits for outlives it): no responders is tried again
+// for up to 10 s.
 func calibrationRequest(t *testing.T, nc *nats.Conn, id, body string) ingest.CalibrationReply {
 	t.Helper()
-	m, err := nc.Request("driftfit.calibrations."+id, []byte(body), 10*time.Second)
+	var m *nats.Msg
+	var err error
+	for deadline := time.Now().Add(10 * time.Second); ; time.Sleep(10 * time.Millisecond) {
+		m, err = nc.Request("driftfit.calibrations."+id, []byte(body), 10*time.Second)
+		if !errors.Is(err, nats.ErrNoResponders) || time.Now().After(deadline) {
+			break
+		}
+	}
 	if err != nil {
 		t.Fatalf("calibration %s %s: %v", id, body, err)
 	}

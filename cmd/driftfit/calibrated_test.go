@@ -129,7 +129,7 @@ func TestCalibrated_VoidCorrectFromFile(t *testing.T) {
 	want := []string{
 		"line 2: calibration 1 of crash.s0001 recorded (as-found 500.4, as-left 500, at " + atText + ")",
 		`line 3: refused: as_found "abc": not a number`,
-		`line 4: crash.zz99: refused by the service: ingest: sensor has never reported: "crash.zz99"`,
+		`line 4: crash.zz99: refused by the service: sensor has never reported: "crash.zz99"`,
 		"line 5: crash.s0003: refused by the service: t 2030-01-01T00:00:00Z is more than",
 		"line 6: calibration 2 of crash.s0000 recorded (as-found 502, as-left 500.2, at " + at2 + "); ticket " + opened.ID + " closed",
 		`line 7: refused: sensor "qm..x": ingest: invalid sensor id: empty token`,
