@@ -138,6 +138,7 @@ func TestFleet_RanksByUrgency(t *testing.T) {
 		n            int
 		c0, c1, se1  float64
 		dueInDays    float64 // > 0: an open ticket due then
+		r1           float64 // ≠ 0: the line carries this lag-1 correlation over n − 1 pairs
 		rule         bool
 		wantExitDays float64 // 0: no exit expected
 		wantShare    float64
@@ -156,16 +157,24 @@ func TestFleet_RanksByUrgency(t *testing.T) {
 		// f and g both use 0.3; g's |slope|/SE 0.4 beats f's 0.
 		{id: "qm.r.f", n: 100, c0: 100.6, c1: 0, se1: 0.01, rule: true, wantShare: 0.3},
 		{id: "qm.r.g", n: 100, c0: 100.6, c1: 0.004, se1: 0.01, rule: true, wantShare: 0.3},
+		// j is g with serially correlated residuals, r1 = 0.5: n_eff =
+		// 100·(1 − 0.5)/(1 + 0.5) = 33.33 (Santer et al. 2000), SE × √(98/31.33)
+		// = 1.7685, so |slope|/SE = 0.4/1.7685 = 0.2262: between g and f.
+		{id: "qm.r.j", n: 100, c0: 100.6, c1: 0.004, se1: 0.01, r1: 0.5, rule: true, wantShare: 0.3},
 		// Not judged, then no rule: nothing to rank them by but the id.
 		{id: "qm.r.h", n: 5, c0: 100, c1: 0, se1: 0.01, rule: true},
 		{id: "qm.r.i", n: 100, c0: 100, c1: 0, se1: 0.01},
 	}
-	want := []string{"qm.r.b", "qm.r.a", "qm.r.c", "qm.r.d", "qm.r.e", "qm.r.g", "qm.r.f", "qm.r.h", "qm.r.i"}
+	want := []string{"qm.r.b", "qm.r.a", "qm.r.c", "qm.r.d", "qm.r.e", "qm.r.g", "qm.r.j", "qm.r.f", "qm.r.h", "qm.r.i"}
 	rules := map[string]alert.Rule{}
 	var b store.Batch
 	var writes []store.AlertWrite
 	for _, s := range sensors {
-		if err := b.Record(s.id, lineSolution(last, s.n, s.c0, s.c1, s.se1)); err != nil {
+		sol := lineSolution(last, s.n, s.c0, s.c1, s.se1)
+		if s.r1 != 0 {
+			sol.Line.SetSerial(s.r1, s.n-1)
+		}
+		if err := b.Record(s.id, sol); err != nil {
 			t.Fatal(err)
 		}
 		if s.rule {
@@ -219,6 +228,9 @@ func TestFleet_RanksByUrgency(t *testing.T) {
 	}
 	if r := byID["qm.r.i"]; r.State != web.StateNoRule {
 		t.Errorf("qm.r.i state %q, want no_rule", r.State)
+	}
+	if j := byID["qm.r.j"]; j.Significance == nil || math.Abs(*j.Significance-0.4/math.Sqrt(98/(100.0/3-2))) > 1e-9 {
+		t.Errorf("qm.r.j significance = %v, want 0.4/√(98/31.33) = 0.2262 (serially corrected)", j.Significance)
 	}
 	if g := byID["qm.r.g"]; g.Significance == nil || math.Abs(*g.Significance-0.4) > 1e-12 {
 		t.Errorf("qm.r.g significance = %v, want 0.004/0.01 = 0.4", g.Significance)
