@@ -76,6 +76,17 @@ func startAlertService(t *testing.T, url, dir string, rule alert.Rule, group str
 	return h
 }
 
+// publishDrift publishes six days of hourly readings of id from t0 with
+// a JetStream acknowledgement: 2 kPa/day of drift from 500 kPa in a
+// repeating ±0.2 kPa pattern, four times ptRule's slope limit, enough for
+// a slope alert and a ticket.
+func publishDrift(t *testing.T, js nats.JetStreamContext, id string, t0 time.Time) {
+	t.Helper()
+	for hr := range 24 * 6 {
+		publishJS(t, js, id, t0.Add(time.Duration(hr)*time.Hour), 500+2*float64(hr)/24+0.2*float64((hr*7919)%11-5)/5)
+	}
+}
+
 // publishJS publishes one reading with a JetStream acknowledgement.
 func publishJS(t *testing.T, js nats.JetStreamContext, id string, at time.Time, v float64) {
 	t.Helper()
@@ -136,14 +147,9 @@ func TestService_TicketThroughOutbox(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// 2 kPa/day of drift in 0.2 kPa noise, one reading an hour: 4 times
-	// the slope limit.
 	id := "qm.u1.steam.pt-102"
 	t0 := time.Date(2026, 9, 1, 0, 0, 0, 0, time.UTC)
-	for hr := range 24 * 6 {
-		v := 500 + 2*float64(hr)/24 + 0.2*float64((hr*7919)%11-5)/5
-		publishJS(t, js, id, t0.Add(time.Duration(hr)*time.Hour), v)
-	}
+	publishDrift(t, js, id, t0)
 	m, err := tickets.NextMsg(20 * time.Second)
 	if err != nil {
 		t.Fatalf("no ticket on the bus: %v", err)

@@ -152,13 +152,9 @@ func TestService_VoidCalibration(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// 2 kPa/day of drift, one reading an hour for 6 days: four times the
-	// slope limit (as in TestService_TicketThroughOutbox).
 	id := "qm.u1.steam.pt-102"
 	t0 := time.Date(2026, 9, 1, 0, 0, 0, 0, time.UTC)
-	for hr := range 24 * 6 {
-		publishJS(t, js, id, t0.Add(time.Duration(hr)*time.Hour), 500+2*float64(hr)/24+0.2*float64((hr*7919)%11-5)/5)
-	}
+	publishDrift(t, js, id, t0)
 	m, err := tickets.NextMsg(20 * time.Second)
 	if err != nil {
 		t.Fatalf("no ticket: %v", err)

@@ -35,21 +35,13 @@ func (x *ticketIndex) set(tk *alert.Ticket) {
 	x.due[tk.ID] = tk.Due
 }
 
-// load records a stored ticket (its JSON) if it is open.
+// load records a stored ticket from its JSON, as set does.
 func (x *ticketIndex) load(data []byte) error {
-	var tk struct {
-		ID          string           `json:"id"`
-		Due         time.Time        `json:"due"`
-		Calibration *json.RawMessage `json:"calibration"`
-	}
+	var tk alert.Ticket
 	if err := json.Unmarshal(data, &tk); err != nil {
 		return err
 	}
-	x.mu.Lock()
-	defer x.mu.Unlock()
-	if tk.Calibration == nil || string(*tk.Calibration) == "null" {
-		x.due[tk.ID] = tk.Due
-	}
+	x.set(&tk)
 	return nil
 }
 

@@ -58,12 +58,8 @@ func TestService_TicketGauges(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// 2 kPa/day in 0.2 kPa noise, hourly: four times the slope limit.
 	id := "qm.u1.steam.pt-107"
-	for hr := range 24 * 6 {
-		v := 500 + 2*float64(hr)/24 + 0.2*float64((hr*7919)%11-5)/5
-		publishJS(t, js, id, t0.Add(time.Duration(hr)*time.Hour), v)
-	}
+	publishDrift(t, js, id, t0)
 	var tk alert.Ticket
 	waitFor(t, "a stored open ticket", func() bool {
 		_ = h.db.Tickets(func(_ string, d []byte) error { return json.Unmarshal(d, &tk) })

@@ -115,3 +115,16 @@ func withSerial(sol rolling.Solution, s alert.Serial) rolling.Solution {
 	}
 	return sol.WithSerial(s.R1, s.Pairs)
 }
+
+// serialOf returns the serial estimate the sensor's windows give the
+// service's tracker (alert.SerialOf) from recs, the newest fit record of
+// each window, taken in window order so that a tie between windows
+// always resolves the same way.
+func serialOf(recs map[rolling.WindowSpec]rolling.Solution) alert.Serial {
+	sols := make([]*rolling.Solution, 0, len(recs))
+	for _, w := range sortedWindows(recs) {
+		s := recs[w]
+		sols = append(sols, &s)
+	}
+	return alert.SerialOf(sols...)
+}

@@ -239,12 +239,7 @@ func (h *handler) fleetRow(id string, asof time.Time, log *eventLog, svc map[str
 	verdicts := judgeWindows(&r, recs, svc, lastCalibration(cals, asof))
 	var reasons []string
 	var longest *rolling.Solution
-	sols := make([]*rolling.Solution, 0, len(recs))
-	for w := range recs {
-		s := recs[w]
-		sols = append(sols, &s)
-	}
-	serial := alert.SerialOf(sols...)
+	serial := serialOf(recs)
 	for _, w := range r.Windows {
 		sol, ok := recs[w]
 		if ok {

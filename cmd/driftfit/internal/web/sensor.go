@@ -265,12 +265,7 @@ func (h *handler) sensor(id string, asof time.Time, live bool) (*SensorView, err
 	}
 	var reasons []string
 	judgedAny := false
-	sols := make([]*rolling.Solution, 0, len(recs))
-	for w := range recs {
-		s := recs[w]
-		sols = append(sols, &s)
-	}
-	serial := alert.SerialOf(sols...)
+	serial := serialOf(recs)
 	for _, w := range sortedWindows(recs) {
 		sol := withSerial(recs[w], serial) // drawn as judged
 		wv := WindowView{Window: alert.WindowName(w), Record: sol.Last, N: sol.N, Panes: sol.Panes, Filled: sol.Filled,

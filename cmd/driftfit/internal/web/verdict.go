@@ -62,12 +62,7 @@ func (h *handler) serviceJudgements(want func(id string) bool) map[string]map[st
 // time asked for (zero: none): the service does not judge a fit holding
 // readings from before it, and neither do the pages.
 func judgeWindows(r *alert.Rule, recs map[rolling.WindowSpec]rolling.Solution, svc map[string]alert.Judgement, calibrated time.Time) map[rolling.WindowSpec]verdict {
-	sols := make([]*rolling.Solution, 0, len(recs))
-	for w := range recs {
-		s := recs[w]
-		sols = append(sols, &s)
-	}
-	serial := alert.SerialOf(sols...)
+	serial := serialOf(recs)
 	out := make(map[rolling.WindowSpec]verdict, len(recs))
 	for w, sol := range recs {
 		// A fit from before the calibration is not judged any more, even
