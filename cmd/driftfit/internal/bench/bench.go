@@ -880,7 +880,6 @@ func (e *benchEnv) streamCase(ctx context.Context, pool *benchPool, slot time.Du
 		return out, fmt.Errorf("bench: stream did not store %d messages within a minute", sent)
 	}
 	warm := max(min(uint64(len(pool.data)), sent/2), sent/3)
-	timed := float64(sent-warm) * float64(pool.per)
 
 	// Baseline: a durable pull consumer that acknowledges each message.
 	cons, err := js.CreateConsumer(ctx, streamName, jetstream.ConsumerConfig{
@@ -926,8 +925,12 @@ func (e *benchEnv) streamCase(ctx context.Context, pool *benchPool, slot time.Du
 	var c0 commitTotals
 	c0.n, c0.bytes, c0.secs = p.commitStats()
 	t0 = time.Now()
-	want := start.Applied + uint64(timed)
-	waitUntil(ctx, slot, func() bool { return p.svc.Stats().Applied >= want })
+	// Done when every message of the stream has been applied or refused:
+	// a count from the start taken above would overshoot by whatever the
+	// pipeline applied while the warm-up wait polled, and then the phase
+	// would always run out its slot and report the slot's length.
+	want := sent * uint64(pool.per)
+	waitUntil(ctx, slot, func() bool { st := p.svc.Stats(); return st.Applied+st.Rejected >= want })
 	end := p.svc.Stats()
 	tEnd := time.Now()
 	tCommit, err := p.committed(ctx, end.Applied)
