@@ -25,7 +25,7 @@ const (
 	opRestart                 // put key/val into restarts
 	opSeq                     // put key/val into seqs
 	opSetAside                // move the specs and panes of sensor key (and its restart if val is 1) into set-aside
-	opSkip                    // nothing: an op of a sensor set aside at Commit
+	opSkip                    // nothing: an op Commit leaves out (skipSeqs)
 )
 
 // span locates bytes in the batch's buffer. Offsets, not slices, because
@@ -400,9 +400,19 @@ func (db *DB) Commit(bs ...*Batch) (CommitStats, error) {
 
 // skipSeqs drops the stream sequences (SetSeq) of the sensors set aside:
 // their stored state stays at an older sequence, and storing the new one
-// would make a restart skip messages that state never held.
+// would make a restart skip messages that state never held. It also
+// drops those at or below the position the same commit stores: a restart
+// reads on from after the position, so such a sequence skips nothing,
+// and a commit that holds every changed sensor then writes no sequence.
+// An older sequence left in the file is below the position too.
 func skipSeqs(bs []*Batch, setAside []*SensorError) {
-	if len(setAside) == 0 {
+	var pos uint64
+	for _, b := range bs {
+		if b.hasPos {
+			pos = max(pos, b.pos)
+		}
+	}
+	if len(setAside) == 0 && pos == 0 {
 		return
 	}
 	ids := make(map[string]bool, len(setAside))
@@ -411,7 +421,11 @@ func skipSeqs(bs []*Batch, setAside []*SensorError) {
 	}
 	for _, b := range bs {
 		for i := range b.ops {
-			if o := &b.ops[i]; o.kind == opSeq && ids[string(b.bytes(o.key))] {
+			o := &b.ops[i]
+			if o.kind != opSeq {
+				continue
+			}
+			if ids[string(b.bytes(o.key))] || binary.BigEndian.Uint64(b.bytes(o.val)) <= pos {
 				o.kind = opSkip
 			}
 		}
@@ -428,7 +442,7 @@ type opRef struct{ b, i int }
 // the keys after it: in the order sensors were touched that is quadratic
 // in the keys (the first commit of 10,000 sensors holding 270,000 panes
 // took 37.6 s, in key order 1.3 s), and every record of a commit lands on
-// the last page of the time index. In key order each insert lands at the end. The sorts are stable,
+// the last page of the time index. In key order each insert lands at the end. The sorts keep batch order among equal keys,
 // so a key put twice keeps its last value. Reordering is safe while the
 // batches delete nothing but below horizons: Sensor never puts a pane
 // below its own horizon, and horizons only move forward, so putting every
@@ -451,13 +465,26 @@ func sortedPuts(bs []*Batch) (panes, records []opRef, ok bool) {
 		return nil, nil, false
 	}
 	// Panes first, then sequences, each in key order.
-	slices.SortStableFunc(panes, func(x, y opRef) int {
+	slices.SortFunc(panes, func(x, y opRef) int {
 		if kx, ky := bs[x.b].ops[x.i].kind, bs[y.b].ops[y.i].kind; kx != ky {
 			return int(kx) - int(ky)
 		}
-		return bytes.Compare(keyOf(bs, x), keyOf(bs, y))
+		if c := bytes.Compare(keyOf(bs, x), keyOf(bs, y)); c != 0 {
+			return c
+		}
+		return x.cmp(y)
 	})
 	return panes, records, true
+}
+
+// cmp orders op references in batch order. As the last key of a sort it
+// makes the sort stable without the cost of a stable sort (O(n log² n)
+// moves), so a key put twice still keeps its last value.
+func (r opRef) cmp(o opRef) int {
+	if r.b != o.b {
+		return r.b - o.b
+	}
+	return r.i - o.i
 }
 
 func keyOf(bs []*Batch, r opRef) []byte  { return bs[r.b].bytes(bs[r.b].ops[r.i].key) }
@@ -488,13 +515,23 @@ func applySorted(tx *bolt.Tx, bs []*Batch, panes, records []opRef, st *CommitSta
 			return err
 		}
 	}
-	slices.SortStableFunc(records, func(x, y opRef) int { return bytes.Compare(keyOf(bs, x), keyOf(bs, y)) })
+	slices.SortFunc(records, func(x, y opRef) int {
+		if c := bytes.Compare(keyOf(bs, x), keyOf(bs, y)); c != 0 {
+			return c
+		}
+		return x.cmp(y)
+	})
 	for _, r := range records {
 		if err := put(hist, keyOf(bs, r), bs[r.b].bytes(bs[r.b].ops[r.i].val)); err != nil {
 			return err
 		}
 	}
-	slices.SortStableFunc(records, func(x, y opRef) int { return bytes.Compare(key2Of(bs, x), key2Of(bs, y)) })
+	slices.SortFunc(records, func(x, y opRef) int {
+		if c := bytes.Compare(key2Of(bs, x), key2Of(bs, y)); c != 0 {
+			return c
+		}
+		return x.cmp(y)
+	})
 	var last []byte
 	for _, r := range records {
 		k := key2Of(bs, r)
