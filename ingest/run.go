@@ -66,8 +66,9 @@ type sensorRef struct {
 	st     *sensorState
 	// made is set by the worker once st.sensor exists; never cleared.
 	made atomic.Bool
-	// inflight counts the jobs routed to the worker and not yet
-	// applied: the dispatcher adds, the worker subtracts.
+	// inflight counts the jobs routed to the worker while made was
+	// unset and not yet applied: the dispatcher adds, the worker
+	// subtracts.
 	inflight atomic.Int32
 }
 
@@ -675,9 +676,14 @@ func (s *Service) handle(m message) {
 		s.deadLetter(m.subject, m.data, reasonForRoute(err), err, nil)
 		return
 	}
-	ref.inflight.Add(1)
+	// Only a route sweep may forget needs the count; a made sensor's
+	// route stays, and its jobs leave the shared counter alone.
+	counted := !ref.made.Load()
+	if counted {
+		ref.inflight.Add(1)
+	}
 	b := s.batchFor(ref.worker)
-	b.jobs = append(b.jobs, job{ref: ref, data: m.data, seq: m.seq})
+	b.jobs = append(b.jobs, job{ref: ref, data: m.data, seq: m.seq, counted: counted})
 	s.dirty = true
 	if len(b.jobs) >= jobsPerBatch {
 		s.flushWorker(ref.worker)

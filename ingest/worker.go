@@ -17,6 +17,8 @@ type job struct {
 	ref  *sensorRef
 	data []byte // the payload, owned by the job
 	seq  uint64 // stream sequence; 0 in direct mode
+	// counted: the job is in ref.inflight (the sensor was not yet made)
+	counted bool
 }
 
 // workBatch is one hand-off from the dispatcher to a worker: jobs to
@@ -98,7 +100,9 @@ func (w *worker) run() {
 		limit := w.s.o.Now().Add(w.s.o.FutureSkew).UnixNano()
 		for i := range b.jobs {
 			w.apply(&b.jobs[i], limit)
-			b.jobs[i].ref.inflight.Add(-1)
+			if b.jobs[i].counted {
+				b.jobs[i].ref.inflight.Add(-1)
+			}
 		}
 		clear(b.jobs) // drop the refs and payloads
 		b.jobs = b.jobs[:0]
