@@ -249,16 +249,18 @@ func decodePane(p *pane, side *posMoments, key PaneKey, data []byte) error {
 	return nil
 }
 
-// Warm reads what Add reads first (the windows, each ring's newest pane
+// Warm reads what Add reads (the windows, each ring's newest pane
 // and its changed-marks) and returns a number of no meaning. Call it for
 // a run of sensors before adding readings to them: the memory loads of
 // different sensors then overlap, instead of each Add waiting on its own
-// in turn when the sensors' windows do not fit the CPU caches.
+// in turn when the sensors' windows do not fit the CPU caches. A pane
+// spans three cache lines, so its first and last words are both read.
 func (s *Sensor) Warm() uint64 {
 	x := uint64(s.wins[0].ring)
 	for j := range s.rings {
 		rg := &s.rings[j]
-		x += uint64(rg.panes[rg.slot(rg.newest)].n) + rg.dirty[0]
+		p := &rg.panes[rg.slot(rg.newest)]
+		x += uint64(p.n) + math.Float64bits(p.sdu2) + rg.dirty[0]
 	}
 	return x
 }
