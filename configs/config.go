@@ -196,7 +196,7 @@ type Store struct {
 	CommitReadings int
 	// CommitMaxSensors bounds the sensors one commit writes, besides those
 	// with an alert decision or calibration waiting, so decisions are not
-	// held up by a commit of the whole fleet. Default 20000.
+	// held up by a commit of the whole fleet. Default 10000.
 	CommitMaxSensors int
 	// HistoryRetention is how long fit history is kept. Default 400d
 	// (more than a year, so a yearly calibration cycle can be compared with

@@ -24,7 +24,7 @@ const (
 	defaultStoreDir                 = "./data"
 	defaultCommitInterval           = time.Second
 	defaultCommitReadings           = 1000000
-	defaultCommitMaxSensors         = 20000
+	defaultCommitMaxSensors         = 10000
 	defaultHistoryRetention         = 400 * Day
 	defaultHTTPAddr                 = "127.0.0.1:9464"
 	defaultMinReadings              = 30
