@@ -442,8 +442,9 @@ type opRef struct{ b, i int }
 // the keys after it: in the order sensors were touched that is quadratic
 // in the keys (the first commit of 10,000 sensors holding 270,000 panes
 // took 37.6 s, in key order 1.3 s), and every record of a commit lands on
-// the last page of the time index. In key order each insert lands at the end. The sorts keep batch order among equal keys,
-// so a key put twice keeps its last value. Reordering is safe while the
+// the last page of the time index. In key order each insert lands at the
+// end. The sorts keep batch order among equal keys, so a key put twice
+// keeps its last value. Reordering is safe while the
 // batches delete nothing but below horizons: Sensor never puts a pane
 // below its own horizon, and horizons only move forward, so putting every
 // pane first and deleting below the horizons after ends where the batch
