@@ -415,9 +415,12 @@ func skipSeqs(bs []*Batch, setAside []*SensorError) {
 	if len(setAside) == 0 && pos == 0 {
 		return
 	}
-	ids := make(map[string]bool, len(setAside))
-	for _, e := range setAside {
-		ids[e.Sensor] = true
+	var ids map[string]bool // nil when none is set aside: every lookup false
+	if len(setAside) > 0 {
+		ids = make(map[string]bool, len(setAside))
+		for _, e := range setAside {
+			ids[e.Sensor] = true
+		}
 	}
 	for _, b := range bs {
 		for i := range b.ops {

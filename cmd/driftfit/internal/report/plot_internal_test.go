@@ -194,16 +194,9 @@ func TestBuildFigure_VoidedCalibration(t *testing.T) {
 	if !fig.legend.voided || !slices.Contains(fig.legend.notes, note) {
 		t.Errorf("legend voided %v, notes %q; want the note %q", fig.legend.voided, fig.legend.notes, note)
 	}
-	canvas, err := drawFigure(true, fig)
-	if err != nil {
-		t.Fatal(err)
-	}
-	var b bytes.Buffer
-	if _, err := canvas.WriteTo(&b); err != nil {
-		t.Fatal(err)
-	}
+	svg := drawSVG(t, fig)
 	for _, s := range []string{"voided calibration (each named in this legend)", "entered for the wrong tag"} {
-		if !bytes.Contains(b.Bytes(), []byte(s)) {
+		if !bytes.Contains(svg, []byte(s)) {
 			t.Errorf("SVG lacks the text %q", s)
 		}
 	}
@@ -265,9 +258,9 @@ func TestBuildFigure_RobustAxis(t *testing.T) {
 	}
 }
 
-func TestDrawFigure_SVG(t *testing.T) {
-	sols := reviewSolutions(t)
-	fig := buildFigure("qm.t.pt-1", "kPa", reviewSeries(sols), reviewAnnotations(sols))
+// drawSVG draws fig as SVG and returns the file's bytes.
+func drawSVG(t *testing.T, fig *figure) []byte {
+	t.Helper()
 	c, err := drawFigure(true, fig)
 	if err != nil {
 		t.Fatal(err)
@@ -276,7 +269,14 @@ func TestDrawFigure_SVG(t *testing.T) {
 	if _, err := c.WriteTo(&b); err != nil {
 		t.Fatal(err)
 	}
-	dec := xml.NewDecoder(bytes.NewReader(b.Bytes()))
+	return b.Bytes()
+}
+
+func TestDrawFigure_SVG(t *testing.T) {
+	sols := reviewSolutions(t)
+	fig := buildFigure("qm.t.pt-1", "kPa", reviewSeries(sols), reviewAnnotations(sols))
+	svg := drawSVG(t, fig)
+	dec := xml.NewDecoder(bytes.NewReader(svg))
 	for {
 		_, err := dec.Token()
 		if err == io.EOF {
@@ -289,7 +289,7 @@ func TestDrawFigure_SVG(t *testing.T) {
 	for _, s := range []string{"level (kPa)", "drift rate (kPa/day)", "tolerance band: as-left ± 2 kPa",
 		"as-left 100 kPa (configuration), then 101 kPa (calibration 2026-03-21)", "slope warning ±0.05 kPa/day, critical ±0.1 kPa/day",
 		"ticket opened, due, closed", "calibration", "alerts", "tickets", "calibrations"} {
-		if !bytes.Contains(b.Bytes(), []byte(s)) {
+		if !bytes.Contains(svg, []byte(s)) {
 			t.Errorf("SVG lacks the text %q", s)
 		}
 	}
