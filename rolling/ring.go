@@ -1,5 +1,7 @@
 package rolling
 
+import "math"
+
 // ring is a circular array of panes of one width, shared by every window of
 // a sensor with that pane width. Slot k mod len(panes) holds pane k, the
 // readings with k·w ≤ t < (k+1)·w; a slot with n == 0 is empty. Advancing
@@ -10,6 +12,13 @@ type ring struct {
 	invW   float64 // 1/w
 	newest int64   // index of the newest pane seen; valid when started
 	start  bool
+	// newSlot is slot(newest), kept so that the common reading, one in
+	// the newest pane, costs no integer division.
+	newSlot int
+	// nextAt is the first time of pane newest+1 (math.MaxInt64 when that
+	// lies beyond int64): a reading before it closes no pane, which
+	// Sensor.Closes then learns without a division.
+	nextAt int64
 	// savedStart and savedNewest are start and newest at the last
 	// MarkSaved: the horizon has moved since when they differ.
 	savedStart  bool
@@ -58,7 +67,10 @@ func (r *ring) accepts(k int64) bool {
 // accepts.
 func (r *ring) add(t, k int64, y, ly float64, pos bool) error {
 	r.advance(k)
-	i := r.slot(k)
+	i := r.newSlot
+	if k != r.newest {
+		i = r.slot(k)
+	}
 	p := &r.panes[i]
 	if p.n == ^uint32(0) {
 		return ErrPaneFull
@@ -84,7 +96,8 @@ func (r *ring) add(t, k int64, y, ly float64, pos bool) error {
 // clearing the slots of the panes that leave the ring.
 func (r *ring) advance(k int64) {
 	if !r.start {
-		r.newest, r.start = k, true
+		r.start = true
+		r.setNewest(k)
 		return
 	}
 	if k <= r.newest {
@@ -99,7 +112,16 @@ func (r *ring) advance(k int64) {
 		}
 		r.dirty[i>>6] &^= 1 << uint(i&63)
 	}
-	r.newest = k
+	r.setNewest(k)
+}
+
+func (r *ring) setNewest(k int64) {
+	r.newest, r.newSlot = k, r.slot(k)
+	if k >= math.MaxInt64/r.width {
+		r.nextAt = math.MaxInt64
+	} else {
+		r.nextAt = (k + 1) * r.width
+	}
 }
 
 // posMoments returns Σu and Σu² over the positive readings of slot i.

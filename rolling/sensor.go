@@ -164,6 +164,6 @@ func (s *Sensor) Newest(i int) (time.Time, bool) {
 	if !rg.start {
 		return time.Time{}, false
 	}
-	p := &rg.panes[rg.slot(rg.newest)]
+	p := &rg.panes[rg.newSlot]
 	return time.Unix(0, p.tmax), p.n > 0
 }

@@ -43,7 +43,7 @@ var ErrBadPane = errors.New("rolling: bad pane encoding")
 func (s *Sensor) Changed(fn func(PaneKey)) {
 	for j := range s.rings {
 		rg := &s.rings[j]
-		sn := rg.slot(rg.newest)
+		sn := rg.newSlot
 		for w, word := range rg.dirty {
 			for word != 0 {
 				i := w*64 + bits.TrailingZeros64(word)
@@ -259,7 +259,7 @@ func (s *Sensor) Warm() uint64 {
 	x := uint64(s.wins[0].ring)
 	for j := range s.rings {
 		rg := &s.rings[j]
-		p := &rg.panes[rg.slot(rg.newest)]
+		p := &rg.panes[rg.newSlot]
 		x += uint64(p.n) + math.Float64bits(p.sdu2) + rg.dirty[0]
 	}
 	return x
@@ -272,7 +272,7 @@ func (s *Sensor) Closes(t int64) uint64 {
 	var mask uint64
 	for i := range s.wins {
 		rg := &s.rings[s.wins[i].ring]
-		if rg.start && floorDiv(t, rg.width) > rg.newest {
+		if rg.start && t >= rg.nextAt && floorDiv(t, rg.width) > rg.newest {
 			mask |= 1 << uint(i)
 		}
 	}

@@ -5,6 +5,7 @@ import (
 	"errors"
 	"maps"
 	"math"
+	"math/big"
 	"math/rand/v2"
 	"slices"
 	"testing"
@@ -206,6 +207,36 @@ func TestSensor_Closes(t *testing.T) {
 	for _, tc := range cases {
 		if got := s.Closes(tc.at); got != tc.want {
 			t.Errorf("Closes(+%v) = %b, want %b", time.Duration(tc.at-t2026), got, tc.want)
+		}
+	}
+}
+
+// TestSensor_ClosesEdges checks Closes against its definition, a reading
+// in a later pane than the newest (⌊t/w⌋ taken with math/big, so nothing
+// can overflow), at the ends of int64 time and across zero.
+func TestSensor_ClosesEdges(t *testing.T) {
+	floor := func(a, w int64) *big.Int {
+		q, m := new(big.Int), new(big.Int)
+		q.DivMod(big.NewInt(a), big.NewInt(w), m) // Euclidean: floor for w > 0
+		return q
+	}
+	hour, day := int64(time.Hour), int64(24*time.Hour)
+	for _, first := range []int64{math.MinInt64, math.MinInt64 + day, -1, 0, day - 1, math.MaxInt64 - day, math.MaxInt64} {
+		s := newSensor(t, defaultSpecs...)
+		if err := s.Add(rolling.Reading{UnixNano: first, Value: 1}); err != nil {
+			t.Fatalf("Add(%d): %v", first, err)
+		}
+		for _, d := range []int64{math.MinInt64, -day, -hour, -1, 0, 1, hour - 1, hour, day, math.MaxInt64} {
+			at := first + d // wraps on purpose at the ends: any time must do
+			var want uint64
+			for i, w := range []int64{hour, day} {
+				if floor(at, w).Cmp(floor(first, w)) > 0 {
+					want |= 1 << i
+				}
+			}
+			if got := s.Closes(at); got != want {
+				t.Errorf("after a reading at %d, Closes(%d) = %b, want %b", first, at, got, want)
+			}
 		}
 	}
 }
