@@ -47,6 +47,7 @@ const ackEvery = 64
 type commitReq struct {
 	tok      *commitToken
 	pos      uint64    // stream position of the cut; 0 in direct mode
+	bytes    uint64    // Service.streamBytes at the cut
 	marks    []ackMark // taken since the last commit, oldest first
 	issued   time.Time
 	finished chan struct{} // closed once the commit is written (or failed)
@@ -68,7 +69,7 @@ func (s *Service) commitCut(all, urgentOnly bool) *commitReq {
 	}
 	req := commitReq{tok: tok, issued: time.Now(), finished: make(chan struct{})}
 	if s.o.Mode == ModeStream {
-		req.pos = s.lastSeq
+		req.pos, req.bytes = s.lastSeq, s.streamBytes
 		if s.lastMsg != nil && (len(s.marks) == 0 || s.marks[len(s.marks)-1].seq != s.lastSeq) {
 			s.marks = append(s.marks, ackMark{s.lastSeq, s.lastMsg})
 		}
@@ -266,7 +267,7 @@ func (s *Service) committer() {
 			}
 			marks = append(marks[:0], marks[n:]...)
 		}
-		s.purgeTo(pos) // the stored position: every message up to it is in the file
+		s.purgeTo(purgeReq{seq: pos, bytes: req.bytes}) // the stored position: every message up to it is in the file
 		if r := s.o.HistoryRetention; r > 0 && !time.Now().Before(pruneNext) {
 			n, more, err := s.o.DB.PruneHistory(s.o.Now().Add(-r), 500)
 			switch {

@@ -139,7 +139,10 @@ type Service struct {
 	// appliedSeq is lastSeq for other goroutines.
 	appliedSeq atomic.Uint64
 	// purges holds the last committed position to purge (purgeTo).
-	purges chan uint64
+	purges chan purgeReq
+	// streamBytes counts the subject and payload bytes of the stream
+	// messages taken (dispatcher), about what the stream stores of them.
+	streamBytes uint64
 
 	commits chan commitReq
 	control chan controlReq
@@ -190,7 +193,7 @@ func New(o Options) (*Service, error) {
 		wakeCommit:  make(chan struct{}, 1),
 		freed:       make(chan struct{}, 1),
 		sweepAt:     sweepMin,
-		purges:      make(chan uint64, 1),
+		purges:      make(chan purgeReq, 1),
 	}
 	s.outbox = newOutbox(s)
 	if o.Metrics != nil && o.Metrics.tickets != nil {
@@ -657,6 +660,7 @@ func (s *Service) handle(m message) {
 			s.marks = append(s.marks, ackMark{m.seq, m.js})
 		}
 		s.sinceAck++
+		s.streamBytes += uint64(len(m.subject) + len(m.data))
 		s.dirty = true
 		if mt := s.o.Metrics; mt != nil {
 			mt.StreamLag.Set(float64(m.pending))

@@ -196,6 +196,13 @@ type Options struct {
 	// for the StreamBytes metric and the warning when it nears its limit.
 	// Default 10s.
 	CheckInterval time.Duration
+	// PurgeInterval is the longest a committed stream message waits to
+	// be purged (ModeStream), unless the committed messages not yet
+	// purged reach an eighth of StreamMaxBytes first. Each purge makes
+	// the server rewrite part of a stream block, so purging after every
+	// commit (several a second under load) cost 5% of the stream's
+	// throughput. Default 5s.
+	PurgeInterval time.Duration
 	// Now returns the current time. Default time.Now.
 	Now func() time.Time
 	// Logger receives the service's events. Default: a disabled logger.
@@ -303,6 +310,9 @@ func (o *Options) fill() error {
 	}
 	if o.CheckInterval <= 0 {
 		o.CheckInterval = 10 * time.Second
+	}
+	if o.PurgeInterval <= 0 {
+		o.PurgeInterval = 5 * time.Second
 	}
 	if o.Now == nil {
 		o.Now = time.Now

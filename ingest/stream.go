@@ -337,31 +337,52 @@ func (src *streamSource) run(cc jetstream.ConsumeContext) {
 	}
 }
 
-// purge purges committed messages (purgeTo) until stop. It has its own
-// goroutine: a purge sent just before a disconnect waits out its timeout,
-// which must not hold up making the consumer anew.
+// purgeReq is a committed stream position, with the bytes taken up to
+// the cut of its commit (Service.streamBytes; the position may lie a
+// little before the cut, so the bytes are an upper bound).
+type purgeReq struct{ seq, bytes uint64 }
+
+// purge purges committed messages (purgeTo) until stop: once
+// Options.PurgeInterval has passed since the last purge, or at once when
+// what is committed and not purged reaches an eighth of the stream's
+// limit, so the stream keeps at least seven eighths of its limit for
+// messages not yet applied. It has its own goroutine: a purge sent just
+// before a disconnect waits out its timeout, which must not hold up
+// making the consumer anew.
 func (src *streamSource) purge() {
 	s := src.s
 	defer src.wg.Done()
-	var purged uint64
+	var purged, want purgeReq
+	every := s.o.PurgeInterval
+	soon := uint64(max(s.o.StreamMaxBytes/8, 1))
+	tick := time.NewTicker(every)
+	defer tick.Stop()
+	last := time.Now()
 	for {
 		select {
 		case <-src.quit:
 			return
-		case seq := <-s.purges:
-			if seq <= purged {
+		case r := <-s.purges:
+			if r.seq > want.seq {
+				want = r
+			}
+			if want.bytes-purged.bytes < soon && time.Since(last) < every {
 				continue
 			}
-			ctx, cancel := context.WithTimeout(src.ctx, 10*time.Second)
-			// Keep seq+1 on: everything up to seq is committed.
-			err := src.stream.Purge(ctx, jetstream.WithPurgeSequence(seq+1))
-			cancel()
-			if err != nil {
-				s.log.Warn().Err(err).Uint64("position", seq).Msg("stream purge failed; retried with the next commit")
-				continue
-			}
-			purged = seq
+		case <-tick.C:
 		}
+		if want.seq <= purged.seq {
+			continue
+		}
+		ctx, cancel := context.WithTimeout(src.ctx, 10*time.Second)
+		// Keep seq+1 on: everything up to seq is committed.
+		err := src.stream.Purge(ctx, jetstream.WithPurgeSequence(want.seq+1))
+		cancel()
+		if err != nil {
+			s.log.Warn().Err(err).Uint64("position", want.seq).Msg("stream purge failed; retried later")
+			continue
+		}
+		purged, last = want, time.Now()
 	}
 }
 
@@ -415,13 +436,13 @@ func (s *Service) lost(n, position uint64) {
 // committed: the file, not the bus, holds them from now on. The committer
 // calls it after each commit that advanced the position; it never blocks,
 // and a later call replaces one not yet done. No-op in direct mode.
-func (s *Service) purgeTo(seq uint64) {
-	if s.o.Mode != ModeStream || seq == 0 {
+func (s *Service) purgeTo(r purgeReq) {
+	if s.o.Mode != ModeStream || r.seq == 0 {
 		return
 	}
 	for {
 		select {
-		case s.purges <- seq:
+		case s.purges <- r:
 			return
 		default:
 		}

@@ -126,6 +126,7 @@ func TestService_StreamBounded(t *testing.T) {
 	lg := zerolog.New(&logs)
 	limits := func(o *ingest.Options) {
 		o.StreamMaxBytes, o.RejectedMaxBytes, o.Logger, o.CheckInterval = 256<<10, 64<<10, &lg, 50*time.Millisecond
+		o.PurgeInterval = 50 * time.Millisecond
 	}
 	h := startServiceWith(t, ns.ClientURL(), dir, ingest.ModeStream, limits)
 	waitStream(t, h.nc)
@@ -197,6 +198,42 @@ func TestService_StreamBounded(t *testing.T) {
 		t.Fatalf("publish after the purge: %v", err)
 	}
 	waitFor(t, "reading after the purge", func() bool { return h.svc.Stats().Applied == uint64(acked)+1 })
+}
+
+// TestService_StreamPurgeDeferred checks when committed messages leave
+// the stream: not after each commit, but once what is committed and not
+// purged reaches an eighth of the stream's limit (Options.PurgeInterval,
+// the other trigger, is an hour here).
+func TestService_StreamPurgeDeferred(t *testing.T) {
+	dir := t.TempDir()
+	ns := natsServer(t, filepath.Join(dir, "nats"), 0)
+	defer ns.Shutdown()
+	h := startServiceWith(t, ns.ClientURL(), dir, ingest.ModeStream, func(o *ingest.Options) {
+		o.StreamMaxBytes, o.PurgeInterval = 256<<10, time.Hour // purge at 32 KiB
+	})
+	waitStream(t, h.nc)
+	js, err := h.nc.JetStream()
+	if err != nil {
+		t.Fatal(err)
+	}
+	stream := func() nats.StreamState {
+		info, err := js.StreamInfo("DRIFTFIT")
+		if err != nil {
+			t.Fatal(err)
+		}
+		return info.State
+	}
+	// 200 messages of about 42 bytes (subject and payload): 8 KiB.
+	publishReadings(t, js, "qm.pd.pt-1", 0, 200)
+	waitFor(t, "200 messages committed", func() bool { return h.svc.Stats().Position >= 200 })
+	time.Sleep(100 * time.Millisecond) // five commit intervals: no purge may follow
+	if st := stream(); st.Msgs != 200 || st.FirstSeq != 1 {
+		t.Fatalf("after committing 8 KiB, the stream holds %d messages from %d; want all 200 from 1", st.Msgs, st.FirstSeq)
+	}
+	// 800 more make 42 KiB: the commit that passes 32 KiB purges up to
+	// its position.
+	publishReadings(t, js, "qm.pd.pt-1", 200, 800)
+	waitFor(t, "committed messages purged", func() bool { return stream().FirstSeq > 200 })
 }
 
 // TestService_StreamOfEarlierVersion starts a service on a stream made as
